@@ -1,0 +1,431 @@
+"""Subset matching: the displacement field between a reference and a deformed image.
+
+The public function is :func:`correlate`. Its stages live in private modules: ``_seed`` (FFT
+starting guess), ``_icgn`` / ``_icgn_kernel`` (IC-GN solver), ``_waves`` (propagation
+bookkeeping), ``_reference`` (a plain, slow solver the tests compare the kernel against).
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Sequence
+
+import numpy as np
+
+from ..field import DisplacementField, Reason
+from ._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
+                    grad_from_params, index_u_v, n_params, params_from_fields)
+
+__all__ = ["correlate", "prepare_grid"]
+
+log = logging.getLogger(__name__)
+
+_SEED_TRIES = 7
+# grids at least this many points across propagate over a coarse lattice first
+_COARSE_MIN = 12
+
+
+def _check_int(name, value, low, hint):
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+        raise ValueError(f"{name} must be an integer, got {value!r}; {hint}")
+    if value < low:
+        raise ValueError(f"{name} must be at least {low}, got {value}; {hint}")
+    return int(value)
+
+
+def _check_options(subset, step, shape_function, interpolation, search, min_zncc,
+                   max_iterations, tolerance, min_texture):
+    subset = _check_int("subset", subset, 7, "use an odd size of 7 px or more, e.g. 21")
+    if subset % 2 == 0:
+        raise ValueError(f"subset must be odd so it has a centre pixel, got {subset}; "
+                         f"use {subset + 1}")
+    step = _check_int("step", step, 1, "use a grid spacing of 1 px or more, e.g. 10")
+    sf = str(shape_function).lower()
+    if sf not in SHAPE_FUNCTIONS:
+        raise ValueError(f"unknown shape_function {shape_function!r}; use 'affine' or "
+                         f"'quadratic'")
+    it = str(interpolation).lower()
+    if it not in INTERPOLATIONS:
+        raise ValueError(f"unknown interpolation {interpolation!r}; use 'cubic' or 'quintic'")
+    search = _check_int("search", search, 0, "give the search radius in px, e.g. 60")
+    if not (-1.0 < float(min_zncc) < 1.0):
+        raise ValueError(f"min_zncc must lie between -1 and 1, got {min_zncc}; e.g. 0.9")
+    max_iterations = _check_int("max_iterations", max_iterations, 1, "e.g. 50")
+    if not float(tolerance) > 0:
+        raise ValueError(f"tolerance must be positive, got {tolerance}; e.g. 0.001 px")
+    if not 0.0 <= float(min_texture) < 1.0:
+        raise ValueError(f"min_texture must lie in [0, 1), got {min_texture}; e.g. 0.02")
+    return (subset, step, SHAPE_FUNCTIONS[sf] == 2, INTERPOLATIONS[it], search,
+            float(min_zncc), max_iterations, float(tolerance), float(min_texture))
+
+
+def prepare_grid(shape, roi, subset, step, border=0):
+    """Point grid over the ROI and the points whose whole subset lies inside it.
+
+    Parameters
+    ----------
+    shape : tuple
+        Image shape ``(rows, cols)``.
+    roi : None, bool array, rectangle or polygon
+        See :func:`dic.roi.make_roi`.
+    subset, step : int
+        Subset size and grid spacing (px).
+    border : int, optional
+        Width of the image margin that subsets must not touch (px).
+
+    Returns
+    -------
+    xs, ys : ndarray of int
+        Column and row positions of the grid lines.
+    candidate : ndarray of bool, shape (len(ys), len(xs))
+        Points whose subset is wholly inside the ROI and clear of the image margin.
+    mask : ndarray of bool
+        The ROI as a pixel mask.
+    in_image : ndarray of bool, shape (len(ys), len(xs))
+        Points whose subset is clear of the image margin.
+    """
+    from ..roi import erode_for_subset, make_roi, roi_bbox
+
+    mask = make_roi(roi, shape)
+    half = subset // 2
+    x0, y0, x1, y1 = roi_bbox(mask)
+    xs = np.arange(x0 + half, x1 - half + 1, step, dtype=np.int64)
+    ys = np.arange(y0 + half, y1 - half + 1, step, dtype=np.int64)
+    if xs.size == 0 or ys.size == 0:
+        raise ValueError(f"roi is too small for subset {subset} px (its bounding box is "
+                         f"{x1 - x0 + 1} x {y1 - y0 + 1} px); enlarge the ROI or use a smaller "
+                         f"subset")
+    rows, cols = shape
+    lo_x, hi_x = border + half, cols - 1 - border - half
+    lo_y, hi_y = border + half, rows - 1 - border - half
+    in_image = (((xs >= lo_x) & (xs <= hi_x))[None, :] & ((ys >= lo_y) & (ys <= hi_y))[:, None])
+    if mask[y0:y1 + 1, x0:x1 + 1].all():
+        # a rectangular ROI: every subset inside the bounding box is inside the ROI
+        candidate = in_image
+    else:
+        candidate = erode_for_subset(mask, subset)[np.ix_(ys, xs)] & in_image
+    if not candidate.any():
+        raise ValueError(f"roi holds no point whose {subset} px subset fits inside it; enlarge "
+                         f"the ROI or use a smaller subset")
+    return xs, ys, candidate, mask, in_image
+
+
+class _Propagation:
+    """State of one reliability-guided propagation over the point grid."""
+
+    def __init__(self, matcher, gx, gy, candidate, in_image, step, min_zncc):
+        from . import _waves
+
+        self.w = _waves
+        self.m = matcher
+        self.ny, self.nx = candidate.shape
+        self.px = gx.ravel()
+        self.py = gy.ravel()
+        self.step = step
+        self.min_zncc = min_zncc
+        n = candidate.size
+        self.state = np.where(candidate.ravel(), _waves.TODO, _waves.NOT_CANDIDATE).astype(
+            np.int8)
+        self.reason = np.select([candidate.ravel(), ~in_image.ravel()],
+                                [Reason.NOT_REACHED, Reason.OUTSIDE_IMAGE],
+                                Reason.OUTSIDE_ROI).astype(np.int8)
+        self.params = np.full((n, n_params(matcher.second)), np.nan)
+        self.zncc = np.full(n, np.nan)
+        self.iters = np.zeros(n, np.int16)
+        self.sigma = np.full(n, np.nan)
+        self.n_matched = 0
+
+    def run(self, idx, p0, *, retry_later=False):
+        """Match points ``idx`` from ``p0``; return the indices that matched well."""
+        res = self.m.match(self.px[idx], self.py[idx], p0)
+        self.n_matched += len(idx)
+        good = (res.status == Reason.MEASURED) & (res.zncc >= self.min_zncc)
+        status = np.where((res.status == Reason.MEASURED) & ~good, Reason.LOW_ZNCC,
+                          res.status).astype(np.int8)
+        self.params[idx] = res.params
+        self.zncc[idx] = res.zncc
+        self.iters[idx] = res.iterations
+        self.sigma[idx] = res.sigma_factor
+        self.reason[idx] = status
+        if retry_later:
+            # a failed start from an outside guess is no verdict: neighbours may still reach it
+            self.state[idx] = np.where(good, self.w.GOOD, self.w.TODO)
+        else:
+            self.state[idx] = np.where(good, self.w.GOOD, self.w.BAD)
+        return idx[good]
+
+    def propagate(self, new_good):
+        """Grow outwards from ``new_good`` until no neighbour is left to match.
+
+        On larger grids the growth first runs over the lattice of every second point (a quarter
+        of the points, in half the number of waves); the points in between are then matched in
+        one row-ordered batch from their best matched neighbour, which keeps both cores busy
+        and the image data in cache. Points that fail there get one more try from a
+        4-neighbour before the final waves over the full grid.
+        """
+        if self.ny >= _COARSE_MIN and self.nx >= _COARSE_MIN and new_good.size:
+            self._waves(new_good, 2)
+            idx, p0 = self.w.fill_between(self.state, self.zncc, self.params, self.nx,
+                                          self.ny, self.step, self.m.second)
+            if idx.size:
+                self.run(idx, p0, retry_later=True)
+                tried = idx[self.state[idx] == self.w.TODO]
+                new_good = np.flatnonzero(self.state == self.w.GOOD)
+                self._waves(new_good, 1)
+                # a point that failed from two different neighbours is not tried again
+                left = tried[self.state[tried] == self.w.TODO]
+                self.state[left] = self.w.BAD
+                return
+        self._waves(new_good, 1)
+
+    def _waves(self, new_good, stride):
+        while new_good.size:
+            idx, p0 = self.w.next_wave(self.state, self.zncc, self.params, self.nx, self.ny,
+                                       self.step, self.m.second, new_good.astype(np.int64),
+                                       stride)
+            if idx.size == 0:
+                break
+            new_good = self.run(idx, p0)
+
+
+def _seed_candidates(comp_idx, px, py):
+    """Seed trial order for a component: nearest its centroid first, then spread out."""
+    cx, cy = px[comp_idx].mean(), py[comp_idx].mean()
+    order = comp_idx[np.argsort((px[comp_idx] - cx) ** 2 + (py[comp_idx] - cy) ** 2,
+                                kind="stable")]
+    if order.size <= _SEED_TRIES:
+        return order
+    # the centre first, then points at growing distance from it
+    picks = np.unique(np.linspace(0, order.size - 1, _SEED_TRIES).astype(int))
+    return order[picks]
+
+
+def _try_seed(prop, k, ref, deformed, search, guess=None):
+    """Match grid point ``k`` from an FFT (or user) guess; True if it is a good seed."""
+    from ._seed import fft_guess
+
+    x, y = int(prop.px[k]), int(prop.py[k])
+    if guess is None:
+        rows, cols = ref.shape
+        half = prop.m.half
+        # a larger template than the subset makes the whole-pixel search more robust
+        big = min(max(half, 15), x, y, cols - 1 - x, rows - 1 - y)
+        du, dv, score = fft_guess(ref, deformed, x, y, half=max(big, half), search=search)
+        if not np.isfinite(score):
+            return False
+    else:
+        du, dv = guess
+    p0 = np.zeros(n_params(prop.m.second))
+    iu, iv = index_u_v(prop.m.second)
+    p0[iu], p0[iv] = du, dv
+    good = prop.run(np.array([k], np.int64), p0[None, :], retry_later=True)
+    return good.size == 1
+
+
+def _nearest_candidate(prop, x, y):
+    todo = np.flatnonzero(prop.state == prop.w.TODO)
+    if todo.size == 0:
+        return None
+    d = (prop.px[todo] - x) ** 2 + (prop.py[todo] - y) ** 2
+    return int(todo[np.argmin(d)])
+
+
+def _parse_seeds(seeds):
+    if seeds is None:
+        return []
+    arr = np.asarray(seeds, dtype=float)
+    if arr.ndim == 1:
+        arr = arr[None, :]
+    if arr.ndim != 2 or arr.shape[1] not in (2, 4) or not np.all(np.isfinite(arr)):
+        raise ValueError("seeds must be a list of (x, y) or (x, y, u, v) points in reference "
+                         "pixels, e.g. seeds=[(250, 300)]")
+    return [tuple(r) for r in arr]
+
+
+def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None,
+              shape_function: str = "affine", interpolation: str = "quintic",
+              seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
+              max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.02,
+              initial: DisplacementField | None = None, workers: int | None = None,
+              _prepared=None) -> DisplacementField:
+    """Measure the displacement field between a reference and a deformed image.
+
+    Square subsets of the reference image, centred on a regular grid of points, are matched in
+    the deformed image by inverse-compositional Gauss-Newton (IC-GN) iteration on the zero-
+    normalised sum of squared differences (ZNSSD), which is insensitive to offset and gain
+    changes of the lighting. The deformed image is interpolated by a prefiltered B-spline.
+    Starting guesses come from a zero-normalised FFT cross-correlation at one or more seed
+    points, then spread by reliability-guided propagation: each point starts from its
+    best-correlated matched neighbour. Propagation runs in parallel waves (all points bordering
+    the matched region at once), a parallel variant of the ZNCC-ordered queue of [3]_.
+
+    Parameters
+    ----------
+    reference, deformed : ndarray or path
+        Grey or colour images of equal size (colour is converted to luminance).
+    subset : int, optional
+        Subset size in px (odd, at least 7).
+    step : int, optional
+        Grid spacing in px.
+    roi : None, bool array, rectangle, polygon or mask-image path, optional
+        Region of interest (see :func:`dic.roi.make_roi`). Points whose subset is not wholly
+        inside it are not measured.
+    shape_function : {'affine', 'quadratic'}, optional
+        First-order (6 parameters) or second-order (12 parameters) subset shape function.
+    interpolation : {'cubic', 'quintic'}, optional
+        B-spline degree for the deformed image.
+    seeds : list of (x, y) or (x, y, u, v), optional
+        Seed points in reference px, optionally with a displacement guess. By default one seed
+        is placed near the centre of every connected part of the ROI.
+    search : int, optional
+        Search radius (px) of the FFT starting guess at seed points.
+    min_zncc : float, optional
+        Matches with a lower zero-normalised cross-correlation are rejected.
+    max_iterations : int, optional
+        Gauss-Newton iteration cap.
+    tolerance : float, optional
+        Convergence threshold on the norm of the parameter update (px at the subset edge).
+    min_texture : float, optional
+        Subsets whose grey-level standard deviation is below this fraction of the image's
+        1-99 percentile range are flat and not matched.
+    initial : DisplacementField, optional
+        A field on the same grid to start every point from (for example the previous image of
+        a sequence). Points that fail from it are retried from their neighbours and seeds.
+    workers : int, optional
+        Threads for the matching kernel (default: all cores).
+
+    Returns
+    -------
+    DisplacementField
+        Displacements, gradients, ZNCC and a reason code for every point.
+
+    References
+    ----------
+    .. [1] B. Pan, K. Li, W. Tong, "Fast, robust and accurate digital image correlation
+       calculation without redundant computations", Exp. Mech. 53 (2013) 1277-1289.
+    .. [2] B. Pan, H. Xie, Z. Wang, "Equivalence of digital image correlation criteria for
+       pattern matching", Applied Optics 49 (2010) 5501-5509.
+    .. [3] B. Pan, "Reliability-guided digital image correlation for image deformation
+       measurement", Applied Optics 48 (2009) 1535-1542.
+    .. [4] M. Unser, "Splines: a perfect fit for signal and image processing", IEEE Signal
+       Process. Mag. 16 (1999) 22-38.
+    """
+    from ..io import read_image
+
+    (subset, step, second, order, search, min_zncc, max_iterations, tolerance,
+     min_texture) = _check_options(subset, step, shape_function, interpolation, search,
+                                   min_zncc, max_iterations, tolerance, min_texture)
+    seed_list = _parse_seeds(seeds)
+    ref = read_image(reference, name="reference")
+    dfm = read_image(deformed, name="deformed")
+    if ref.shape != dfm.shape:
+        raise ValueError(f"reference and deformed images differ in size ({ref.shape[1]} x "
+                         f"{ref.shape[0]} vs {dfm.shape[1]} x {dfm.shape[0]} px); use images "
+                         f"from the same camera and crop")
+    xs, ys, candidate, mask, in_image = prepare_grid(ref.shape, roi, subset, step,
+                                                     edge_margin(order))
+    gx, gy = np.meshgrid(xs, ys)
+    if initial is not None and initial.shape != candidate.shape:
+        raise ValueError(f"initial field has grid {initial.shape}, this analysis has "
+                         f"{candidate.shape}; use a field from the same ROI, subset and step")
+
+    # the grey-level range of the ROI, from a sparse sample (exactness is not needed here)
+    sample = ref[::3, ::3][mask[::3, ::3]]
+    lo, hi = np.percentile(sample if sample.size > 100 else ref[mask], [1, 99])
+    min_std = min_texture * float(hi - lo)
+    prev_threads = None
+    if workers is not None:
+        import numba
+
+        workers = _check_int("workers", workers, 1, "e.g. 2")
+        prev_threads = numba.get_num_threads()
+        numba.set_num_threads(min(workers, numba.config.NUMBA_NUM_THREADS))
+    try:
+        matcher = SubsetMatcher(ref, dfm, subset=subset, second_order=second, order=order,
+                                max_iterations=max_iterations, tolerance=tolerance,
+                                min_std=min_std, reference_gradients=_prepared)
+        prop = _Propagation(matcher, gx, gy, candidate, in_image, step, min_zncc)
+        _solve(prop, ref, dfm, search, seed_list, initial)
+    finally:
+        if prev_threads is not None:
+            import numba
+
+            numba.set_num_threads(prev_threads)
+
+    shape = candidate.shape
+    good = prop.state == prop.w.GOOD
+    p = np.where(good[:, None], prop.params, np.nan)
+    iu, iv = index_u_v(second)
+    grad = grad_from_params(p, second).reshape(shape + (2, 2))
+    grad2 = None
+    if second:
+        grad2 = np.stack([p[:, iu + 3:iu + 6], p[:, iv + 3:iv + 6]], axis=1).reshape(
+            shape + (2, 3))
+    settings = {
+        "subset": subset, "step": step,
+        "shape_function": "quadratic" if second else "affine",
+        "interpolation": "quintic" if order == 5 else "cubic",
+        "criterion": "ZNSSD", "solver": "IC-GN", "min_zncc": min_zncc,
+        "max_iterations": max_iterations, "tolerance": tolerance,
+        "min_texture": min_texture, "search": search,
+        "image_shape": tuple(int(s) for s in ref.shape),
+    }
+    field = DisplacementField(
+        x=gx.astype(np.float64), y=gy.astype(np.float64),
+        u=p[:, iu].reshape(shape), v=p[:, iv].reshape(shape), grad=grad,
+        zncc=np.where(good, prop.zncc, np.nan).reshape(shape),
+        reason=prop.reason.reshape(shape), iterations=prop.iters.reshape(shape),
+        grad2=grad2, settings=settings)
+    log.info("matched %s", field.summary())
+    return field
+
+
+def _solve(prop, ref, dfm, search, seed_list, initial):
+    """Run the initial guesses, seeds and propagation until every point is decided."""
+    from scipy import ndimage
+
+    w = prop.w
+    if initial is not None:
+        p0 = params_from_fields(initial.u.ravel(), initial.v.ravel(),
+                                initial.grad.reshape(-1, 2, 2), prop.m.second)
+        ok = np.flatnonzero((prop.state == w.TODO) & np.all(np.isfinite(p0), axis=1))
+        if ok.size:
+            good = prop.run(ok, p0[ok], retry_later=True)
+            prop.propagate(good)
+    for s in seed_list:
+        k = _nearest_candidate(prop, s[0], s[1])
+        if k is None:
+            break
+        guess = (s[2], s[3]) if len(s) == 4 else None
+        if _try_seed(prop, k, ref, dfm, search, guess):
+            prop.propagate(np.array([k], np.int64))
+        else:
+            log.warning("seed at (%.0f, %.0f) found no reliable match", s[0], s[1])
+    # every part of the ROI that is still unmatched gets seeds of its own
+    while True:
+        todo = (prop.state == w.TODO).reshape(prop.ny, prop.nx)
+        if not todo.any():
+            break
+        labels, n = ndimage.label(todo)
+        sizes = np.bincount(labels.ravel())[1:]
+        progress = False
+        for lab in np.argsort(-sizes) + 1:
+            comp = np.flatnonzero(labels.ravel() == lab)
+            comp = comp[prop.state[comp] == w.TODO]
+            if comp.size == 0:
+                continue
+            for k in _seed_candidates(comp, prop.px, prop.py):
+                if prop.state[k] != w.TODO:
+                    continue
+                if _try_seed(prop, k, ref, dfm, search):
+                    prop.propagate(np.array([k], np.int64))
+                    progress = True
+                    break
+                prop.state[k] = w.BAD  # a seed that failed is not retried as a seed
+            else:
+                # no seed took hold in this part: its points stay unmeasured
+                rest = comp[prop.state[comp] == w.TODO]
+                prop.state[rest] = w.BAD
+                prop.reason[rest] = Reason.NOT_REACHED
+        if not progress and not (prop.state == w.TODO).any():
+            break

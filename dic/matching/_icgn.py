@@ -1,0 +1,145 @@
+"""Checked Python front of the compiled IC-GN kernel.
+
+References
+----------
+.. [1] S. Baker, I. Matthews, "Lucas-Kanade 20 years on: a unifying framework", International
+   Journal of Computer Vision 56 (2004) 221-255.
+.. [2] B. Pan, K. Li, W. Tong, "Fast, robust and accurate digital image correlation calculation
+   without redundant computations", Experimental Mechanics 53 (2013) 1277-1289.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .. import interp
+
+SHAPE_FUNCTIONS = {"affine": 1, "first": 1, "first-order": 1,
+                   "quadratic": 2, "second": 2, "second-order": 2}
+INTERPOLATIONS = {"cubic": 3, "quintic": 5}
+
+
+def edge_margin(order: int) -> int:
+    """Pixels next to the image border that subsets must avoid.
+
+    The spline interpolant (and its derivative) is only reliable a few pixels inside the image:
+    at the border it is fixed by the mirror boundary condition, not by the image, and the
+    recursive prefilter carries that error inwards by a factor of its pole (0.27 for the cubic,
+    0.43 for the quintic spline) per pixel.
+    """
+    return 4 if order == 3 else 6
+
+
+def n_params(second: bool) -> int:
+    """Number of shape-function parameters."""
+    return 12 if second else 6
+
+
+def index_u_v(second: bool) -> tuple[int, int]:
+    """Positions of u and v in the parameter vector."""
+    return (0, 6) if second else (0, 3)
+
+
+def grad_from_params(p: np.ndarray, second: bool) -> np.ndarray:
+    """Displacement gradient ``[[ux, uy], [vx, vy]]`` from parameter vectors (..., npar)."""
+    iu, iv = index_u_v(second)
+    g = np.empty(p.shape[:-1] + (2, 2))
+    g[..., 0, 0] = p[..., iu + 1]
+    g[..., 0, 1] = p[..., iu + 2]
+    g[..., 1, 0] = p[..., iv + 1]
+    g[..., 1, 1] = p[..., iv + 2]
+    return g
+
+
+def params_from_fields(u, v, grad, second: bool) -> np.ndarray:
+    """Parameter vectors from displacements and gradients (second derivatives set to zero)."""
+    iu, iv = index_u_v(second)
+    p = np.zeros(np.shape(u) + (n_params(second),))
+    p[..., iu] = u
+    p[..., iv] = v
+    p[..., iu + 1] = grad[..., 0, 0]
+    p[..., iu + 2] = grad[..., 0, 1]
+    p[..., iv + 1] = grad[..., 1, 0]
+    p[..., iv + 2] = grad[..., 1, 1]
+    return p
+
+
+@dataclass
+class MatchResult:
+    """Raw per-point output of the kernel."""
+
+    params: np.ndarray
+    status: np.ndarray
+    zncc: np.ndarray
+    iterations: np.ndarray
+    sigma_factor: np.ndarray
+
+
+class SubsetMatcher:
+    """A reference image and a deformed image, prepared for repeated subset matching.
+
+    The reference gradients and the deformed image's B-spline coefficients are computed once.
+
+    Parameters
+    ----------
+    reference, deformed : ndarray
+        Float64 images of equal shape.
+    subset : int
+        Odd subset size in pixels.
+    second_order : bool
+        Use the second-order shape function.
+    order : {3, 5}
+        B-spline degree for the deformed image.
+    max_iterations : int
+        Iteration cap.
+    tolerance : float
+        Convergence threshold on the norm of the parameter update, with gradient terms scaled
+        by the subset half-width (a displacement at the subset edge, in px).
+    min_std : float
+        Subsets whose grey-level standard deviation is below this are flat (not matched).
+    reference_spline : BSplineImage, optional
+        Already computed coefficients of the reference image (reused along a sequence).
+    """
+
+    def __init__(self, reference, deformed, *, subset, second_order=False, order=3,
+                 max_iterations=50, tolerance=1e-3, min_std=0.0, reference_gradients=None,
+                 deformed_spline=None):
+        self.reference = np.ascontiguousarray(reference, dtype=np.float64)
+        self.half = int(subset) // 2
+        self.second = bool(second_order)
+        self.order = int(order)
+        self.max_iterations = int(max_iterations)
+        self.tolerance = float(tolerance)
+        self.min_std = float(min_std)
+        self.border = edge_margin(self.order)
+        self.fast = True
+        if reference_gradients is None:
+            reference_gradients = interp.reference_gradients(
+                interp.prefilter(self.reference, self.order))
+        self.gx, self.gy = reference_gradients
+        if deformed_spline is None:
+            deformed_spline = interp.prefilter(deformed, self.order)
+        self.spline = deformed_spline
+
+    def match(self, xs, ys, p0) -> MatchResult:
+        """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
+        from numba import get_num_threads
+
+        from ._icgn_kernel import match_batch
+
+        xs = np.ascontiguousarray(xs, dtype=np.int64)
+        ys = np.ascontiguousarray(ys, dtype=np.int64)
+        n = xs.shape[0]
+        npar = n_params(self.second)
+        p0 = np.ascontiguousarray(np.broadcast_to(p0, (n, npar)), dtype=np.float64)
+        out = MatchResult(np.empty((n, npar)), np.empty(n, np.int8), np.empty(n),
+                          np.empty(n, np.int16), np.empty(n))
+        if n:
+            match_batch(self.reference, self.gx, self.gy, self.spline.coef, self.spline.pad,
+                        self.order, xs, ys, p0, self.half, self.second, self.max_iterations,
+                        self.tolerance, self.min_std, float(self.border),
+                        64 * get_num_threads(), self.fast, out.params, out.status, out.zncc,
+                        out.iterations, out.sigma_factor)
+        return out

@@ -1,0 +1,684 @@
+"""Compiled IC-GN subset matching (numba), parallel over points.
+
+Private: call it through :func:`dic.matching._icgn.match_points`, which checks the input.
+
+Parameter vectors
+-----------------
+first order (6):  u, ux, uy, v, vx, vy
+second order (12): u, ux, uy, uxx, uxy, uyy, v, vx, vy, vxx, vxy, vyy
+
+so that, for a pixel at offset (dx, dy) from the subset centre, the matched position is
+x' = x0 + dx + u + ux dx + uy dy + uxx dx^2 / 2 + uxy dx dy + uyy dy^2 / 2 (and likewise y').
+
+Status codes follow :class:`dic.field.Reason`.
+"""
+
+import numpy as np
+from numba import njit, prange
+
+MEASURED = 0
+OUTSIDE_IMAGE = 2
+FLAT = 3
+NO_CONVERGENCE = 4
+DEGENERATE = 7
+
+
+@njit(cache=True, inline="always", fastmath=True)
+def _eval_cubic(c, pad, x, y):
+    ix = int(np.floor(x))
+    iy = int(np.floor(y))
+    t = x - ix
+    s = y - iy
+    t2 = t * t
+    s2 = s * s
+    omt = 1.0 - t
+    oms = 1.0 - s
+    wx0 = omt * omt * omt / 6.0
+    wx1 = (3.0 * t2 * t - 6.0 * t2 + 4.0) / 6.0
+    wx2 = (-3.0 * t2 * t + 3.0 * t2 + 3.0 * t + 1.0) / 6.0
+    wx3 = t2 * t / 6.0
+    wy0 = oms * oms * oms / 6.0
+    wy1 = (3.0 * s2 * s - 6.0 * s2 + 4.0) / 6.0
+    wy2 = (-3.0 * s2 * s + 3.0 * s2 + 3.0 * s + 1.0) / 6.0
+    wy3 = s2 * s / 6.0
+    r = np.uint64(iy + pad - 1)
+    q = np.uint64(ix + pad - 1)
+    acc = wy0 * (wx0 * c[r, q] + wx1 * c[r, q + 1] + wx2 * c[r, q + 2] + wx3 * c[r, q + 3])
+    acc += wy1 * (wx0 * c[r + 1, q] + wx1 * c[r + 1, q + 1] + wx2 * c[r + 1, q + 2]
+                  + wx3 * c[r + 1, q + 3])
+    acc += wy2 * (wx0 * c[r + 2, q] + wx1 * c[r + 2, q + 1] + wx2 * c[r + 2, q + 2]
+                  + wx3 * c[r + 2, q + 3])
+    acc += wy3 * (wx0 * c[r + 3, q] + wx1 * c[r + 3, q + 1] + wx2 * c[r + 3, q + 2]
+                  + wx3 * c[r + 3, q + 3])
+    return acc
+
+
+@njit(cache=True, inline="always", fastmath=True)
+def _w5(t):
+    """120 x the quintic B-spline weights of the samples at offsets -2..3, fraction t in [0, 1).
+
+    (The common factor 1/120 of both directions is applied once per sample.)"""
+    s = 1.0 - t
+    t2 = t * t
+    s2 = s * s
+    w0 = s2 * s2 * s
+    w5 = t2 * t2 * t
+    w1 = 1.0 + s * (5.0 + s * (10.0 + s * (10.0 + s * (5.0 - 5.0 * s))))
+    w4 = 1.0 + t * (5.0 + t * (10.0 + t * (10.0 + t * (5.0 - 5.0 * t))))
+    w2 = 66.0 + t2 * (-60.0 + t2 * (30.0 - 10.0 * t))
+    w3 = 120.0 - w0 - w1 - w2 - w4 - w5
+    return w0, w1, w2, w3, w4, w5
+
+
+@njit(cache=True, inline="always", fastmath=True)
+def _row6(c, r, q, x0, x1, x2, x3, x4, x5):
+    return (x0 * c[r, q] + x1 * c[r, q + 1] + x2 * c[r, q + 2] + x3 * c[r, q + 3]
+            + x4 * c[r, q + 4] + x5 * c[r, q + 5])
+
+
+@njit(cache=True, inline="always", fastmath=True)
+def _eval_quintic(c, pad, x, y):
+    ix = int(np.floor(x))
+    iy = int(np.floor(y))
+    x0, x1, x2, x3, x4, x5 = _w5(x - ix)
+    y0, y1, y2, y3, y4, y5 = _w5(y - iy)
+    # indices are non-negative by construction (padded coefficients)
+    r = np.uint64(iy + pad - 2)
+    q = np.uint64(ix + pad - 2)
+    return (y0 * _row6(c, r, q, x0, x1, x2, x3, x4, x5)
+            + y1 * _row6(c, r + np.uint64(1), q, x0, x1, x2, x3, x4, x5)
+            + y2 * _row6(c, r + np.uint64(2), q, x0, x1, x2, x3, x4, x5)
+            + y3 * _row6(c, r + np.uint64(3), q, x0, x1, x2, x3, x4, x5)
+            + y4 * _row6(c, r + np.uint64(4), q, x0, x1, x2, x3, x4, x5)
+            + y5 * _row6(c, r + np.uint64(5), q, x0, x1, x2, x3, x4, x5)) * (1.0 / 14400.0)
+
+
+@njit(cache=True, fastmath=True)
+def _eval(c, pad, order, x, y):
+    if order == 3:
+        return _eval_cubic(c, pad, x, y)
+    return _eval_quintic(c, pad, x, y)
+
+
+@njit(cache=True, fastmath=True)
+def evaluate(coef, pad, order, xs, ys):
+    """Spline values at arbitrary positions (no bounds check; for tests and tools)."""
+    out = np.empty(xs.shape[0])
+    for i in range(xs.shape[0]):
+        out[i] = _eval(coef, pad, order, xs[i], ys[i])
+    return out
+
+
+@njit(cache=True, fastmath=True)
+def _to_matrix(p, second):
+    """6x6 warp matrix acting on (dx^2, dx dy, dy^2, dx, dy, 1) (second order), or the affine
+    3x3 embedded in its lower-right block (first order)."""
+    m = np.zeros((6, 6))
+    if second:
+        a, b, c = p[0], 1.0 + p[1], p[2]
+        d, e, f = 0.5 * p[3], p[4], 0.5 * p[5]
+        g, h, i = p[6], p[7], 1.0 + p[8]
+        j, k, l = 0.5 * p[9], p[10], 0.5 * p[11]
+    else:
+        a, b, c = p[0], 1.0 + p[1], p[2]
+        d, e, f = 0.0, 0.0, 0.0
+        g, h, i = p[3], p[4], 1.0 + p[5]
+        j, k, l = 0.0, 0.0, 0.0
+    m[0, 0] = b * b + 2 * a * d
+    m[0, 1] = 2 * b * c + 2 * a * e
+    m[0, 2] = c * c + 2 * a * f
+    m[0, 3] = 2 * a * b
+    m[0, 4] = 2 * a * c
+    m[0, 5] = a * a
+    m[1, 0] = b * h + a * j + d * g
+    m[1, 1] = b * i + c * h + a * k + e * g
+    m[1, 2] = c * i + a * l + f * g
+    m[1, 3] = a * h + b * g
+    m[1, 4] = a * i + c * g
+    m[1, 5] = a * g
+    m[2, 0] = h * h + 2 * g * j
+    m[2, 1] = 2 * h * i + 2 * g * k
+    m[2, 2] = i * i + 2 * g * l
+    m[2, 3] = 2 * g * h
+    m[2, 4] = 2 * g * i
+    m[2, 5] = g * g
+    m[3, 0] = d
+    m[3, 1] = e
+    m[3, 2] = f
+    m[3, 3] = b
+    m[3, 4] = c
+    m[3, 5] = a
+    m[4, 0] = j
+    m[4, 1] = k
+    m[4, 2] = l
+    m[4, 3] = h
+    m[4, 4] = i
+    m[4, 5] = g
+    m[5, 5] = 1.0
+    return m
+
+
+@njit(cache=True, fastmath=True)
+def _compose_affine(p, dp):
+    """p <- W(p) o W(dp)^-1 for the first-order warp. Returns False if W(dp) is singular."""
+    a11 = 1.0 + dp[1]
+    a12 = dp[2]
+    a21 = dp[4]
+    a22 = 1.0 + dp[5]
+    det = a11 * a22 - a12 * a21
+    if abs(det) < 1e-12:
+        return False
+    i11 = a22 / det
+    i12 = -a12 / det
+    i21 = -a21 / det
+    i22 = a11 / det
+    it1 = -(i11 * dp[0] + i12 * dp[3])
+    it2 = -(i21 * dp[0] + i22 * dp[3])
+    b11 = 1.0 + p[1]
+    b12 = p[2]
+    b21 = p[4]
+    b22 = 1.0 + p[5]
+    n11 = b11 * i11 + b12 * i21
+    n12 = b11 * i12 + b12 * i22
+    n21 = b21 * i11 + b22 * i21
+    n22 = b21 * i12 + b22 * i22
+    nt1 = b11 * it1 + b12 * it2 + p[0]
+    nt2 = b21 * it1 + b22 * it2 + p[3]
+    p[0] = nt1
+    p[1] = n11 - 1.0
+    p[2] = n12
+    p[3] = nt2
+    p[4] = n21
+    p[5] = n22 - 1.0
+    return True
+
+
+@njit(cache=True, fastmath=True)
+def _compose_second(p, dp):
+    """p <- W(p) o W(dp)^-1 for the second-order warp, in the 6x6 matrix form."""
+    md = _to_matrix(dp, True)
+    if abs(np.linalg.det(md)) < 1e-18:
+        return False
+    m = _to_matrix(p, True) @ np.linalg.inv(md)
+    p[0] = m[3, 5]
+    p[1] = m[3, 3] - 1.0
+    p[2] = m[3, 4]
+    p[3] = 2.0 * m[3, 0]
+    p[4] = m[3, 1]
+    p[5] = 2.0 * m[3, 2]
+    p[6] = m[4, 5]
+    p[7] = m[4, 3]
+    p[8] = m[4, 4] - 1.0
+    p[9] = 2.0 * m[4, 0]
+    p[10] = m[4, 1]
+    p[11] = 2.0 * m[4, 2]
+    return True
+
+
+@njit(cache=True, fastmath=True)
+def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy, uyy, v, vx,
+                    vy, vxx, vxy, vyy, xmin, xmax, ymax, fn, jac, jg):
+    """Sample the warped subset; any spline order and shape function.
+
+    Returns (inside, sum g, sum g^2, sum fn*g) and fills jg = sum J^T g."""
+    npar = jac.shape[1]
+    ns = 2 * half + 1
+    sg = 0.0
+    sg2 = 0.0
+    sfg = 0.0
+    for a in range(npar):
+        jg[a] = 0.0
+    n = 0
+    for j in range(ns):
+        dy = float(j - half)
+        for i in range(ns):
+            dx = float(i - half)
+            xw = x0 + dx + u + ux * dx + uy * dy
+            yw = y0 + dy + v + vx * dx + vy * dy
+            if second:
+                xw += 0.5 * uxx * dx * dx + uxy * dx * dy + 0.5 * uyy * dy * dy
+                yw += 0.5 * vxx * dx * dx + vxy * dx * dy + 0.5 * vyy * dy * dy
+            if not (xw >= xmin and xw <= xmax and yw >= xmin and yw <= ymax):
+                return False, sg, sg2, sfg
+            g = _eval(coef, pad, order, xw, yw)
+            sg += g
+            sg2 += g * g
+            sfg += fn[n] * g
+            for a in range(npar):
+                jg[a] += jac[n, a] * g
+            n += 1
+    return True, sg, sg2, sfg
+
+
+@njit(cache=True, fastmath=True)
+def _spd_inverse(a, out):
+    """Inverse of a symmetric positive-definite matrix by Cholesky factorisation.
+
+    Returns False when a pivot falls below 1e-10 of the largest diagonal entry (the matrix is
+    numerically singular, i.e. the subset lacks texture in some direction)."""
+    n = a.shape[0]
+    lo = np.zeros((n, n))
+    dmax = 0.0
+    for i in range(n):
+        dmax = max(dmax, a[i, i])
+    if dmax <= 0.0:
+        return False
+    for j in range(n):
+        s = a[j, j]
+        for k in range(j):
+            s -= lo[j, k] * lo[j, k]
+        if s <= 1e-10 * dmax:
+            return False
+        d = np.sqrt(s)
+        lo[j, j] = d
+        for i in range(j + 1, n):
+            t = a[i, j]
+            for k in range(j):
+                t -= lo[i, k] * lo[j, k]
+            lo[i, j] = t / d
+    # inverse of the lower factor, then out = L^-T L^-1
+    li = np.zeros((n, n))
+    for i in range(n):
+        li[i, i] = 1.0 / lo[i, i]
+        for j in range(i):
+            t = 0.0
+            for k in range(j, i):
+                t -= lo[i, k] * li[k, j]
+            li[i, j] = t / lo[i, i]
+    for i in range(n):
+        for j in range(i, n):
+            t = 0.0
+            for k in range(j, n):
+                t += li[k, i] * li[k, j]
+            out[i, j] = t
+            out[j, i] = t
+    return True
+
+
+@njit(cache=True, fastmath=True)
+def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter, tol,
+               min_std, border, fn, jac):
+    """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor)."""
+    rows, cols = ref.shape
+    npar = 12 if second else 6
+    ns = 2 * half + 1
+    npix = ns * ns
+    # --- reference subset, its gradient images and the Hessian (done once) ---
+    mean = 0.0
+    for j in range(ns):
+        for i in range(ns):
+            mean += ref[y0 - half + j, x0 - half + i]
+    mean /= npix
+    ss = 0.0
+    n = 0
+    for j in range(ns):
+        dy = float(j - half)
+        for i in range(ns):
+            dx = float(i - half)
+            f = ref[y0 - half + j, x0 - half + i] - mean
+            fn[n] = f
+            ss += f * f
+            fx = gx[y0 - half + j, x0 - half + i]
+            fy = gy[y0 - half + j, x0 - half + i]
+            if second:
+                hx2 = 0.5 * dx * dx
+                hxy = dx * dy
+                hy2 = 0.5 * dy * dy
+                jac[n, 0] = fx
+                jac[n, 1] = fx * dx
+                jac[n, 2] = fx * dy
+                jac[n, 3] = fx * hx2
+                jac[n, 4] = fx * hxy
+                jac[n, 5] = fx * hy2
+                jac[n, 6] = fy
+                jac[n, 7] = fy * dx
+                jac[n, 8] = fy * dy
+                jac[n, 9] = fy * hx2
+                jac[n, 10] = fy * hxy
+                jac[n, 11] = fy * hy2
+            else:
+                jac[n, 0] = fx
+                jac[n, 1] = fx * dx
+                jac[n, 2] = fx * dy
+                jac[n, 3] = fy
+                jac[n, 4] = fy * dx
+                jac[n, 5] = fy * dy
+            n += 1
+    df = np.sqrt(ss)
+    if df < min_std * np.sqrt(npix):
+        return FLAT, np.nan, 0, np.nan
+    hess = np.zeros((npar, npar))
+    jsum = np.zeros(npar)
+    jf = np.zeros(npar)
+    for n in range(npix):
+        for a in range(npar):
+            ja = jac[n, a]
+            jsum[a] += ja
+            jf[a] += ja * fn[n]
+            for b in range(a, npar):
+                hess[a, b] += ja * jac[n, b]
+    for a in range(npar):
+        for b in range(a):
+            hess[a, b] = hess[b, a]
+    # reject near-singular Hessians (too little texture in some direction)
+    hinv = np.empty((npar, npar))
+    if not _spd_inverse(hess, hinv):
+        return FLAT, np.nan, 0, np.nan
+    # sigma of u per unit image noise: sqrt(2 * (H^-1)_uu) is the usual first-order estimate
+    sigma_factor = np.sqrt(hinv[0, 0])
+
+    jg = np.zeros(npar)
+    dp = np.zeros(npar)
+    zncc = np.nan
+    it = 0
+    status = NO_CONVERGENCE
+    xmin = border
+    xmax = cols - 1.0 - border
+    ymax = rows - 1.0 - border
+    while it < max_iter:
+        it += 1
+        # warp coefficients
+        if second:
+            u, ux, uy, uxx, uxy, uyy = p[0], p[1], p[2], p[3], p[4], p[5]
+            v, vx, vy, vxx, vxy, vyy = p[6], p[7], p[8], p[9], p[10], p[11]
+        else:
+            u, ux, uy, v, vx, vy = p[0], p[1], p[2], p[3], p[4], p[5]
+            uxx = uxy = uyy = vxx = vxy = vyy = 0.0
+        inside, sg, sg2, sfg = _sample_general(coef, pad, order, x0, y0, half, second, u, ux,
+                                               uy, uxx, uxy, uyy, v, vx, vy, vxx, vxy, vyy,
+                                               xmin, xmax, ymax, fn, jac, jg)
+        if not inside:
+            return OUTSIDE_IMAGE, np.nan, it, sigma_factor
+        gm = sg / npix
+        dg2 = sg2 - npix * gm * gm
+        if dg2 <= 0.0:
+            return FLAT, np.nan, it, sigma_factor
+        dgn = np.sqrt(dg2)
+        zncc = sfg / (df * dgn)
+        # b = sum J^T [(f - fm) - (df/dg)(g - gm)]
+        ratio = df / dgn
+        for a in range(npar):
+            acc = 0.0
+            for b in range(npar):
+                acc += hinv[a, b] * (jf[b] - ratio * (jg[b] - gm * jsum[b]))
+            dp[a] = -acc
+        if second:
+            h2 = 0.5 * half * half
+            norm = (dp[0] ** 2 + dp[6] ** 2
+                    + (half * dp[1]) ** 2 + (half * dp[2]) ** 2
+                    + (half * dp[7]) ** 2 + (half * dp[8]) ** 2
+                    + (h2 * dp[3]) ** 2 + (h2 * 2.0 * dp[4]) ** 2 + (h2 * dp[5]) ** 2
+                    + (h2 * dp[9]) ** 2 + (h2 * 2.0 * dp[10]) ** 2 + (h2 * dp[11]) ** 2)
+            ok = _compose_second(p, dp)
+        else:
+            norm = (dp[0] ** 2 + dp[3] ** 2 + (half * dp[1]) ** 2 + (half * dp[2]) ** 2
+                    + (half * dp[4]) ** 2 + (half * dp[5]) ** 2)
+            ok = _compose_affine(p, dp)
+        if not ok:
+            return DEGENERATE, np.nan, it, sigma_factor
+        for a in range(npar):
+            if not np.isfinite(p[a]):
+                return DEGENERATE, np.nan, it, sigma_factor
+        if second:
+            det = (1.0 + p[1]) * (1.0 + p[8]) - p[2] * p[7]
+        else:
+            det = (1.0 + p[1]) * (1.0 + p[5]) - p[2] * p[4]
+        if det < 0.05:
+            return DEGENERATE, np.nan, it, sigma_factor
+        if np.sqrt(norm) < tol:
+            status = MEASURED
+            break
+    return status, zncc, it, sigma_factor
+
+
+@njit(cache=True, fastmath=True)
+def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, min_std,
+                  border):
+    """First-order IC-GN for one subset, without per-point scratch arrays.
+
+    Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
+    moment sums row by row (dy is constant along a row), which is several times cheaper than
+    forming the steepest-descent images explicitly.
+    """
+    rows, cols = ref.shape
+    ns = 2 * half + 1
+    npix = ns * ns
+    h = float(half)
+    # --- reference subset: moments of f, its gradients and their products ---
+    sf = 0.0
+    sf2 = 0.0
+    A1 = Ax = Ay = Axx = Axy = Ayy = 0.0
+    B1 = Bx = By = Bxx = Bxy = Byy = 0.0
+    C1 = Cx = Cy = Cxx = Cxy = Cyy = 0.0
+    jf0 = jf1 = jf2 = jf3 = jf4 = jf5 = 0.0
+    js0 = js1 = js2 = js3 = js4 = js5 = 0.0
+    for j in range(ns):
+        dy = float(j - half)
+        r = np.uint64(y0 - half + j)
+        a0 = a1 = a2 = b0 = b1 = b2 = c0 = c1 = c2 = 0.0
+        fxf0 = fxf1 = fyf0 = fyf1 = fx0 = fx1 = fy0 = fy1 = 0.0
+        for i in range(ns):
+            dx = float(i - half)
+            q = np.uint64(x0 - half + i)
+            f = ref[r, q]
+            fx = gx[r, q]
+            fy = gy[r, q]
+            sf += f
+            sf2 += f * f
+            xx = fx * fx
+            xy = fx * fy
+            yy = fy * fy
+            a0 += xx
+            a1 += xx * dx
+            a2 += xx * dx * dx
+            b0 += xy
+            b1 += xy * dx
+            b2 += xy * dx * dx
+            c0 += yy
+            c1 += yy * dx
+            c2 += yy * dx * dx
+            fxf0 += fx * f
+            fxf1 += fx * f * dx
+            fyf0 += fy * f
+            fyf1 += fy * f * dx
+            fx0 += fx
+            fx1 += fx * dx
+            fy0 += fy
+            fy1 += fy * dx
+        A1 += a0
+        Ax += a1
+        Ay += a0 * dy
+        Axx += a2
+        Axy += a1 * dy
+        Ayy += a0 * dy * dy
+        B1 += b0
+        Bx += b1
+        By += b0 * dy
+        Bxx += b2
+        Bxy += b1 * dy
+        Byy += b0 * dy * dy
+        C1 += c0
+        Cx += c1
+        Cy += c0 * dy
+        Cxx += c2
+        Cxy += c1 * dy
+        Cyy += c0 * dy * dy
+        jf0 += fxf0
+        jf1 += fxf1
+        jf2 += fxf0 * dy
+        jf3 += fyf0
+        jf4 += fyf1
+        jf5 += fyf0 * dy
+        js0 += fx0
+        js1 += fx1
+        js2 += fx0 * dy
+        js3 += fy0
+        js4 += fy1
+        js5 += fy0 * dy
+    fm = sf / npix
+    ss = sf2 - npix * fm * fm
+    if ss <= 0.0:
+        return FLAT, np.nan, 0, np.nan
+    df = np.sqrt(ss)
+    if df < min_std * np.sqrt(npix):
+        return FLAT, np.nan, 0, np.nan
+    hess = np.empty((6, 6))
+    hess[0, 0] = A1
+    hess[0, 1] = Ax
+    hess[0, 2] = Ay
+    hess[1, 1] = Axx
+    hess[1, 2] = Axy
+    hess[2, 2] = Ayy
+    hess[0, 3] = B1
+    hess[0, 4] = Bx
+    hess[0, 5] = By
+    hess[1, 3] = Bx
+    hess[1, 4] = Bxx
+    hess[1, 5] = Bxy
+    hess[2, 3] = By
+    hess[2, 4] = Bxy
+    hess[2, 5] = Byy
+    hess[3, 3] = C1
+    hess[3, 4] = Cx
+    hess[3, 5] = Cy
+    hess[4, 4] = Cxx
+    hess[4, 5] = Cxy
+    hess[5, 5] = Cyy
+    for a in range(6):
+        for b in range(a):
+            hess[a, b] = hess[b, a]
+    hinv = np.empty((6, 6))
+    if not _spd_inverse(hess, hinv):
+        return FLAT, np.nan, 0, np.nan
+    sigma_factor = np.sqrt(hinv[0, 0])
+    # J^T (f - fm) and J^T 1
+    jfn = np.empty(6)
+    jsum = np.empty(6)
+    jsum[0] = js0
+    jsum[1] = js1
+    jsum[2] = js2
+    jsum[3] = js3
+    jsum[4] = js4
+    jsum[5] = js5
+    jfn[0] = jf0 - fm * js0
+    jfn[1] = jf1 - fm * js1
+    jfn[2] = jf2 - fm * js2
+    jfn[3] = jf3 - fm * js3
+    jfn[4] = jf4 - fm * js4
+    jfn[5] = jf5 - fm * js5
+    jg = np.empty(6)
+    dp = np.empty(6)
+    xmin = border
+    xmax = cols - 1.0 - border
+    ymax = rows - 1.0 - border
+    zncc = np.nan
+    it = 0
+    while it < max_iter:
+        it += 1
+        u, ux, uy, v, vx, vy = p[0], p[1], p[2], p[3], p[4], p[5]
+        # an affine image of a square stays inside a convex domain if its corners do
+        for cy in (-h, h):
+            for cx in (-h, h):
+                xw = x0 + cx + u + ux * cx + uy * cy
+                yw = y0 + cy + v + vx * cx + vy * cy
+                if not (xw >= xmin and xw <= xmax and yw >= xmin and yw <= ymax):
+                    return OUTSIDE_IMAGE, np.nan, it, sigma_factor
+        sg = 0.0
+        sg2 = 0.0
+        sfg = 0.0
+        g0 = g1 = g2 = g3 = g4 = g5 = 0.0
+        for j in range(ns):
+            dy = float(j - half)
+            r = np.uint64(y0 - half + j)
+            xr = x0 + u + uy * dy - (1.0 + ux) * h
+            yr = y0 + dy + v + vy * dy - vx * h
+            rx0 = rx1 = ry0 = ry1 = 0.0
+            for i in range(ns):
+                q = np.uint64(x0 - half + i)
+                dx = float(i - half)
+                xw = xr + (1.0 + ux) * i
+                yw = yr + vx * i
+                if order == 3:
+                    g = _eval_cubic(coef, pad, xw, yw)
+                else:
+                    g = _eval_quintic(coef, pad, xw, yw)
+                sg += g
+                sg2 += g * g
+                sfg += ref[r, q] * g
+                fxg = gx[r, q] * g
+                fyg = gy[r, q] * g
+                rx0 += fxg
+                rx1 += fxg * dx
+                ry0 += fyg
+                ry1 += fyg * dx
+            g0 += rx0
+            g1 += rx1
+            g2 += rx0 * dy
+            g3 += ry0
+            g4 += ry1
+            g5 += ry0 * dy
+        gm = sg / npix
+        dg2 = sg2 - npix * gm * gm
+        if dg2 <= 0.0:
+            return FLAT, np.nan, it, sigma_factor
+        dgn = np.sqrt(dg2)
+        zncc = (sfg - fm * sg) / (df * dgn)
+        ratio = df / dgn
+        jg[0] = g0
+        jg[1] = g1
+        jg[2] = g2
+        jg[3] = g3
+        jg[4] = g4
+        jg[5] = g5
+        for a in range(6):
+            jg[a] = jfn[a] - ratio * (jg[a] - gm * jsum[a])
+        for a in range(6):
+            acc = 0.0
+            for b in range(6):
+                acc += hinv[a, b] * jg[b]
+            dp[a] = -acc
+        norm = (dp[0] ** 2 + dp[3] ** 2 + (h * dp[1]) ** 2 + (h * dp[2]) ** 2
+                + (h * dp[4]) ** 2 + (h * dp[5]) ** 2)
+        if not _compose_affine(p, dp):
+            return DEGENERATE, np.nan, it, sigma_factor
+        for a in range(6):
+            if not np.isfinite(p[a]):
+                return DEGENERATE, np.nan, it, sigma_factor
+        if (1.0 + p[1]) * (1.0 + p[5]) - p[2] * p[4] < 0.05:
+            return DEGENERATE, np.nan, it, sigma_factor
+        if np.sqrt(norm) < tol:
+            return MEASURED, zncc, it, sigma_factor
+    return NO_CONVERGENCE, zncc, it, sigma_factor
+
+
+@njit(cache=True, parallel=True, fastmath=True)
+def match_batch(ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second, max_iter, tol,
+                min_std, border, nchunk, fast, out_p, out_status, out_zncc, out_iter, out_sigma):
+    """Match the subsets centred on integer pixels (xs[k], ys[k]), in parallel.
+
+    ``fast`` selects the moment-sum first-order solver; False runs the general one (used by the
+    tests to check the two against each other)."""
+    npts = xs.shape[0]
+    npar = 12 if second else 6
+    ns = 2 * half + 1
+    # scratch arrays are allocated once per chunk of points, not once per point
+    nchunk = max(1, min(npts, nchunk))
+    for ch in prange(nchunk):
+        fn = np.empty(ns * ns)
+        jac = np.empty((ns * ns, npar))
+        p = np.empty(npar)
+        for k in range(ch * npts // nchunk, (ch + 1) * npts // nchunk):
+            for a in range(npar):
+                p[a] = p_init[k, a]
+            if second or not fast:
+                st, zn, it, sf = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p, half,
+                                            second, max_iter, tol, min_std, border, fn, jac)
+            else:
+                st, zn, it, sf = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
+                                               half, max_iter, tol, min_std, border)
+            for a in range(npar):
+                out_p[k, a] = p[a]
+            out_status[k] = st
+            out_zncc[k] = zn
+            out_iter[k] = it
+            out_sigma[k] = sf

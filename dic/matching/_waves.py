@@ -1,0 +1,134 @@
+"""Compiled bookkeeping for reliability-guided propagation in parallel waves (numba)."""
+
+import numpy as np
+from numba import njit
+
+# per-point state during propagation
+NOT_CANDIDATE = 0
+TODO = 1
+QUEUED = 2
+GOOD = 3
+BAD = 4
+
+
+@njit(cache=True)
+def shift_params(p, ddx, ddy, second, out):
+    """Carry a neighbour's shape-function parameters to a point (ddx, ddy) px away."""
+    if second:
+        u, ux, uy, uxx, uxy, uyy = p[0], p[1], p[2], p[3], p[4], p[5]
+        v, vx, vy, vxx, vxy, vyy = p[6], p[7], p[8], p[9], p[10], p[11]
+        out[0] = u + ux * ddx + uy * ddy + 0.5 * uxx * ddx * ddx + uxy * ddx * ddy \
+            + 0.5 * uyy * ddy * ddy
+        out[1] = ux + uxx * ddx + uxy * ddy
+        out[2] = uy + uxy * ddx + uyy * ddy
+        out[3] = uxx
+        out[4] = uxy
+        out[5] = uyy
+        out[6] = v + vx * ddx + vy * ddy + 0.5 * vxx * ddx * ddx + vxy * ddx * ddy \
+            + 0.5 * vyy * ddy * ddy
+        out[7] = vx + vxx * ddx + vxy * ddy
+        out[8] = vy + vxy * ddx + vyy * ddy
+        out[9] = vxx
+        out[10] = vxy
+        out[11] = vyy
+    else:
+        out[0] = p[0] + p[1] * ddx + p[2] * ddy
+        out[1] = p[1]
+        out[2] = p[2]
+        out[3] = p[3] + p[4] * ddx + p[5] * ddy
+        out[4] = p[4]
+        out[5] = p[5]
+
+
+@njit(cache=True)
+def next_wave(state, zncc, params, nx, ny, step, second, new_good, stride):
+    """Queue the unmatched neighbours of newly matched points.
+
+    Neighbours are the four points ``stride`` grid places away. Each queued point gets, as its
+    starting guess, the parameters of its best-correlated (highest ZNCC) matched neighbour,
+    carried over to its own position.
+    """
+    npar = params.shape[1]
+    buf = np.empty(4 * new_good.shape[0] + 1, np.int64)
+    m = 0
+    for t in range(new_good.shape[0]):
+        k = new_good[t]
+        r = k // nx
+        c = k - r * nx
+        for d in range(4):
+            rr = r + stride * ((d == 0) - (d == 1))
+            cc = c + stride * ((d == 2) - (d == 3))
+            if rr < 0 or rr >= ny or cc < 0 or cc >= nx:
+                continue
+            q = rr * nx + cc
+            if state[q] == TODO:
+                state[q] = QUEUED
+                buf[m] = q
+                m += 1
+    idx = np.sort(buf[:m])
+    p0 = np.empty((m, npar))
+    for t in range(m):
+        q = idx[t]
+        r = q // nx
+        c = q - r * nx
+        best = -1
+        bz = -2.0
+        for d in range(4):
+            rr = r + stride * ((d == 0) - (d == 1))
+            cc = c + stride * ((d == 2) - (d == 3))
+            if rr < 0 or rr >= ny or cc < 0 or cc >= nx:
+                continue
+            nb = rr * nx + cc
+            if state[nb] == GOOD and zncc[nb] > bz:
+                bz = zncc[nb]
+                best = nb
+        br = best // nx
+        bc = best - br * nx
+        shift_params(params[best], float((c - bc) * step), float((r - br) * step), second, p0[t])
+    return idx, p0
+
+
+@njit(cache=True)
+def fill_between(state, zncc, params, nx, ny, step, second):
+    """Unmatched points with a matched point among their 8 neighbours, with starting guesses.
+
+    Used after propagation over a coarse lattice: the points in between are then matched in one
+    batch, in row order, each from its best-correlated matched neighbour.
+    """
+    npar = params.shape[1]
+    n = nx * ny
+    buf = np.empty(n, np.int64)
+    src = np.empty(n, np.int64)
+    m = 0
+    for q in range(n):
+        if state[q] != TODO:
+            continue
+        r = q // nx
+        c = q - r * nx
+        best = -1
+        bz = -2.0
+        for dr in range(-1, 2):
+            for dc in range(-1, 2):
+                rr = r + dr
+                cc = c + dc
+                if rr < 0 or rr >= ny or cc < 0 or cc >= nx:
+                    continue
+                nb = rr * nx + cc
+                if state[nb] == GOOD and zncc[nb] > bz:
+                    bz = zncc[nb]
+                    best = nb
+        if best >= 0:
+            buf[m] = q
+            src[m] = best
+            m += 1
+    idx = buf[:m].copy()
+    p0 = np.empty((m, npar))
+    for t in range(m):
+        q = idx[t]
+        best = src[t]
+        r = q // nx
+        c = q - r * nx
+        br = best // nx
+        bc = best - br * nx
+        shift_params(params[best], float((c - bc) * step), float((r - br) * step), second, p0[t])
+    return idx, p0
