@@ -29,11 +29,16 @@ _LAZY = {
     "synth": "dic.synth",
 }
 
+# sub-modules reachable as attributes (``dic.io``) without an explicit import
+_SUBMODULES = {"io", "roi", "synth", "interp", "strain", "matching", "plot", "export", "cli"}
+
 __all__ = ["__version__", "DisplacementField", "Reason", *_LAZY]
 
 
 def __getattr__(name):
     mod = _LAZY.get(name)
+    if mod is None and name in _SUBMODULES:
+        mod = f"dic.{name}"
     if mod is None:
         raise AttributeError(f"module 'dic' has no attribute {name!r}")
     module = importlib.import_module(mod)
@@ -43,4 +48,4 @@ def __getattr__(name):
 
 
 def __dir__():
-    return sorted(set(globals()) | set(_LAZY))
+    return sorted(set(globals()) | set(_LAZY) | _SUBMODULES)

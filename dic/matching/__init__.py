@@ -135,6 +135,17 @@ class _Propagation:
         self.sigma = np.full(n, np.nan)
         self.n_matched = 0
 
+    def mark_flat(self, min_std):
+        """Mark points whose reference subset has too little texture before any matching."""
+        from ._icgn_kernel import subset_std
+
+        todo = np.flatnonzero(self.state == self.w.TODO)
+        std = np.empty(todo.size)
+        subset_std(self.m.reference, self.px[todo], self.py[todo], self.m.half, std)
+        flat = todo[std < min_std]
+        self.state[flat] = self.w.BAD
+        self.reason[flat] = Reason.FLAT
+
     def run(self, idx, p0, *, retry_later=False):
         """Match points ``idx`` from ``p0``; return the indices that matched well."""
         res = self.m.match(self.px[idx], self.py[idx], p0)
@@ -345,6 +356,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
                                 max_iterations=max_iterations, tolerance=tolerance,
                                 min_std=min_std, reference_gradients=_prepared)
         prop = _Propagation(matcher, gx, gy, candidate, in_image, step, min_zncc)
+        prop.mark_flat(min_std)
         _solve(prop, ref, dfm, search, seed_list, initial)
     finally:
         if prev_threads is not None:

@@ -682,3 +682,21 @@ def match_batch(ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second, max
             out_zncc[k] = zn
             out_iter[k] = it
             out_sigma[k] = sf
+
+
+@njit(cache=True, parallel=True)
+def subset_std(ref, xs, ys, half, out):
+    """Grey-level standard deviation of the subsets centred on (xs[k], ys[k])."""
+    ns = 2 * half + 1
+    npix = ns * ns
+    for k in prange(xs.shape[0]):
+        s = 0.0
+        s2 = 0.0
+        for j in range(ns):
+            r = np.uint64(ys[k] - half + j)
+            for i in range(ns):
+                f = ref[r, np.uint64(xs[k] - half + i)]
+                s += f
+                s2 += f * f
+        m = s / npix
+        out[k] = np.sqrt(max(s2 / npix - m * m, 0.0))
