@@ -21,6 +21,8 @@ __all__ = ["correlate", "prepare_grid"]
 log = logging.getLogger(__name__)
 
 _SEED_TRIES = 7
+# separate parts of the ROI smaller than this many points are not seeded on their own
+_MIN_ISLAND = 10
 # grids at least this many points across propagate over a coarse lattice first
 _COARSE_MIN = 12
 
@@ -421,16 +423,30 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
         labels, n = ndimage.label(todo)
         sizes = np.bincount(labels.ravel())[1:]
         progress = False
-        for lab in np.argsort(-sizes) + 1:
+        for rank, lab in enumerate(np.argsort(-sizes) + 1):
             comp = np.flatnonzero(labels.ravel() == lab)
             comp = comp[prop.state[comp] == w.TODO]
             if comp.size == 0:
+                continue
+            if comp.size < _MIN_ISLAND and (rank > 0 or (prop.state == w.GOOD).any()):
+                # a small patch cut off from the rest cannot be checked against neighbours:
+                # a seed there is as likely to lock onto a false match as a true one
+                prop.state[comp] = w.BAD
+                prop.reason[comp] = Reason.NOT_REACHED
                 continue
             for k in _seed_candidates(comp, prop.px, prop.py):
                 if prop.state[k] != w.TODO:
                     continue
                 if _try_seed(prop, k, ref, dfm, search):
+                    before = np.flatnonzero(prop.state == w.GOOD)
                     prop.propagate(np.array([k], np.int64))
+                    grown = np.setdiff1d(np.flatnonzero(prop.state == w.GOOD), before)
+                    if grown.size + 1 < min(_MIN_ISLAND, comp.size):
+                        # the seed's neighbours do not follow it: a false match; withdraw
+                        back = np.append(grown, k)
+                        prop.state[back] = w.BAD
+                        prop.reason[back] = Reason.NOT_REACHED
+                        continue
                     progress = True
                     break
                 prop.state[k] = w.BAD  # a seed that failed is not retried as a seed
