@@ -46,6 +46,7 @@ __all__ = [
     "homogeneous",
     "sinusoid",
     "from_function",
+    "tensile_neck",
 ]
 
 #: blobs are cut at this many of their own radii (exp(-16) of the peak, see module docstring)
@@ -351,6 +352,74 @@ def homogeneous(F, *, centre=(0.0, 0.0), offset=(0.0, 0.0)):
 
     return Displacement(fu, fv, jac, label=f"homogeneous(F={F.tolist()}, centre={c.tolist()}, "
                                            f"offset={o.tolist()})")
+
+
+def tensile_neck(strain, *, centre, neck_strain=0.0, neck_width=40.0, lateral="volume",
+                 offset=(0.0, 0.0)):
+    """Uniaxial stretch along x with a diffuse neck: the field of a tensile test.
+
+    The engineering strain along the axis is ``e(X) = strain + neck_strain sech^2((X - xc) / w)``
+    so that ``u = strain (X - xc) + neck_strain w tanh((X - xc) / w) + offset_x``. Across the
+    axis the specimen contracts as if its volume (area, in the plane) were kept per unit length:
+    ``dy/dY = (1 + e)^(-1/2)`` (``lateral="volume"``; plastic incompressibility with equal
+    width and thickness strains), so ``v = ((1 + e)^(-1/2) - 1) (Y - yc) + offset_y``.
+
+    Parameters
+    ----------
+    strain : float
+        Uniform engineering strain along x (> -1).
+    centre : (float, float)
+        ``(xc, yc)``: the neck centre, and the point that moves only by ``offset``.
+    neck_strain : float
+        Extra engineering strain at the centre of the neck.
+    neck_width : float
+        Width parameter ``w`` of the neck (px).
+    lateral : {"volume", "none"}
+        Lateral contraction model.
+    offset : (float, float)
+        Rigid displacement added everywhere (crosshead motion).
+
+    Returns
+    -------
+    Displacement
+        With an analytic Jacobian.
+    """
+    xc, yc = (float(c) for c in centre)
+    e0, e1, w = float(strain), float(neck_strain), float(neck_width)
+    if not (e0 > -1 and e0 + e1 > -1 and w > 0):
+        raise ValueError("tensile_neck needs strain > -1, strain + neck_strain > -1 and "
+                         "neck_width > 0")
+    if lateral not in ("volume", "none"):
+        raise ValueError(f"lateral must be 'volume' or 'none', got {lateral!r}")
+    ox, oy = (float(o) for o in offset)
+
+    def e(X):
+        return e0 + e1 / np.cosh((X - xc) / w) ** 2
+
+    def de(X):
+        t = np.tanh((X - xc) / w)
+        return -2.0 * e1 / w * t / np.cosh((X - xc) / w) ** 2
+
+    def fu(X, Y):
+        return e0 * (X - xc) + e1 * w * np.tanh((X - xc) / w) + ox
+
+    def fv(X, Y):
+        if lateral == "none":
+            return np.zeros_like(X) + oy
+        return ((1.0 + e(X)) ** -0.5 - 1.0) * (Y - yc) + oy
+
+    def jac(X, Y):
+        dudx = e(X)
+        dudy = np.zeros_like(X * Y)
+        if lateral == "none":
+            z = np.zeros_like(X * Y)
+            return dudx + z, dudy, z, z
+        dvdx = -0.5 * (1.0 + e(X)) ** -1.5 * de(X) * (Y - yc)
+        dvdy = (1.0 + e(X)) ** -0.5 - 1.0 + 0.0 * Y
+        return dudx + 0.0 * Y, dudy, dvdx, dvdy
+
+    return Displacement(fu, fv, jac, label=f"tensile_neck(strain={e0}, neck_strain={e1}, "
+                                           f"neck_width={w})")
 
 
 def sinusoid(amplitude, period, *, direction="x"):

@@ -193,6 +193,8 @@ def test_large_motion_with_stretch():
     assert ok.sum() >= 0.99 * interior.sum()
     err = np.hypot(f.u - ut, f.v - vt)
     assert np.all(err[ok] <= 0.01)
+    # material moved out of the frame is reported as such, not as 'not reached'
+    assert np.all(f.reason[~f.valid] == Reason.OUTSIDE_IMAGE)
 
 
 def test_flat_region_and_crack_are_invalid_elsewhere_correct(speckle):

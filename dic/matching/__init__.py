@@ -457,3 +457,31 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
                 prop.reason[rest] = Reason.NOT_REACHED
         if not progress and not (prop.state == w.TODO).any():
             break
+    _explain_unreached(prop, ref.shape)
+
+
+def _explain_unreached(prop, shape):
+    """Unmeasured points whose match, extrapolated from the nearest measured point, would leave
+    the image: that is the reason to report, not 'not reached' or a failed seed attempt."""
+    from scipy import ndimage
+
+    nr = np.flatnonzero(np.isin(prop.reason, (Reason.NOT_REACHED, Reason.LOW_ZNCC,
+                                              Reason.NO_CONVERGENCE, Reason.DEGENERATE)))
+    good = (prop.state == prop.w.GOOD).reshape(prop.ny, prop.nx)
+    if nr.size == 0 or not good.any():
+        return
+    _, (ri, ci) = ndimage.distance_transform_edt(~good, return_indices=True)
+    nb = (ri.ravel() * prop.nx + ci.ravel())[nr]
+    second = prop.m.second
+    iu, iv = index_u_v(second)
+    p = prop.params[nb]
+    ddx = (prop.px[nr] - prop.px[nb]).astype(float)
+    ddy = (prop.py[nr] - prop.py[nb]).astype(float)
+    u = p[:, iu] + p[:, iu + 1] * ddx + p[:, iu + 2] * ddy
+    v = p[:, iv] + p[:, iv + 1] * ddx + p[:, iv + 2] * ddy
+    reach = prop.m.half * (1.0 + np.abs(p[:, [iu + 1, iu + 2, iv + 1, iv + 2]]).sum(axis=1))
+    lo = prop.m.border
+    xw, yw = prop.px[nr] + u, prop.py[nr] + v
+    leaves = ((xw - reach < lo) | (xw + reach > shape[1] - 1 - lo)
+              | (yw - reach < lo) | (yw + reach > shape[0] - 1 - lo))
+    prop.reason[nr[leaves]] = Reason.OUTSIDE_IMAGE
