@@ -115,15 +115,14 @@ def prepare_grid(shape, roi, subset, step, border=0):
 class _Propagation:
     """State of one reliability-guided propagation over the point grid."""
 
-    def __init__(self, matcher, gx, gy, candidate, in_image, step, min_zncc):
+    def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc):
         from . import _waves
 
         self.w = _waves
         self.m = matcher
         self.ny, self.nx = candidate.shape
-        self.px = gx.ravel()
-        self.py = gy.ravel()
-        self.step = step
+        self.px = np.ascontiguousarray(gx, dtype=np.int64).ravel()
+        self.py = np.ascontiguousarray(gy, dtype=np.int64).ravel()
         self.min_zncc = min_zncc
         n = candidate.size
         self.state = np.where(candidate.ravel(), _waves.TODO, _waves.NOT_CANDIDATE).astype(
@@ -179,7 +178,7 @@ class _Propagation:
         if self.ny >= _COARSE_MIN and self.nx >= _COARSE_MIN and new_good.size:
             self._waves(new_good, 2)
             idx, p0 = self.w.fill_between(self.state, self.zncc, self.params, self.nx,
-                                          self.ny, self.step, self.m.second)
+                                          self.ny, self.px, self.py, self.m.second)
             if idx.size:
                 self.run(idx, p0, retry_later=True)
                 tried = idx[self.state[idx] == self.w.TODO]
@@ -194,8 +193,8 @@ class _Propagation:
     def _waves(self, new_good, stride):
         while new_good.size:
             idx, p0 = self.w.next_wave(self.state, self.zncc, self.params, self.nx, self.ny,
-                                       self.step, self.m.second, new_good.astype(np.int64),
-                                       stride)
+                                       self.px, self.py, self.m.second,
+                                       new_good.astype(np.int64), stride)
             if idx.size == 0:
                 break
             new_good = self.run(idx, p0)
@@ -213,10 +212,14 @@ def _seed_candidates(comp_idx, px, py):
     return order[picks]
 
 
-def _try_seed(prop, k, ref, deformed, search, guess=None):
-    """Match grid point ``k`` from an FFT (or user) guess; True if it is a good seed."""
+def _try_seed(prop, k, ref, deformed, search, guess=None, start=None):
+    """Match grid point ``k`` from a full parameter vector ``start``, a user's ``(u, v)``
+    guess, or an FFT search; True if it is a good seed."""
     from ._seed import fft_guess
 
+    if start is not None and np.all(np.isfinite(start[k])):
+        if prop.run(np.array([k], np.int64), start[k][None, :], retry_later=True).size:
+            return True
     x, y = int(prop.px[k]), int(prop.py[k])
     if guess is None:
         rows, cols = ref.shape
@@ -260,7 +263,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
               seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
               max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.02,
               initial: DisplacementField | None = None, workers: int | None = None,
-              _prepared=None) -> DisplacementField:
+              _prepared=None, _points=None) -> DisplacementField:
     """Measure the displacement field between a reference and a deformed image.
 
     Square subsets of the reference image, centred on a regular grid of points, are matched in
@@ -302,8 +305,9 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         Subsets whose grey-level standard deviation is below this fraction of the image's
         1-99 percentile range are flat and not matched.
     initial : DisplacementField, optional
-        A field on the same grid to start every point from (for example the previous image of
-        a sequence). Points that fail from it are retried from their neighbours and seeds.
+        A field on the same grid (for example from the previous image of a sequence) that
+        gives the seed points their starting guesses instead of the FFT search; the other
+        points start from their best matched neighbour as usual.
     workers : int, optional
         Threads for the matching kernel (default: all cores).
 
@@ -335,9 +339,13 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         raise ValueError(f"reference and deformed images differ in size ({ref.shape[1]} x "
                          f"{ref.shape[0]} vs {dfm.shape[1]} x {dfm.shape[0]} px); use images "
                          f"from the same camera and crop")
-    xs, ys, candidate, mask, in_image = prepare_grid(ref.shape, roi, subset, step,
-                                                     edge_margin(order))
-    gx, gy = np.meshgrid(xs, ys)
+    if _points is None:
+        xs, ys, candidate, mask, in_image = prepare_grid(ref.shape, roi, subset, step,
+                                                         edge_margin(order))
+        gx, gy = np.meshgrid(xs, ys)
+    else:
+        gx, gy, candidate, in_image, mask = _irregular_points(ref.shape, subset, order,
+                                                              *_points)
     if initial is not None and initial.shape != candidate.shape:
         raise ValueError(f"initial field has grid {initial.shape}, this analysis has "
                          f"{candidate.shape}; use a field from the same ROI, subset and step")
@@ -357,7 +365,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         matcher = SubsetMatcher(ref, dfm, subset=subset, second_order=second, order=order,
                                 max_iterations=max_iterations, tolerance=tolerance,
                                 min_std=min_std, reference_gradients=_prepared)
-        prop = _Propagation(matcher, gx, gy, candidate, in_image, step, min_zncc)
+        prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc)
         prop.mark_flat(min_std)
         _solve(prop, ref, dfm, search, seed_list, initial)
     finally:
@@ -394,18 +402,29 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     return field
 
 
+def _irregular_points(shape, subset, order, px, py, wanted):
+    """Points at given integer pixels, in grid topology (used from updated references)."""
+    px = np.asarray(px, dtype=np.int64)
+    py = np.asarray(py, dtype=np.int64)
+    lo = edge_margin(order) + subset // 2
+    in_image = (px >= lo) & (px <= shape[1] - 1 - lo) & (py >= lo) & (py <= shape[0] - 1 - lo)
+    candidate = np.asarray(wanted, bool) & in_image
+    mask = np.zeros(shape, bool)
+    mask[np.clip(py, 0, shape[0] - 1), np.clip(px, 0, shape[1] - 1)] = True
+    return px, py, candidate, in_image, mask
+
+
 def _solve(prop, ref, dfm, search, seed_list, initial):
     """Run the initial guesses, seeds and propagation until every point is decided."""
     from scipy import ndimage
 
     w = prop.w
+    start = None
     if initial is not None:
-        p0 = params_from_fields(initial.u.ravel(), initial.v.ravel(),
-                                initial.grad.reshape(-1, 2, 2), prop.m.second)
-        ok = np.flatnonzero((prop.state == w.TODO) & np.all(np.isfinite(p0), axis=1))
-        if ok.size:
-            good = prop.run(ok, p0[ok], retry_later=True)
-            prop.propagate(good)
+        # an earlier field gives the seeds their starting guesses; the rest of the points
+        # still start from their best matched neighbour, which is the more reliable guess
+        start = params_from_fields(initial.u.ravel(), initial.v.ravel(),
+                                   initial.grad.reshape(-1, 2, 2), prop.m.second)
     for s in seed_list:
         k = _nearest_candidate(prop, s[0], s[1])
         if k is None:
@@ -437,7 +456,7 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
             for k in _seed_candidates(comp, prop.px, prop.py):
                 if prop.state[k] != w.TODO:
                     continue
-                if _try_seed(prop, k, ref, dfm, search):
+                if _try_seed(prop, k, ref, dfm, search, start=start):
                     before = np.flatnonzero(prop.state == w.GOOD)
                     prop.propagate(np.array([k], np.int64))
                     grown = np.setdiff1d(np.flatnonzero(prop.state == w.GOOD), before)

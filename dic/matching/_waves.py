@@ -41,10 +41,11 @@ def shift_params(p, ddx, ddy, second, out):
 
 
 @njit(cache=True)
-def next_wave(state, zncc, params, nx, ny, step, second, new_good, stride):
+def next_wave(state, zncc, params, nx, ny, px, py, second, new_good, stride):
     """Queue the unmatched neighbours of newly matched points.
 
-    Neighbours are the four points ``stride`` grid places away. Each queued point gets, as its
+    Points form a grid topologically (``nx`` by ``ny``); their pixel positions ``px, py`` need
+    not be regular. Neighbours are the four points ``stride`` grid places away. Each queued point gets, as its
     starting guess, the parameters of its best-correlated (highest ZNCC) matched neighbour,
     carried over to its own position.
     """
@@ -82,14 +83,13 @@ def next_wave(state, zncc, params, nx, ny, step, second, new_good, stride):
             if state[nb] == GOOD and zncc[nb] > bz:
                 bz = zncc[nb]
                 best = nb
-        br = best // nx
-        bc = best - br * nx
-        shift_params(params[best], float((c - bc) * step), float((r - br) * step), second, p0[t])
+        shift_params(params[best], float(px[q] - px[best]), float(py[q] - py[best]), second,
+                     p0[t])
     return idx, p0
 
 
 @njit(cache=True)
-def fill_between(state, zncc, params, nx, ny, step, second):
+def fill_between(state, zncc, params, nx, ny, px, py, second):
     """Unmatched points with a matched point among their 8 neighbours, with starting guesses.
 
     Used after propagation over a coarse lattice: the points in between are then matched in one
@@ -126,9 +126,6 @@ def fill_between(state, zncc, params, nx, ny, step, second):
     for t in range(m):
         q = idx[t]
         best = src[t]
-        r = q // nx
-        c = q - r * nx
-        br = best // nx
-        bc = best - br * nx
-        shift_params(params[best], float((c - bc) * step), float((r - br) * step), second, p0[t])
+        shift_params(params[best], float(px[q] - px[best]), float(py[q] - py[best]), second,
+                     p0[t])
     return idx, p0

@@ -1,0 +1,432 @@
+"""The sequence driver: frames in order, blocks in parallel, results appended to the file.
+
+See :mod:`dic.sequence` for the per-frame logic. This module schedules it: the first frame of
+every block is matched in sequence (each from the previous block's first frame), the remaining
+frames of the blocks then run in any order -- in this process, in a process pool or on a Dask
+cluster -- and their results are written in frame order by this process alone.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import logging
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .field import DisplacementField
+from .sequence import FrameMatcher, TrackSettings, extrapolate, needs_new_reference
+
+__all__ = ["track", "resolve_images"]
+
+log = logging.getLogger(__name__)
+
+
+# ------------------------------------------------------------------------------------------
+# inputs
+# ------------------------------------------------------------------------------------------
+def resolve_images(images) -> list:
+    """A list of image paths (natural order) or arrays from what the user gave.
+
+    ``images`` may be a folder, a glob pattern, a list of paths/patterns, or a list of arrays.
+    """
+    from .io import list_images
+
+    if isinstance(images, (str, os.PathLike)):
+        return list(list_images(images))
+    items = list(images)
+    if not items:
+        raise ValueError("images is empty; give a folder, a glob pattern such as "
+                         "'frames/*.tif', or a list of image files")
+    if all(isinstance(i, np.ndarray) for i in items):
+        return items
+    out = []
+    for it in items:
+        p = Path(it)
+        if p.is_file():
+            out.append(p)
+        else:
+            out.extend(list_images(str(it)))
+    return out
+
+
+def _sha256(path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _check_frames(paths, reference_shape):
+    """All frames the same size and bit depth as the reference (cheap header reads)."""
+    from .io import image_info
+
+    if isinstance(paths[0], np.ndarray):
+        for k, a in enumerate(paths):
+            if a.shape[:2] != reference_shape:
+                raise ValueError(f"image {k} is {a.shape[1]} x {a.shape[0]} px but the "
+                                 f"reference is {reference_shape[1]} x {reference_shape[0]}; "
+                                 f"all frames must come from the same camera setting")
+        return
+    first = image_info(paths[0])
+    for p in paths:
+        info = image_info(p)
+        if tuple(info["shape"]) != tuple(reference_shape):
+            raise ValueError(f"{p} is {info['shape'][1]} x {info['shape'][0]} px but the "
+                             f"reference is {reference_shape[1]} x {reference_shape[0]}; all "
+                             f"frames must come from the same camera setting (remove or crop "
+                             f"that file)")
+        if info["bits"] != first["bits"]:
+            raise ValueError(f"{p} has {info['bits']}-bit pixels but {paths[0]} has "
+                             f"{first['bits']}; convert the sequence to one bit depth")
+
+
+def _load(item):
+    from .io import read_image
+
+    if isinstance(item, np.ndarray):
+        return read_image(item, name="image")
+    return read_image(item, name=str(item))
+
+
+# ------------------------------------------------------------------------------------------
+# one block of frames: the unit of parallel work
+# ------------------------------------------------------------------------------------------
+@dataclass
+class _Stage:
+    """One reference image and what is needed to match against it (picklable)."""
+
+    ref_item: object
+    roi: object
+    base: DisplacementField | None
+    settings: TrackSettings
+    ref_index: int = 0
+
+    def matcher(self) -> FrameMatcher:
+        return FrameMatcher(_load(self.ref_item), self.settings, roi=self.roi, base=self.base)
+
+
+_WORKER_CACHE: dict = {}
+
+
+def _worker_matcher(stage: _Stage, key) -> FrameMatcher:
+    m = _WORKER_CACHE.get(key)
+    if m is None:
+        _WORKER_CACHE.clear()
+        m = _WORKER_CACHE[key] = stage.matcher()
+    return m
+
+
+def _run_block(stage, key, items, first_raw, n_expected, may_update, threads=None):
+    """Match the frames of a block in order, each from the previous one's raw field.
+
+    Returns a list of (total, raw, degraded) tuples; stops after the first degraded frame.
+    ``may_update[j]`` is False where a new reference would be the current one again.
+    """
+    if threads is not None:
+        import numba
+
+        numba.set_num_threads(threads)
+    m = _worker_matcher(stage, key)
+    out = []
+    prev = first_raw
+    for it, may in zip(items, may_update):
+        total, raw = m.match(_load(it), prev)
+        bad = may and needs_new_reference(total, n_expected, stage.settings)
+        out.append((total, raw, bad))
+        if bad:
+            break
+        prev = raw
+    return out
+
+
+class _Local:
+    """Runs tasks in this process (the executor interface of concurrent.futures)."""
+
+    class _Done:
+        def __init__(self, value):
+            self._v = value
+
+        def result(self):
+            return self._v
+
+    def submit(self, fn, *args):
+        return self._Done(fn(*args))
+
+    def shutdown(self):
+        pass
+
+
+def _make_executor(workers, cluster):
+    if cluster is not None:
+        try:
+            from distributed import Client
+        except ImportError as exc:  # pragma: no cover - optional dependency
+            raise ValueError("cluster needs the optional dependency dask.distributed; install "
+                             "it with: pip install 'dask[distributed]'") from exc
+        client = cluster if hasattr(cluster, "submit") else Client(cluster)
+
+        class _Dask:
+            def submit(self, fn, *args):
+                return client.submit(fn, *args, threads=1, pure=False)
+
+            def shutdown(self):
+                if client is not cluster:
+                    client.close()
+
+        return _Dask(), 1
+    if workers is None or workers <= 1:
+        return _Local(), (1 if workers == 1 else None)
+    import multiprocessing as mp
+    from concurrent.futures import ProcessPoolExecutor
+
+    # 'spawn': forking a process whose compiled kernels have started threads is unsafe
+    return ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")), 1
+
+
+# ------------------------------------------------------------------------------------------
+# the driver
+# ------------------------------------------------------------------------------------------
+def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None,
+          shape_function="affine", interpolation="quintic", min_zncc=0.9, search=60,
+          block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
+          scale=None, overwrite=False, progress=False, strain=None):
+    """Track a sequence of images and write a results file.
+
+    Parameters
+    ----------
+    images : folder, glob pattern, list of paths or list of arrays
+        The sequence, in natural order (``img2`` before ``img10``).
+    out : path
+        Results file (HDF5). An existing file from the same analysis is resumed after its last
+        completed frame; one from different settings is an error unless ``overwrite``.
+    subset, step, roi, shape_function, interpolation, min_zncc, search
+        As for :func:`dic.correlate`.
+    reference : int
+        Index of the reference image (default the first).
+    frames : slice, range or sequence of int, optional
+        Which images to analyse (default all).
+    block : int
+        Frames per block of parallel work (part of the settings: it fixes which guess each
+        frame starts from, so results do not depend on the number of workers).
+    update_valid, update_zncc : float
+        The reference moves to the last good image when fewer than ``update_valid`` of the
+        points measured in the first frame against the current reference are still measured,
+        or when the median ZNCC falls below ``update_zncc``.
+    workers : int, optional
+        ``None``: this process, all cores in the matching kernel. ``N``: a pool of N
+        single-threaded processes working on blocks of frames.
+    cluster : str or distributed.Client, optional
+        Address of a Dask distributed scheduler (or a client) to run blocks on.
+    scale : float, optional
+        mm per px, stored with the results.
+    progress : bool
+        Show a progress bar on stderr.
+    strain : dict, optional
+        ``{"window": 9, "measure": "green-lagrange"}`` to compute and store strain per frame.
+
+    Returns
+    -------
+    dic.store.Results
+        The results, read back from the file.
+
+    References
+    ----------
+    .. [1] B. Pan, "Reliability-guided digital image correlation for image deformation
+       measurement", Applied Optics 48 (2009) 1535-1542.
+    """
+    from . import store
+    from .roi import make_roi
+
+    items = resolve_images(images)
+    n_img = len(items)
+    if not isinstance(reference, (int, np.integer)) or not 0 <= reference < n_img:
+        raise ValueError(f"reference must be an image index from 0 to {n_img - 1}, got "
+                         f"{reference!r}")
+    order = _frame_list(frames, n_img)
+    settings = TrackSettings(subset=subset, step=step, shape_function=shape_function,
+                             interpolation=interpolation, min_zncc=min_zncc, search=search,
+                             block=int(block), update_valid=float(update_valid),
+                             update_zncc=float(update_zncc))
+    if settings.block < 1:
+        raise ValueError(f"block must be at least 1, got {block}")
+    ref_img = _load(items[reference])
+    _check_frames(items, ref_img.shape)
+    mask = make_roi(roi, ref_img.shape)
+    names = [f"array {k}" if isinstance(it, np.ndarray) else str(it) for k, it in
+             enumerate(items)]
+    names = [names[k] for k in order]
+    shas = [hashlib.sha256(np.ascontiguousarray(items[k]).tobytes()).hexdigest()
+            if isinstance(items[k], np.ndarray) else _sha256(items[k]) for k in order]
+    record = dict(settings.as_dict(), reference=int(reference), frames=[int(k) for k in order],
+                  roi=("mask" if roi is not None else "whole image"),
+                  strain=strain or {})
+
+    # the grid is that of the reference image against itself
+    first_stage = _Stage(items[reference], mask, None, settings, int(reference))
+    matcher0 = first_stage.matcher()
+    grid = matcher0.match(ref_img, None)[1]
+
+    writer = store.open_for_writing(
+        out, settings=record, grid_x=grid.x, grid_y=grid.y, n_frames=len(order),
+        image_names=names, image_sha256=shas, roi_mask=mask, scale_mm_per_px=scale,
+        overwrite=overwrite)
+    executor, threads = _make_executor(workers, cluster)
+    bar = None
+    try:
+        if progress:
+            from tqdm import tqdm
+
+            bar = tqdm(total=len(order), initial=writer.n_done, unit="frame", desc="tracking",
+                       dynamic_ncols=True)
+        _drive(items, order, reference, settings, mask, writer, executor, threads, bar,
+               matcher0, strain)
+    finally:
+        if bar is not None:
+            bar.close()
+        executor.shutdown()
+        writer.close()
+    return store.Results.open(out)
+
+
+def _frame_list(frames, n_img):
+    if frames is None:
+        return list(range(n_img))
+    if isinstance(frames, slice):
+        return list(range(n_img))[frames]
+    out = [int(k) for k in frames]
+    bad = [k for k in out if not 0 <= k < n_img]
+    if bad or not out:
+        raise ValueError(f"frames must be image indices from 0 to {n_img - 1}; got {bad or out}")
+    return out
+
+
+def _drive(items, order, reference, settings, mask, writer, executor, threads, bar, matcher0,
+           strain):
+    """Run stages (one per reference image) until every frame is written."""
+    n = len(order)
+    stage = _Stage(items[reference], mask, None, settings, int(reference))
+    stage_key = ("stage", reference)
+    _WORKER_CACHE.clear()
+    _WORKER_CACHE[stage_key] = matcher0
+    start = 0
+    ref_index = reference
+    done = writer.n_done
+    last_total = None
+    # resuming: rebuild the stage that was current at the last completed frame
+    updates = [u for u in writer.reference_updates if u < done]
+    for u in updates:
+        # replay the updated stages from their first frame: their raw fields are not stored
+        start = u
+    if updates:
+        base = writer.read_field(start - 1)
+        ref_index = order[start - 1]
+        stage = _Stage(items[ref_index], None, base, settings, int(ref_index))
+        stage_key = ("stage", ref_index, start)
+    while start < n:
+        end, last_total, new_stage = _run_stage(items, order, start, stage, stage_key, writer,
+                                                executor, threads, bar, settings, strain)
+        if new_stage is None:
+            break
+        # a new reference: the last good frame
+        base = last_total
+        log.debug("new stage at %d from base with %d valid points", end, base.n_valid)
+        ref_index = order[end - 1]
+        stage = _Stage(items[ref_index], None, base, settings, int(ref_index))
+        stage_key = ("stage", ref_index, end)
+        log.info("frame %d: correlation degraded, new reference is image %d", end, ref_index)
+        if writer.n_done <= end:
+            writer.add_reference_update(end)
+        start = end
+    del done
+
+
+def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, settings,
+               strain):
+    """Frames from ``start`` against one reference, until the end or until it degrades.
+
+    Returns (first frame of the next stage, last good total field, flag of a new stage).
+    """
+    n = len(order)
+    B = settings.block
+    starts = list(range(start, n, B))
+    local = _WORKER_CACHE.get(key) if isinstance(executor, _Local) else None
+    if local is None and isinstance(executor, _Local):
+        local = _worker_matcher(stage, key)
+    n_expected = None
+    prev_raw = prev2_raw = None
+    window = max(1, 2 * getattr(executor, "_max_workers", 1))
+    i = 0
+    last_total = None
+    while i < len(starts):
+        batch = starts[i:i + window]
+        # 1. the first frames of the blocks, in sequence
+        heads = []
+        stop_at = None
+        for s in batch:
+            if s < writer.n_done and stage.base is None:
+                # already in the file (resume, first stage): its raw field is the stored one
+                total = raw = writer.read_field(s)
+                bad = False
+            else:
+                guess = extrapolate(prev2_raw, prev_raw) if prev_raw is not None else None
+                total, raw = _stage_matcher(stage, key, local).match(_load(items[order[s]]),
+                                                                       guess)
+                bad = (n_expected is not None and s > start and order[s - 1] != stage.ref_index
+                       and needs_new_reference(total, n_expected, settings))
+            if n_expected is None:
+                n_expected = max(total.n_valid, 1)
+            heads.append((s, total, raw, bad))
+            if bad:
+                stop_at = s
+                break
+            prev2_raw, prev_raw = prev_raw, raw
+        # 2. the rest of each block, in parallel
+        futures = []
+        for s, total, raw, bad in heads:
+            if bad:
+                continue
+            ks = [k for k in range(s + 1, min(s + B, n)) if stop_at is None or k < stop_at]
+            rest = [items[order[k]] for k in ks]
+            may = [order[k - 1] != stage.ref_index for k in ks]
+            futures.append((s, executor.submit(_run_block, stage, key, rest, raw, n_expected,
+                                               may, threads) if rest else None))
+        # 3. collect in frame order, write, and find the first degraded frame
+        results = {}
+        for s, total, raw, bad in heads:
+            results[s] = (total, bad)
+        for s, fut in futures:
+            if fut is None:
+                continue
+            for j, (total, raw, bad) in enumerate(fut.result()):
+                results[s + 1 + j] = (total, bad)
+        for k in sorted(results):
+            total, bad = results[k]
+            if bad and k > start:
+                return k, last_total, True
+            if k >= writer.n_done:
+                writer.write_frame(k, total, reference_index=stage.ref_index)
+                if strain:
+                    _write_strain(writer, k, total, strain)
+                if bar is not None:
+                    bar.update(1)
+            last_total = total
+        if stop_at is not None:
+            return stop_at, last_total, True
+        i += len(batch)
+    return n, last_total, None
+
+
+def _stage_matcher(stage, key, local):
+    return local if local is not None else _worker_matcher(stage, key)
+
+
+def _write_strain(writer, k, total, strain):
+    from .strain import strain_field
+
+    s = strain_field(total, window=int(strain.get("window", 9)),
+                     measure=strain.get("measure", "green-lagrange"))
+    writer.write_strain_frame(k, s)
