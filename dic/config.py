@@ -1,0 +1,193 @@
+"""The analysis file: every setting of a sequence analysis in one TOML file.
+
+Example (``analysis.toml``)::
+
+    images = "frames/*.tif"        # folder, glob pattern or list of files
+    out = "run.h5"
+    reference = 0
+    frames = { start = 0, stop = 40, stride = 1 }   # optional
+
+    [matching]
+    subset = 21
+    step = 10
+    shape_function = "affine"      # or "quadratic"
+    interpolation = "quintic"      # or "cubic"
+    min_zncc = 0.9
+    search = 60
+
+    [roi]
+    rectangle = [40, 30, 600, 210]  # x0, y0, x1, y1 (px); or polygon = [[x, y], ...];
+                                    # or mask = "mask.png"
+
+    [scale]
+    mm_per_px = 0.08                # or line = [x0, y0, x1, y1], length_mm = 40.0
+
+    [strain]
+    window = 9
+    measure = "green-lagrange"
+
+    [run]
+    workers = 2                     # or cluster = "tcp://host:8786"
+    block = 8
+
+Relative paths are taken from the folder of the analysis file. Command-line options override the
+file. Unknown keys are errors that name the closest valid key.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from pathlib import Path
+
+__all__ = ["load_analysis", "scale_from_line", "SCHEMA"]
+
+#: section -> key -> expected Python type(s); None as section means the top level
+SCHEMA = {
+    None: {"images": (str, list), "out": (str,), "reference": (int,), "frames": (dict,)},
+    "frames": {"start": (int,), "stop": (int,), "stride": (int,)},
+    "matching": {"subset": (int,), "step": (int,), "shape_function": (str,),
+                 "interpolation": (str,), "min_zncc": (float, int), "search": (int,)},
+    "roi": {"rectangle": (list,), "polygon": (list,), "mask": (str,)},
+    "scale": {"mm_per_px": (float, int), "line": (list,), "length_mm": (float, int)},
+    "strain": {"window": (int,), "measure": (str,)},
+    "run": {"workers": (int,), "cluster": (str,), "block": (int,)},
+}
+_SECTIONS = [s for s in SCHEMA if s is not None and s != "frames"]
+
+
+def _closest(word, options):
+    hit = difflib.get_close_matches(word, options, n=1, cutoff=0.5)
+    return f"; did you mean {hit[0]!r}?" if hit else f"; valid keys: {', '.join(options)}"
+
+
+def _check_table(table, section, where):
+    allowed = SCHEMA[section]
+    for key, value in table.items():
+        if section is None and key in _SECTIONS:
+            if not isinstance(value, dict):
+                raise ValueError(f"{where}: [{key}] must be a table of settings")
+            _check_table(value, key, where)
+            continue
+        if key not in allowed:
+            name = key if section is None else f"{section}.{key}"
+            if section is None:
+                # a setting written at the top level that belongs in a section
+                nested = {k: s for s in _SECTIONS for k in SCHEMA[s]}
+                hit = difflib.get_close_matches(key, list(nested) + _SECTIONS, n=1,
+                                                cutoff=0.5)
+                if hit and hit[0] in nested:
+                    raise ValueError(f"{where}: unknown key {name!r}; did you mean "
+                                     f"{hit[0]!r} in the [{nested[hit[0]]}] section?")
+            options = list(allowed) + (_SECTIONS if section is None else [])
+            raise ValueError(f"{where}: unknown key {name!r}{_closest(key, options)}")
+        types = allowed[key]
+        if isinstance(value, bool) or not isinstance(value, types):
+            want = " or ".join(t.__name__ for t in types)
+            name = key if section is None else f"{section}.{key}"
+            raise ValueError(f"{where}: {name} must be a {want}, got {value!r}")
+        if key == "frames":
+            _check_table(value, "frames", where)
+
+
+def scale_from_line(line, length_mm) -> float:
+    """mm per px from two image points a known distance apart.
+
+    Parameters
+    ----------
+    line : (x0, y0, x1, y1)
+        Two points in px.
+    length_mm : float
+        Their true distance in mm.
+    """
+    try:
+        x0, y0, x1, y1 = (float(v) for v in line)
+    except (TypeError, ValueError):
+        raise ValueError(f"scale line must be four numbers x0, y0, x1, y1 (px), got "
+                         f"{line!r}") from None
+    d = math.hypot(x1 - x0, y1 - y0)
+    if not d > 0 or not float(length_mm) > 0:
+        raise ValueError("scale line needs two different points and a positive length in mm")
+    return float(length_mm) / d
+
+
+def load_analysis(path) -> dict:
+    """Read and check an analysis file.
+
+    Parameters
+    ----------
+    path : path
+        TOML file.
+
+    Returns
+    -------
+    dict
+        Flat settings for :func:`dic.track`: ``images``, ``out``, ``reference``, ``frames``
+        (a slice), ``subset``, ``step``, ``shape_function``, ``interpolation``, ``min_zncc``,
+        ``search``, ``roi``, ``scale``, ``strain``, ``workers``, ``cluster``, ``block`` -- only
+        the keys the file sets.
+
+    Raises
+    ------
+    OSError
+        The file cannot be read.
+    ValueError
+        Not valid TOML, unknown keys (naming the closest valid one), wrong types.
+    """
+    p = Path(path)
+    try:
+        text = p.read_text(encoding="utf-8")
+    except OSError as exc:
+        raise OSError(f"cannot read the analysis file {str(p)!r}: {exc.strerror or exc}; "
+                      f"check the path") from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ValueError(f"{p.name}: not a valid TOML file ({exc}); fix the line it names") \
+            from None
+    _check_table(data, None, p.name)
+    base = p.parent
+    out: dict = {}
+
+    def rel(s):
+        q = Path(s)
+        return str(q if q.is_absolute() else base / q)
+
+    if "images" in data:
+        imgs = data["images"]
+        out["images"] = rel(imgs) if isinstance(imgs, str) else [rel(i) for i in imgs]
+    if "out" in data:
+        out["out"] = rel(data["out"])
+    if "reference" in data:
+        out["reference"] = data["reference"]
+    if "frames" in data:
+        f = data["frames"]
+        out["frames"] = slice(f.get("start"), f.get("stop"), f.get("stride"))
+    out.update(data.get("matching", {}))
+    roi = data.get("roi", {})
+    if len(roi) > 1:
+        raise ValueError(f"{p.name}: [roi] takes one of rectangle, polygon or mask, not "
+                         f"{' and '.join(roi)}")
+    if "rectangle" in roi:
+        out["roi"] = tuple(roi["rectangle"])
+    elif "polygon" in roi:
+        out["roi"] = [tuple(v) for v in roi["polygon"]]
+    elif "mask" in roi:
+        out["roi"] = rel(roi["mask"])
+    sc = data.get("scale", {})
+    if "mm_per_px" in sc and ("line" in sc or "length_mm" in sc):
+        raise ValueError(f"{p.name}: [scale] takes mm_per_px or line + length_mm, not both")
+    if "mm_per_px" in sc:
+        if not sc["mm_per_px"] > 0:
+            raise ValueError(f"{p.name}: scale.mm_per_px must be positive")
+        out["scale"] = float(sc["mm_per_px"])
+    elif "line" in sc or "length_mm" in sc:
+        if "line" not in sc or "length_mm" not in sc:
+            raise ValueError(f"{p.name}: [scale] needs both line = [x0, y0, x1, y1] and "
+                             f"length_mm")
+        out["scale"] = scale_from_line(sc["line"], sc["length_mm"])
+    if "strain" in data:
+        out["strain"] = dict(data["strain"])
+    out.update(data.get("run", {}))
+    return out
