@@ -10,6 +10,8 @@ read_image
     Read an 8/16-bit grey or colour image into a float array.
 strain_field
     Strain tensors (Green-Lagrange and the other usual measures) from a displacement field.
+track, load_results
+    A whole image sequence into a results file, and that file read back.
 """
 
 from __future__ import annotations
@@ -27,10 +29,13 @@ _LAZY = {
     "strain_field": "dic.strain",
     "StrainField": "dic.strain",
     "synth": "dic.synth",
+    "track": "dic.tracker",
+    "load_results": "dic.tracker",
 }
 
 # sub-modules reachable as attributes (``dic.io``) without an explicit import
-_SUBMODULES = {"io", "roi", "synth", "interp", "strain", "matching", "plot", "export", "cli"}
+_SUBMODULES = {"io", "roi", "synth", "interp", "strain", "matching", "plot", "export", "cli",
+               "store", "sequence", "tracker"}
 
 __all__ = ["__version__", "DisplacementField", "Reason", *_LAZY]
 

@@ -19,7 +19,7 @@ import numpy as np
 from .field import DisplacementField
 from .sequence import FrameMatcher, TrackSettings, extrapolate, needs_new_reference
 
-__all__ = ["track", "resolve_images"]
+__all__ = ["track", "load_results", "resolve_images"]
 
 log = logging.getLogger(__name__)
 
@@ -171,7 +171,7 @@ def _make_executor(workers, cluster):
 
         class _Dask:
             def submit(self, fn, *args):
-                return client.submit(fn, *args, threads=1, pure=False)
+                return client.submit(fn, *args, pure=False)
 
             def shutdown(self):
                 if client is not cluster:
@@ -290,6 +290,13 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
         executor.shutdown()
         writer.close()
     return store.Results.open(out)
+
+
+def load_results(path):
+    """Open a results file written by :func:`track` (see :class:`dic.store.Results`)."""
+    from .store import Results
+
+    return Results.open(path)
 
 
 def _frame_list(frames, n_img):
