@@ -146,6 +146,8 @@ def _run_block(stage, key, items, first_raw, n_expected, may_update, threads=Non
 class _Local:
     """Runs tasks in this process (the executor interface of concurrent.futures)."""
 
+    slots = 1
+
     class _Done:
         def __init__(self, value):
             self._v = value
@@ -170,6 +172,8 @@ def _make_executor(workers, cluster):
         client = cluster if hasattr(cluster, "submit") else Client(cluster)
 
         class _Dask:
+            slots = max(1, sum(client.nthreads().values()))
+
             def submit(self, fn, *args):
                 return client.submit(fn, *args, pure=False)
 
@@ -184,7 +188,9 @@ def _make_executor(workers, cluster):
     from concurrent.futures import ProcessPoolExecutor
 
     # 'spawn': forking a process whose compiled kernels have started threads is unsafe
-    return ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn")), 1
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"))
+    pool.slots = workers
+    return pool, 1
 
 
 # ------------------------------------------------------------------------------------------
@@ -365,7 +371,8 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
         local = _worker_matcher(stage, key)
     n_expected = None
     prev_raw = prev2_raw = None
-    window = max(1, 2 * getattr(executor, "_max_workers", 1))
+    # blocks started per round: enough to keep every worker busy, few enough to keep memory flat
+    window = max(1, 2 * getattr(executor, "slots", 1))
     i = 0
     last_total = None
     while i < len(starts):
