@@ -31,6 +31,7 @@ _LAZY = {
     "synth": "dic.synth",
     "track": "dic.tracker",
     "load_results": "dic.tracker",
+    "tensile_results": "dic.tensile",
 }
 
 # sub-modules reachable as attributes (``dic.io``) without an explicit import
