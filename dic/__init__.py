@@ -36,7 +36,8 @@ _LAZY = {
 
 # sub-modules reachable as attributes (``dic.io``) without an explicit import
 _SUBMODULES = {"io", "roi", "synth", "interp", "strain", "matching", "plot", "export", "cli",
-               "store", "sequence", "tracker"}
+               "store", "sequence", "tracker", "animate", "report", "gauges", "tensile",
+               "forcelog", "config", "metrology"}
 
 __all__ = ["__version__", "DisplacementField", "Reason", *_LAZY]
 

@@ -1,11 +1,19 @@
-"""Writing displacement fields to plain open formats: CSV and NumPy ``.npz``.
+"""Writing results to plain open formats: CSV tables, NumPy ``.npz`` archives, VTK files.
 
-CSV files hold one row per grid point (row-major over the grid, ``y`` outer, ``x`` inner) with
-the columns of :data:`CSV_COLUMNS`. The first line is the column names; the next line is a
-comment (``#``) with the analysis settings, so the file reads back with
-``numpy.genfromtxt(path, delimiter=",", names=True, comments="#")`` and with spreadsheet or
-pandas readers that skip ``#`` lines. Unmeasured points are ``nan`` in every number column and
-keep their reason code (:class:`dic.field.Reason`).
+Single displacement fields
+    :func:`field_to_csv`, :func:`field_to_npz` and :func:`field_from_npz`.
+Whole results files (displacements and strain, frame by frame)
+    :func:`export_results` writes one of three formats: a CSV table per frame
+    (:func:`frame_to_csv`), one ``.npz`` archive with every frame stacked
+    (:func:`results_to_npz`), or a VTK time series that ParaView and other VTK readers open, a
+    structured grid per frame plus a ``.pvd`` collection file (:func:`results_to_vtk`).
+
+CSV files hold one row per grid point (row-major over the grid, ``y`` outer, ``x`` inner). The
+first line is the column names; the next line is a comment (``#``) with the analysis settings,
+so the file reads back with ``numpy.genfromtxt(path, delimiter=",", names=True, comments="#")``
+and with spreadsheet or pandas readers that skip ``#`` lines. Unmeasured points are ``nan`` in
+every number column and keep their reason code (:class:`dic.field.Reason`). Strain shear
+``xy`` is TENSOR shear, half the engineering shear angle, in every format.
 """
 
 from __future__ import annotations
@@ -19,7 +27,8 @@ import numpy as np
 from ._version import __version__
 from .field import DisplacementField
 
-__all__ = ["CSV_COLUMNS", "field_from_npz", "field_to_csv", "field_to_npz"]
+__all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "export_results", "field_from_npz", "field_to_csv",
+           "field_to_npz", "frame_to_csv", "results_to_npz", "results_to_vtk"]
 
 #: column names of :func:`field_to_csv`, in order
 CSV_COLUMNS = ("x_px", "y_px", "u_px", "v_px", "dudx", "dudy", "dvdx", "dvdy", "zncc", "reason")
@@ -196,3 +205,474 @@ def field_from_npz(path):
         x=arr["x"], y=arr["y"], u=arr["u"], v=arr["v"], grad=arr["grad"], zncc=arr["zncc"],
         reason=arr["reason"], iterations=arr["iterations"], grad2=arr.get("grad2"),
         settings=settings)
+
+
+# --------------------------------------------------------------------------------------------
+# whole results files
+# --------------------------------------------------------------------------------------------
+#: formats of :func:`export_results`
+EXPORT_FORMATS = ("csv", "npz", "vtk")
+#: strain components exported by default (xy is tensor shear)
+DEFAULT_COMPONENTS = ("xx", "yy", "xy")
+# 9 significant digits: far finer than any measured value (strain noise >= 1e-6) and half the
+# size of a bit-exact 17-digit table
+_TABLE_FMT = "%.9g"
+
+
+def _check_components(components):
+    """Checked tuple of strain quantity names (a list or a comma-separated string)."""
+    from .plot import STRAIN_QUANTITIES
+
+    if isinstance(components, str):
+        components = [c for c in components.split(",")]
+    try:
+        names = [c.strip().lower() for c in components]
+    except (TypeError, AttributeError):
+        raise ValueError(f"components: expected strain component names such as "
+                         f"['xx', 'yy', 'xy'], got {components!r}") from None
+    bad = [c for c in names if c not in STRAIN_QUANTITIES]
+    if bad or not names:
+        raise ValueError(f"components: unknown {bad[0] if bad else '(none)'!r}; use some of: "
+                         f"{', '.join(STRAIN_QUANTITIES)} (e.g. xx,yy,xy)")
+    return tuple(dict.fromkeys(names))
+
+
+def _column(name):
+    """Column or array name of a strain quantity."""
+    return {"rotation": "rotation_deg", "nonlinear_share": "nonlinear_share",
+            "area_change": "area_change"}.get(name, f"strain_{name}")
+
+
+def _strain_columns(strain, components):
+    from .plot import _quantity_values
+
+    return {_column(c): _quantity_values(strain, c) for c in components}
+
+
+def _open(results):
+    from .animate import _open_results
+
+    res, opened = _open_results(results)
+    if len(res) == 0:
+        if opened:
+            res.close()
+        raise ValueError(f"results: '{res.path}' holds no completed frames; track images into "
+                         f"it first")
+    return res, opened
+
+
+def _out_folder(out_dir):
+    p = Path(os.fspath(out_dir))
+    if p.exists() and not p.is_dir():
+        raise FileExistsError(f"out_dir: '{p}' is a file; give a folder for the exported files")
+    try:
+        p.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OSError(f"out_dir: cannot create '{p}' ({exc.strerror or exc}); choose a folder "
+                      f"you can write to") from None
+    if not os.access(p, os.W_OK | os.X_OK):
+        raise PermissionError(f"out_dir: cannot write into '{p}' (permission denied); choose a "
+                              f"folder you can write to")
+    return p
+
+
+def _strain_note(strain):
+    from .plot import _MEASURE_TITLES
+
+    vsg = f", VSG {strain.vsg:g} px" if np.isfinite(strain.vsg) else ""
+    return (f"{_MEASURE_TITLES.get(strain.measure, strain.measure)} strain, {strain.fit} fit, "
+            f"window {strain.window} points{vsg}; xy is tensor shear (half the engineering "
+            f"shear angle); strain as plain numbers (0.01 = 1 %)")
+
+
+def _write_text(p, text_writer):
+    tmp = p.with_name(f".partial-{os.getpid()}-{p.name}")
+    try:
+        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
+            text_writer(fh)
+        os.replace(tmp, p)
+    except OSError as exc:
+        try:
+            tmp.unlink()
+        except OSError:
+            pass
+        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
+                      f"permissions and free space") from None
+    return p
+
+
+def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
+                 measure="green-lagrange"):
+    """Write one frame of a results file as a CSV table: positions, displacements, strain.
+
+    Parameters
+    ----------
+    results : str, os.PathLike or dic.store.Results
+    k : int
+        Completed frame (negative counts from the end).
+    path : str or os.PathLike
+        Output file; its folder must exist.
+    components : sequence of str or str, optional
+        Strain quantities (see :data:`dic.plot.STRAIN_QUANTITIES`), e.g. ``("xx", "yy", "xy")``
+        or ``"xx,yy,xy"``.
+    window, measure : optional
+        As for :func:`dic.strain_field`.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Notes
+    -----
+    Columns: ``x_px, y_px`` (reference position), then ``x_mm, y_mm`` when the results file
+    knows its scale, ``u_px, v_px`` (displacement) and ``u_mm, v_mm`` with a scale, one column
+    per strain quantity (``strain_xx``, ``strain_yy``, ``strain_xy`` -- tensor shear --,
+    ``rotation_deg``, ...), ``zncc`` and ``reason`` (0 = measured). Numbers have 9
+    significant digits; ``nan`` marks values that do not exist (an unmeasured point, or a
+    point too near the edge of the measured area for a strain).
+    """
+    comps = _check_components(components)
+    res, opened = _open(results)
+    try:
+        kk = _frame(res, k)
+        f = res.field(kk)
+        s = res.strain(kk, window=window, measure=measure)
+        scale = res.scale
+        n = f.n_points
+        cols = {"x_px": f.x, "y_px": f.y}
+        if scale is not None:
+            cols.update(x_mm=f.x * scale, y_mm=f.y * scale)
+        cols.update(u_px=f.u, v_px=f.v)
+        if scale is not None:
+            cols.update(u_mm=f.u * scale, v_mm=f.v * scale)
+        cols.update(_strain_columns(s, comps))
+        cols["zncc"] = np.where(f.valid, f.zncc, np.nan)
+        data = np.column_stack([np.asarray(c, dtype=np.float64).reshape(n)
+                                for c in cols.values()])
+        reason = np.asarray(f.reason).reshape(n).astype(np.int64)
+        t = float(res.image_times[kk]) if len(res.image_times) > kk else float("nan")
+        units = (f"lengths in px and mm ({scale:g} mm/px)" if scale is not None else
+                 "lengths in px (scale unknown, so no mm columns)")
+        note = (f"# dic {__version__} export of frame {kk} (image {res.image_names[kk]}"
+                + (f", t = {t:g} s" if np.isfinite(t) else "") + f"); {units}; "
+                + _strain_note(s) + f"; {f.n_valid} of {n} points measured; reason 0 = "
+                f"measured; {_settings_text(res.settings)}")
+        head = ",".join([*cols, "reason"])
+        fmt = [_TABLE_FMT] * data.shape[1] + ["%d"]
+        table = np.column_stack([data, reason])
+        p = Path(os.fspath(path))
+        if not p.parent.is_dir():
+            raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it "
+                                    f"before writing '{p.name}'")
+
+        def write(fh):
+            fh.write(head + "\n" + note.replace("\n", " ") + "\n")
+            np.savetxt(fh, table, fmt=fmt, delimiter=",")
+
+        return _write_text(p, write)
+    finally:
+        if opened:
+            res.close()
+
+
+def _frame(res, k):
+    n = len(res)
+    if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not -n <= int(k) < n:
+        raise ValueError(f"k: frame {k!r} does not exist; the results file has frames 0 to "
+                         f"{n - 1}")
+    return int(k) % n
+
+
+def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS, window=9,
+                   measure="green-lagrange"):
+    """Write the displacement and strain of many frames into one ``.npz`` archive.
+
+    Frames are written one at a time through memory-mapped temporary files, so memory use does
+    not grow with the number of frames.
+
+    Parameters
+    ----------
+    results : str, os.PathLike or dic.store.Results
+    path : str or os.PathLike
+        Output archive (``.npz`` is added if missing); its folder must exist.
+    frames : sequence of int or slice, optional
+        Frames to write (default all completed frames).
+    components, window, measure : optional
+        As for :func:`frame_to_csv`.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Notes
+    -----
+    Arrays (``F`` frames, grid ``(ny, nx)``): ``frames (F,)``, ``image_names (F,)``,
+    ``times (F,)`` in s (NaN unknown), ``x_px, y_px (ny, nx)``, ``u_px, v_px (F, ny, nx)``,
+    one ``(F, ny, nx)`` array per strain quantity named as the CSV columns (``strain_xx``,
+    ...), ``zncc (F, ny, nx)``, ``reason (F, ny, nx)`` int8, ``scale_mm_per_px`` (NaN if
+    unknown), ``settings`` and ``strain_settings`` (JSON text) and ``format_version``. Load with
+    ``numpy.load(path)``.
+    """
+    import tempfile
+    import zipfile
+
+    from numpy.lib.format import open_memmap
+
+    comps = _check_components(components)
+    p = Path(os.fspath(path))
+    if p.suffix != ".npz":
+        p = p.with_name(p.name + ".npz")
+    if not p.parent.is_dir():
+        raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
+                                f"writing '{p.name}'")
+    from .plot import _frame_indices
+
+    res, opened = _open(results)
+    try:
+        order = _frame_indices(frames, len(res))
+        F, (ny, nx) = len(order), res.shape
+        try:
+            tmp = Path(tempfile.mkdtemp(prefix=".partial-npz-", dir=p.parent))
+        except OSError as exc:
+            raise OSError(f"path: cannot write in '{p.parent}' ({exc.strerror or exc}); check "
+                          f"the folder permissions") from None
+        try:
+            names = ["u_px", "v_px", *(_column(c) for c in comps), "zncc"]
+            stacks = {nm: open_memmap(tmp / f"{nm}.npy", mode="w+", dtype=np.float64,
+                                      shape=(F, ny, nx)) for nm in names}
+            stacks["reason"] = open_memmap(tmp / "reason.npy", mode="w+", dtype=np.int8,
+                                           shape=(F, ny, nx))
+            strain_info = None
+            for i, k in enumerate(order):
+                f = res.field(k)
+                s = res.strain(k, window=window, measure=measure)
+                stacks["u_px"][i] = f.u
+                stacks["v_px"][i] = f.v
+                for nm, values in _strain_columns(s, comps).items():
+                    stacks[nm][i] = values
+                stacks["zncc"][i] = np.where(f.valid, f.zncc, np.nan)
+                stacks["reason"][i] = f.reason
+                if strain_info is None:
+                    strain_info = {"measure": s.measure, "window": s.window, "fit": s.fit,
+                                   "vsg_px": s.vsg, "step_px": s.step, "subset_px": s.subset,
+                                   "shear": "tensor (half the engineering shear angle)"}
+            for m in stacks.values():
+                m.flush()
+            del stacks
+            small = {
+                "frames": np.asarray(order, dtype=np.int64),
+                "image_names": np.asarray([str(res.image_names[k]) for k in order]),
+                "times": np.asarray([float(res.image_times[k]) for k in order]),
+                "x_px": np.asarray(res.grid_x, dtype=np.float64),
+                "y_px": np.asarray(res.grid_y, dtype=np.float64),
+                "scale_mm_per_px": np.float64(res.scale if res.scale is not None else np.nan),
+                "settings": np.array(json.dumps(res.settings, default=_jsonable)),
+                "strain_settings": np.array(json.dumps(strain_info, default=_jsonable)),
+                "format_version": np.array(1),
+            }
+            part = tmp / "archive.npz"
+            with zipfile.ZipFile(part, "w", compression=zipfile.ZIP_DEFLATED,
+                                 allowZip64=True) as z:
+                for nm, arr in small.items():
+                    with z.open(f"{nm}.npy", "w", force_zip64=True) as fh:
+                        np.lib.format.write_array(fh, np.asanyarray(arr), allow_pickle=False)
+                for nm in [*names, "reason"]:
+                    z.write(tmp / f"{nm}.npy", arcname=f"{nm}.npy")
+            os.replace(part, p)
+        except OSError as exc:
+            raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
+                          f"permissions and free space") from None
+        finally:
+            import shutil
+
+            shutil.rmtree(tmp, ignore_errors=True)
+        return p
+    finally:
+        if opened:
+            res.close()
+
+
+# VTK XML data types of the numpy types written
+_VTK_TYPES = {np.dtype("<f8"): "Float64", np.dtype("int8"): "Int8", np.dtype("uint8"): "UInt8"}
+
+
+def _vtk_array(values, name=None, components=1, indent="        "):
+    """A binary (base64) VTK XML ``DataArray``: a UInt32 byte count, then the data, encoded as
+    one base64 stream (VTK file formats, Kitware: "binary" inline data without compression)."""
+    import base64
+
+    arr = np.ascontiguousarray(values)
+    if arr.dtype.kind == "f":
+        arr = arr.astype("<f8")
+    data = arr.tobytes()
+    head = np.array([len(data)], dtype="<u4").tobytes()
+    attrs = f'type="{_VTK_TYPES[arr.dtype]}"'
+    if name is not None:
+        attrs += f' Name="{name}"'
+    if components != 1:
+        attrs += f' NumberOfComponents="{components}"'
+    return (f'{indent}<DataArray {attrs} format="binary">\n{indent}  '
+            f'{base64.b64encode(head + data).decode("ascii")}\n{indent}</DataArray>\n')
+
+
+def _xml_comment(text):
+    return "<!-- " + text.replace("--", "- -").replace("\n", " ") + " -->"
+
+
+def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONENTS, window=9,
+                   measure="green-lagrange", name="results"):
+    """Write a VTK time series: one structured grid per frame and a ``.pvd`` collection file.
+
+    ParaView opens the ``.pvd`` file as a time series (its time steps are the images' times
+    when all are known, else the frame numbers).
+
+    Parameters
+    ----------
+    results : str, os.PathLike or dic.store.Results
+    out_dir : str or os.PathLike
+        Folder for the files (created if missing).
+    frames, components, window, measure : optional
+        As for :func:`results_to_npz`.
+    name : str, optional
+        Stem of the collection file: ``<name>.pvd`` beside ``<name>_0000.vts``, ... .
+
+    Returns
+    -------
+    pathlib.Path
+        The ``.pvd`` collection file.
+
+    Notes
+    -----
+    Each ``.vts`` file is a VTK XML StructuredGrid (version 0.1, little-endian, binary data
+    inline as base64) on the grid of points of the reference image: points ``(x, y, 0)`` in mm
+    when the results file knows its scale, else in px (image coordinates: ``y`` points down,
+    so look from -z to see the image the right way up). Point data: ``displacement_mm`` (or
+    ``_px``, 3 components ``u, v, 0``; ParaView's Warp By Vector shows the deformed shape),
+    one array per strain quantity (``strain_xx``, ... as in the CSV columns), ``zncc`` and
+    ``reason`` (Int8, 0 = measured). NaN marks values that do not exist.
+
+    References
+    ----------
+    .. [1] Kitware, VTK File Formats (VTK User's Guide, "XML File Formats": StructuredGrid,
+       Collection), https://docs.vtk.org/en/latest/design_documents/VTKFileFormats.html
+    """
+    from .plot import _frame_indices
+
+    comps = _check_components(components)
+    if not isinstance(name, str) or not name or any(c in name for c in "/\\\0"):
+        raise ValueError(f"name: {name!r} is not a plain file stem; use e.g. 'results'")
+    res, opened = _open(results)
+    try:
+        order = _frame_indices(frames, len(res))
+        out = _out_folder(out_dir)
+        ny, nx = res.shape
+        scale = res.scale
+        unit = "mm" if scale is not None else "px"
+        factor = scale if scale is not None else 1.0
+        extent = f"0 {nx - 1} 0 {ny - 1} 0 0"
+        pts = np.zeros((ny * nx, 3))
+        pts[:, 0] = np.asarray(res.grid_x, dtype=np.float64).ravel() * factor
+        pts[:, 1] = np.asarray(res.grid_y, dtype=np.float64).ravel() * factor
+        points_xml = _vtk_array(pts, components=3)
+        times = np.asarray([float(res.image_times[k]) for k in order])
+        use_time = bool(np.isfinite(times).all())
+        entries = []
+        for k in order:
+            f = res.field(k)
+            s = res.strain(k, window=window, measure=measure)
+            disp = np.zeros((ny * nx, 3))
+            disp[:, 0] = np.asarray(f.u, dtype=np.float64).ravel() * factor
+            disp[:, 1] = np.asarray(f.v, dtype=np.float64).ravel() * factor
+            cols = _strain_columns(s, comps)
+            first = next(iter(cols))
+            arrays = [_vtk_array(disp, f"displacement_{unit}", 3)]
+            arrays += [_vtk_array(v.ravel(), nm) for nm, v in cols.items()]
+            arrays.append(_vtk_array(np.where(f.valid, f.zncc, np.nan).ravel(), "zncc"))
+            arrays.append(_vtk_array(np.asarray(f.reason, dtype=np.int8).ravel(), "reason"))
+            comment = (f"dic {__version__} export of frame {k} (image {res.image_names[k]}); "
+                       f"points and displacements in {unit}"
+                       + (f" ({scale:g} mm/px)" if scale is not None else "") + "; "
+                       + _strain_note(s) + "; NaN = no value; reason 0 = measured")
+            text = ('<?xml version="1.0"?>\n' + _xml_comment(comment) + "\n"
+                    '<VTKFile type="StructuredGrid" version="0.1" byte_order="LittleEndian">\n'
+                    f'  <StructuredGrid WholeExtent="{extent}">\n'
+                    f'    <Piece Extent="{extent}">\n'
+                    f'      <PointData Scalars="{first}" Vectors="displacement_{unit}">\n'
+                    + "".join(arrays) +
+                    "      </PointData>\n"
+                    "      <Points>\n" + points_xml + "      </Points>\n"
+                    "    </Piece>\n  </StructuredGrid>\n</VTKFile>\n")
+            fname = f"{name}_{k:04d}.vts"
+            _write_text(out / fname, lambda fh, text=text: fh.write(text))
+            step = f"{float(res.image_times[k]):.9g}" if use_time else str(k)
+            entries.append(f'    <DataSet timestep="{step}" group="" part="0" '
+                           f'file="{fname}"/>\n')
+        pvd = ('<?xml version="1.0"?>\n'
+               + _xml_comment(f"dic {__version__}: {len(order)} frames of "
+                              f"{Path(res.path).name}; time steps are "
+                              + ("image times in s" if use_time else "frame numbers")) + "\n"
+               '<VTKFile type="Collection" version="0.1" byte_order="LittleEndian">\n'
+               "  <Collection>\n" + "".join(entries) + "  </Collection>\n</VTKFile>\n")
+        return _write_text(out / f"{name}.pvd", lambda fh: fh.write(pvd))
+    finally:
+        if opened:
+            res.close()
+
+
+def export_results(results, out_dir, *, format="csv", frames=None,
+                   components=DEFAULT_COMPONENTS, window=9, measure="green-lagrange"):
+    """Export a results file as CSV tables, one NumPy archive, or a VTK time series.
+
+    Parameters
+    ----------
+    results : str, os.PathLike or dic.store.Results
+    out_dir : str or os.PathLike
+        Folder for the files (created if missing).
+    format : {'csv', 'npz', 'vtk'}, optional
+        ``csv``: ``frame_0000.csv``, ... (:func:`frame_to_csv`); ``npz``: ``results.npz``
+        (:func:`results_to_npz`); ``vtk``: ``results.pvd`` with ``results_0000.vts``, ...
+        (:func:`results_to_vtk`).
+    frames : sequence of int or slice, optional
+        Frames to export (default all completed frames).
+    components : sequence of str or str, optional
+        Strain quantities, e.g. ``"xx,yy,xy"`` (xy is tensor shear).
+    window, measure : optional
+        As for :func:`dic.strain_field`.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written (for VTK the ``.pvd`` file last).
+
+    Raises
+    ------
+    ValueError
+        Unknown format, component or measure (the message lists the valid ones), a frame that
+        does not exist, an empty results file.
+    OSError
+        Unreadable results file or an output folder that cannot be written.
+    """
+    from .plot import _frame_indices
+    from .strain import canonical_measure
+
+    fmt = format.strip().lower() if isinstance(format, str) else None
+    if fmt not in EXPORT_FORMATS:
+        raise ValueError(f"format: unknown {format!r}; use one of: {', '.join(EXPORT_FORMATS)}")
+    comps = _check_components(components)
+    measure = canonical_measure(measure)
+    res, opened = _open(results)
+    try:
+        order = _frame_indices(frames, len(res))
+        out = _out_folder(out_dir)
+        if fmt == "csv":
+            return [frame_to_csv(res, k, out / f"frame_{k:04d}.csv", components=comps,
+                                 window=window, measure=measure) for k in order]
+        if fmt == "npz":
+            return [results_to_npz(res, out / "results.npz", frames=order, components=comps,
+                                   window=window, measure=measure)]
+        pvd = results_to_vtk(res, out, frames=order, components=comps, window=window,
+                             measure=measure)
+        return [out / f"results_{k:04d}.vts" for k in order] + [pvd]
+    finally:
+        if opened:
+            res.close()

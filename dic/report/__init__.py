@@ -1,0 +1,134 @@
+"""The report: one self-contained HTML file and a PDF version of the same content.
+
+Sections (left out when there is nothing to say): overview; analysis settings in the iDICs
+reporting form; measurement uncertainty (from a metrology self-check, if given); strain maps at
+chosen frames; the strain measures compared; gauge readings (if given); tensile results with
+the standards that define them (if given); data quality (measured points per frame, reference
+changes, ZNCC map); cautions.
+
+Public API
+----------
+write_report
+    Results file in, ``report.html`` and ``report.pdf`` out.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+from ._content import CAUTIONS, SECTION_TITLES, build_document
+
+__all__ = ["CAUTIONS", "REPORT_NAMES", "SECTION_TITLES", "write_report"]
+
+#: file names written into the output folder
+REPORT_NAMES = ("report.html", "report.pdf")
+
+
+def _out_folder(out_dir):
+    p = Path(os.fspath(out_dir))
+    if p.exists() and not p.is_dir():
+        raise FileExistsError(f"out_dir: '{p}' is a file; give a folder for the report")
+    try:
+        p.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OSError(f"out_dir: cannot create '{p}' ({exc.strerror or exc}); choose a folder "
+                      f"you can write to") from None
+    if not os.access(p, os.W_OK | os.X_OK):
+        raise PermissionError(f"out_dir: cannot write into '{p}' (permission denied); choose "
+                              f"a folder you can write to")
+    return p
+
+
+def _replace(target, write):
+    tmp = target.with_name(f".partial-{os.getpid()}-{target.name}")
+    try:
+        write(tmp)
+        os.replace(tmp, target)
+    except OSError as exc:
+        try:
+            tmp.unlink()
+        except OSError:
+            pass
+        raise OSError(f"out_dir: cannot write '{target}' ({exc.strerror or exc}); check the "
+                      f"folder permissions and free space") from None
+    return target
+
+
+def write_report(results_path, out_dir, *, frames=None, window=9, measure="green-lagrange",
+                 gauges=None, tensile=None, metrology=None, title=None):
+    """Write the report of a results file as one HTML file and one PDF file.
+
+    The HTML file is self-contained: styles inline, figures embedded as PNG data, no address
+    outside the file (a Content-Security-Policy in the page forbids any loading), so it reads
+    the same offline and can be mailed as it is. The PDF holds the same text, tables and
+    figures on A4 pages.
+
+    Parameters
+    ----------
+    results_path : str or os.PathLike
+        A results file (HDF5) from :func:`dic.track` or ``dic run``.
+    out_dir : str or os.PathLike
+        Folder for ``report.html`` and ``report.pdf`` (created if missing; existing reports
+        there are replaced).
+    frames : sequence of int, optional
+        Frames whose strain maps are shown (negative numbers count from the end); by default
+        about a third and two thirds of the way through and the last frame.
+    window : int, optional
+        Strain window in grid points (odd, at least 3).
+    measure : str, optional
+        Strain measure of the maps (see :func:`dic.strain.canonical_measure`).
+    gauges : sequence, optional
+        Gauge histories, each with ``name``, ``frames``, ``values`` and ``unit`` (see
+        :func:`dic.plot.gauge_histories`); those that also carry their geometry (``points``,
+        or ``p0`` and ``p1``) are drawn on the maps.
+    tensile : object, optional
+        Tensile results: an object with ``to_dict()`` (or ``rows``, a sequence of
+        ``(quantity, value[, standard])``), or a mapping; values may be plain numbers (units
+        read from key endings such as ``_mpa``, ``_gpa``, ``_percent``) or mappings with
+        ``value``, ``unit``, ``label`` and ``standard``. A stress-strain figure is taken from
+        its ``figure`` attribute or method when it has one.
+    metrology : object, optional
+        Self-check and noise results with ``to_dict()`` (or a mapping); shown in full, and
+        noise floors and spatial resolution are picked out by their key names for the
+        settings table.
+    title : str, optional
+        Report title; by default from the results file's name.
+
+    Returns
+    -------
+    html_path, pdf_path : pathlib.Path
+
+    Raises
+    ------
+    ValueError
+        An empty or foreign results file, a frame that does not exist, an unknown measure,
+        a bad window, or optional inputs of the wrong shape.
+    OSError
+        A missing or unreadable results file, or an output folder that cannot be written.
+
+    References
+    ----------
+    .. [1] International Digital Image Correlation Society, A Good Practices Guide for Digital
+       Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (reporting of analysis settings,
+       VSG, noise floor, spatial resolution).
+    """
+    from ..store import Results
+    from ._html import render_html
+    from ._pdf import render_pdf
+
+    res = Results.open(results_path)
+    try:
+        if len(res) == 0:
+            raise ValueError(f"results: '{res.path}' holds no completed frames; track images "
+                             f"into it first")
+        out = _out_folder(out_dir)
+        doc = build_document(res, frames=frames, window=window, measure=measure,
+                             gauges=gauges, tensile=tensile, metrology=metrology, title=title)
+    finally:
+        res.close()
+    text = render_html(doc)
+    html_path = _replace(out / REPORT_NAMES[0],
+                         lambda p: p.write_text(text, encoding="utf-8", newline="\n"))
+    pdf_path = _replace(out / REPORT_NAMES[1], lambda p: render_pdf(doc, p))
+    return html_path, pdf_path

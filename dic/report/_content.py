@@ -1,0 +1,714 @@
+"""What the report says: sections built from a results file and the optional inputs."""
+
+from __future__ import annotations
+
+import dataclasses
+import datetime as _dt
+import io
+import math
+import re
+from collections.abc import Mapping
+from pathlib import Path
+
+import numpy as np
+
+from .. import plot
+from .._version import __version__
+from ._document import Document, FigureBlock, Paragraph, Section, Table
+
+__all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
+
+#: section ids and titles, in report order (sections without content are left out)
+SECTION_TITLES = {
+    "overview": "Overview",
+    "settings": "Analysis settings",
+    "uncertainty": "Measurement uncertainty",
+    "maps": "Strain maps",
+    "measures": "Strain measures compared",
+    "gauges": "Gauge readings",
+    "tensile": "Tensile results",
+    "quality": "Data quality",
+    "cautions": "Cautions",
+}
+
+#: the cautions every report carries (project design, section 9)
+CAUTIONS = (
+    "Optical strain from this software is not a certified extensometer reading. Where strain "
+    "results are used for certification or acceptance, verify the optical set-up as an "
+    "extensometer under the applicable standard (ISO 9513 or ASTM E83 class) and the "
+    "laboratory's accredited practice.",
+    "Without that verification the results are indicative only.",
+    "Test-machine safety (guards, eye protection, the energy released at fracture, intense "
+    "lighting) follows local rules and the machine maker's instructions, not this report.",
+)
+
+#: figure resolution, dots per inch (the same PNG serves the HTML and the PDF)
+FIGURE_DPI = 120
+#: largest number of frames listed one by one in the data-quality table
+_MAX_ROWS = 60
+#: strain components drawn at every chosen frame (xy is tensor shear)
+MAP_COMPONENTS = ("xx", "yy", "xy")
+
+# quantity keywords -> the standard that defines them
+_STANDARDS = (
+    (("poisson",), "ASTM E132"),
+    (("modulus", "young"), "ASTM E111"),
+    (("proof", "rp0", "rp02", "yield", "tensile strength", "tensile_strength", "rm",
+      "uniform elongation", "uniform_elongation", "ag", "elongation", "a_percent"),
+     "ISO 6892-1"),
+    (("n value", "n_value", "hardening", "strain hardening", "swift", "hollomon"), "ISO 10275"),
+    (("r value", "r_value", "anisotropy", "lankford"), "ISO 10113"),
+    (("extensometer", "class"), "ISO 9513"),
+)
+# unit suffixes of keys -> unit text
+_UNIT_SUFFIX = {"px": "px", "mm": "mm", "microstrain": "\u00b5\u03b5", "ue": "\u00b5\u03b5",
+                "percent": "%", "pct": "%", "s": "s", "kn": "kN", "n": "N", "mpa": "MPa",
+                "gpa": "GPa", "deg": "\u00b0", "mm_per_px": "mm/px"}
+
+
+# --------------------------------------------------------------------------------------------
+# small formatting helpers
+# --------------------------------------------------------------------------------------------
+def _fmt(value, digits=4):
+    """A value as short text."""
+    if value is None:
+        return "\u2013"
+    if isinstance(value, (bool, np.bool_)):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return str(int(value))
+    if isinstance(value, (float, np.floating)):
+        v = float(value)
+        if not math.isfinite(v):
+            return "not known" if math.isnan(v) else str(v)
+        if v == 0 or 1e-3 <= abs(v) < 1e6:  # plain notation, ``digits`` significant digits
+            return np.format_float_positional(v, precision=digits, unique=False,
+                                              fractional=False, trim="-")
+        return f"{v:.{digits}g}"
+    if isinstance(value, np.ndarray):
+        flat = value.ravel()
+        if flat.size > 8 and flat.dtype.kind in "fiu":
+            return (f"{flat.size} values, {_fmt(np.nanmin(flat))} to {_fmt(np.nanmax(flat))}"
+                    if np.isfinite(flat).any() else f"{flat.size} values, none known")
+        value = flat.tolist()
+    if isinstance(value, (list, tuple)):
+        items = [_fmt(v) for v in value[:8]]
+        return ", ".join(items) + (f", \u2026 ({len(value)} in all)" if len(value) > 8 else "")
+    return str(value)
+
+
+def _words(key):
+    """``proof_strength_mpa`` -> (``Proof strength``, ``MPa``)."""
+    parts = str(key).strip().split("_")
+    unit = ""
+    for n in (3, 2, 1):
+        tail = "_".join(parts[-n:]).lower()
+        if len(parts) > n and tail in _UNIT_SUFFIX:
+            unit = _UNIT_SUFFIX[tail]
+            parts = parts[:-n]
+            break
+    text = " ".join(p for p in parts if p)
+    return (text[:1].upper() + text[1:]) if text else str(key), unit
+
+
+def _with_unit(value, unit):
+    text = _fmt(value)
+    return f"{text} {unit}" if unit and text not in ("\u2013", "not known") else text
+
+
+def _standard_for(text):
+    t = str(text).lower().replace("-", " ")
+    words = set(t.replace("_", " ").split())
+    for keys, std in _STANDARDS:
+        for k in keys:
+            if (" " in k or "_" in k) and k.replace("_", " ") in t.replace("_", " "):
+                return std
+            if k in words or (len(k) > 3 and k in t):
+                return std
+    return ""
+
+
+def _as_mapping(obj, name):
+    """A plain mapping from a ``to_dict()`` / ``as_dict()`` object, a dataclass or a mapping."""
+    if obj is None:
+        return None
+    for attr in ("to_dict", "as_dict"):
+        method = getattr(obj, attr, None)
+        if callable(method):
+            obj = method()
+            break
+    else:
+        if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+            obj = dataclasses.asdict(obj)
+    if not isinstance(obj, Mapping):
+        raise ValueError(f"{name}: expected an object with to_dict() or a mapping of names to "
+                         f"values; got {type(obj).__name__}")
+    return dict(obj)
+
+
+def _flatten(mapping, prefix=""):
+    out = {}
+    for key, value in mapping.items():
+        k = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            out.update(_flatten(value, k + " / "))
+        else:
+            out[k] = value
+    return out
+
+
+def _png(fig):
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=FIGURE_DPI)
+    data = buf.getvalue()
+    # the PNG header holds the true pixel size (IHDR: width, height as big-endian uint32)
+    w, h = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
+    return data, w, h
+
+
+def _figure(fig, caption, alt):
+    data, w, h = _png(fig)
+    return FigureBlock(png=data, width=w, height=h, caption=caption, alt=alt)
+
+
+def _mm(px, scale):
+    return f" ({px * scale:.3g} mm)" if scale is not None and px is not None else ""
+
+
+# --------------------------------------------------------------------------------------------
+# sections
+# --------------------------------------------------------------------------------------------
+def _overview(res, info):
+    n, nf = len(res), res.n_frames
+    names = res.image_names
+    times = np.asarray(res.image_times[:n], dtype=np.float64)
+    blocks = [Paragraph(
+        f"Displacement and strain fields measured by digital image correlation on {n} "
+        f"image{'s' if n != 1 else ''} ({Path(names[0]).name} to {Path(names[n - 1]).name}) "
+        f"of the results file {res.path.name}. Strain is {info['measure_title']} strain from "
+        f"pointwise least-squares fits over {info['window']} \u00d7 {info['window']} grid "
+        f"points; shear xy is tensor shear, half the engineering shear angle.")]
+    if n < nf:
+        blocks.append(Paragraph(
+            f"The results file is incomplete: {n} of {nf} planned frames were analysed. This "
+            f"report covers the completed frames only.", "caution"))
+    rows = [("Results file", str(res.path)),
+            ("Results file made", f"{res.created} by dic {res.package_version}"),
+            ("Frames analysed", f"{n} of {nf}"),
+            ("Images", f"{Path(names[0]).name} \u2026 {Path(names[n - 1]).name}")]
+    if np.isfinite(times).any():
+        rows.append(("Image times", f"{_fmt(np.nanmin(times))} s to {_fmt(np.nanmax(times))} s"))
+    ny, nx = res.shape
+    rows.append(("Grid of points", f"{ny} \u00d7 {nx} points, step {res.settings.get('step')} "
+                                   f"px{_mm(res.settings.get('step'), res.scale)}"))
+    rows.append(("Scale", f"{res.scale:g} mm/px" if res.scale is not None else
+                 "not known: lengths are in pixels"))
+    for comp in MAP_COMPONENTS:
+        lo, hi = info["limits"][comp]
+        factor, symbol, _ = plot._unit(info["units"][comp], "strain", max(abs(lo), abs(hi)))
+        rows.append((f"Strain {comp}, range shown",
+                     f"\u00b1{hi * factor:.3g} {symbol} (99.5th percentile of |{comp}| over "
+                     f"the frames analysed)"))
+    blocks.append(Table(rows=rows))
+    return blocks
+
+
+def _settings(res, info, metro):
+    s = res.settings
+    scale = res.scale
+    subset, step = s.get("subset"), s.get("step")
+    vsg = info["vsg"]
+    shape = s.get("shape_function", "not recorded")
+    shape_text = {"affine": "affine (first order: translation and displacement gradients)",
+                  "quadratic": "quadratic (second order)"}.get(shape, str(shape))
+    interp = s.get("interpolation", "not recorded")
+    updates = info["updates"]
+    ref = s.get("reference", 0)
+    rows = [
+        ("Software", f"dic {__version__} (results written by dic {res.package_version})"),
+        ("Image filtering", "none (images used as recorded)"),
+        ("Subset size", f"{subset} px{_mm(subset, scale)}" if subset else "not recorded"),
+        ("Step (grid spacing)", f"{step} px{_mm(step, scale)}" if step else "not recorded"),
+        ("Subset shape function", shape_text),
+        ("Matching criterion", f"{s.get('criterion', 'ZNSSD')} solved by "
+                               f"{s.get('solver', 'IC-GN')}; points with ZNCC below "
+                               f"{_fmt(s.get('min_zncc'))} rejected"),
+        ("Interpolation", f"{interp} B-spline" if interp in ("cubic", "quintic") else
+         str(interp)),
+        ("Reference image", f"image {ref} ({Path(info['reference_name']).name})"
+         if info["reference_name"] else f"image {ref}"),
+        ("Reference updates", ("none" if updates.size == 0 else
+                               f"at frame{'s' if updates.size > 1 else ''} "
+                               f"{_fmt(updates.tolist())}; displacements carried back to the "
+                               f"first reference (Lagrangian)")),
+        ("Strain calculation", f"pointwise least squares, {info['fit']} fit of the "
+                               f"displacements"),
+        ("Strain window", f"{info['window']} \u00d7 {info['window']} points"),
+        ("Virtual strain gauge (VSG)", (f"{vsg:g} px{_mm(vsg, scale)} = (window \u2212 1) "
+                                        f"\u00d7 step + subset" if np.isfinite(vsg) else
+                                        "not known (subset size not recorded)")),
+        ("Strain measure", f"{info['measure_title']}; xy is tensor shear (half the "
+                           f"engineering shear angle)"),
+        ("Strain post-filtering", "none"),
+        ("Region of interest", "whole image" if res.roi_mask is None else
+         f"mask of {int(res.roi_mask.sum())} of {res.roi_mask.size} pixels"),
+        ("Image scale", f"{scale:g} mm/px" if scale is not None else "not known"),
+    ]
+    found = _uncertainty_figures(metro)
+    for label in ("Displacement noise floor", "Strain noise floor", "Spatial resolution"):
+        rows.append((label, found.get(label, "not assessed for this analysis")))
+    rows.append(("Camera, lens, lighting, pattern", "not recorded in the results file; add "
+                                                    "them to the test record"))
+    return [Paragraph("The settings below follow the reporting form of the iDICs Good "
+                      "Practices Guide for Digital Image Correlation (2018, "
+                      "doi:10.32720/idics/gpg.ed1)."),
+            Table(rows=rows, header=("Parameter", "Value"))]
+
+
+def _is_short(value):
+    if isinstance(value, np.ndarray):
+        return value.size <= 3
+    if isinstance(value, (list, tuple)):
+        return len(value) <= 3 and all(not isinstance(v, (list, tuple, dict, np.ndarray))
+                                       for v in value)
+    return True
+
+
+def _number_text(key, value):
+    """A metrology value as text, with a unit guessed from its key where it has none."""
+    label, unit = _words(key.rsplit(" / ", 1)[-1])
+    k = key.lower()
+    nums = np.atleast_1d(np.asarray(value, dtype=object))
+    numeric = all(isinstance(v, (int, float, np.integer, np.floating)) and not isinstance(
+        v, bool) for v in nums)
+    if numeric and not unit:
+        arr = np.asarray(nums, dtype=np.float64)
+        if "strain" in k and "resolution" not in k and np.all(np.abs(arr[np.isfinite(arr)])
+                                                              < 0.05):
+            return ", ".join(_fmt(v * 1e6) for v in arr) + " \u00b5\u03b5"
+        if any(w in k for w in ("displacement", "resolution", "bias", "vsg", "period")):
+            return _fmt(value) + " px"
+    return _with_unit(value, unit)
+
+
+def _uncertainty_figures(items):
+    """Noise floors and spatial resolutions picked out of metrology mappings by key words."""
+    found = {}
+    for item in items:
+        for key, value in item["rows"].items():
+            k = key.lower()
+            if not isinstance(value, (int, float, np.integer, np.floating, list, tuple,
+                                      np.ndarray)) or isinstance(value, bool):
+                continue
+            if "resolution" in k and "flag" not in k:
+                label = "Spatial resolution"
+            elif "noise" in k and "strain" in k and "predicted" not in k:
+                label = "Strain noise floor"
+            elif "noise" in k and ("disp" in k or "_px" in k) and "predicted" not in k:
+                label = "Displacement noise floor"
+            else:
+                continue
+            found.setdefault(label, []).append(f"{_number_text(key, value)} ({key})")
+    return {label: "; ".join(texts) for label, texts in found.items()}
+
+
+def _metrology_items(metrology):
+    """Each metrology input as ``{title, rows, summary, figure}``."""
+    from matplotlib.figure import Figure
+
+    objs = list(metrology) if isinstance(metrology, (list, tuple)) else [metrology]
+    items = []
+    for obj in objs:
+        summary = getattr(obj, "summary", None)
+        summary = summary() if callable(summary) else summary
+        try:
+            mapping = _as_mapping(obj, "metrology")
+        except ValueError:
+            if not isinstance(summary, str):
+                raise
+            mapping = {}
+        rows = {k: v for k, v in _flatten(mapping).items() if _is_short(v)}
+        fig = getattr(obj, "figure", None)
+        if callable(fig) and not isinstance(fig, Figure):
+            try:
+                fig = fig()
+            except TypeError:
+                fig = None
+        name = type(obj).__name__
+        title = "" if isinstance(obj, Mapping) else " ".join(
+            re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize()
+        items.append({"title": title, "rows": rows,
+                      "summary": summary if isinstance(summary, str) else "",
+                      "figure": fig if isinstance(fig, Figure) else None})
+    return items
+
+
+def _uncertainty(items):
+    blocks = [Paragraph("As assessed by the noise measurements and self-check supplied with "
+                        "this report. The noise floor is the scatter of a quantity measured "
+                        "with no deformation; the spatial resolution is the shortest "
+                        "wavelength of a displacement or strain pattern that is still measured "
+                        "without more than 10 % loss of amplitude (iDICs 2018; Reu et al., "
+                        "Exp. Mech. 62 (2022) 639).")]
+    for item in items:
+        if item["summary"]:
+            for line in item["summary"].splitlines():
+                if line.strip():
+                    blocks.append(Paragraph(line.strip(), "note"))
+        rows = []
+        for key, value in item["rows"].items():
+            label, _ = _words(key.rsplit(" / ", 1)[-1])
+            if " / " in key:
+                label = f"{key.rsplit(' / ', 1)[0]} / {label}"
+            rows.append((label, _number_text(key, value)))
+        if rows:
+            blocks.append(Table(rows=rows, header=("Quantity", "Value"),
+                                caption=item["title"]))
+        if item["figure"] is not None:
+            blocks.append(_figure(item["figure"], f"{item['title'] or 'Metrology'}: measured "
+                                                  f"and expected behaviour.",
+                                  item["title"] or "Metrology figure"))
+    return blocks
+
+
+def _frame_label(res, k):
+    name = Path(res.image_names[k]).name
+    t = float(res.image_times[k])
+    return f"frame {k} ({name}" + (f", t = {t:.4g} s" if math.isfinite(t) else "") + ")"
+
+
+def _maps(res, info, chosen, shapes):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    blocks = [Paragraph(
+        f"Strain components xx, yy and xy (tensor shear) at {len(chosen)} frame"
+        f"{'s' if len(chosen) > 1 else ''}, {info['measure_title']} strain, VSG "
+        f"{_fmt(info['vsg'])} px. Each component keeps the same colour scale in every frame "
+        f"(the 99.5th percentile of its absolute value over all frames analysed); values "
+        f"beyond it take the end colours. Red is extension, blue contraction. Areas left "
+        f"blank were not measured.")]
+    ref_image = plot._find_image(res, None)
+    for k in chosen:
+        s = res.strain(k, window=info["window"], measure=info["measure"])
+        img = plot._find_image(res, k)
+        config = "deformed" if img is not None else "reference"
+        if img is None:
+            img = ref_image
+        field = res.field(k)
+        view = plot._grid_view(res.grid_x, res.grid_y, res.settings.get("step") or 1)
+        w, h = abs(view[1] - view[0]), abs(view[2] - view[3])
+        wide = w >= 1.6 * h
+        if wide:
+            map_h = 7.2 * h / w
+            size = (8.0, 3 * (map_h + 1.7) + 0.45)
+        else:
+            size = (13.0, 3.6 * h / w + 1.6)
+        fig = Figure(figsize=size, layout="constrained")
+        FigureCanvasAgg(fig)
+        axes = fig.subplots(3, 1) if wide else fig.subplots(1, 3)
+        for ax, comp in zip(axes, MAP_COMPONENTS):
+            plot.strain_map(s, img, component=comp, field=field, configuration=config, ax=ax,
+                            limits=info["limits"][comp], units=info["units"][comp],
+                            scale=res.scale, gauges=shapes, crop=True,
+                            title=f"{comp}" + (" (tensor shear)" if comp == "xy" else ""))
+        fig.suptitle(f"{info['measure_title']} strain, {_frame_label(res, k)}", fontsize=11)
+        where = ("drawn on the frame's own image, following the specimen (deformed "
+                 "configuration)" if config == "deformed" else
+                 "drawn on the reference grid" + (" over the reference image"
+                                                  if img is not None else ""))
+        blocks.append(_figure(
+            fig, f"Strain xx, yy and xy at {_frame_label(res, k)}, {where}; "
+                 f"{s.n_valid} of {s.xx.size} points have a strain.",
+            f"Maps of strain xx, yy and xy at frame {k}"))
+    return blocks
+
+
+def _measures(res, info, k):
+    s = res.strain(k, window=info["window"], measure=info["measure"])
+    tops = {c: plot._robust_top(plot._quantity_values(s, c)) for c in ("xx", "yy")}
+    comp = max(tops, key=tops.get)
+    img = plot._find_image(res, k)
+    config = "deformed" if img is not None else "reference"
+    if img is None:
+        img = plot._find_image(res, None)
+    fig = plot.measure_comparison(s, img, component=comp, field=res.field(k),
+                                  configuration=config, scale=res.scale, crop=True)
+    share = plot._quantity_values(s, "nonlinear_share")
+    share = share[np.isfinite(share)]
+    text = (f"Strain {comp} (the larger normal component) at {_frame_label(res, k)} as "
+            f"Green-Lagrange, infinitesimal and Hencky strain from the same deformation "
+            f"gradients, on one colour scale, and the nonlinear share of Green-Lagrange strain.")
+    if share.size:
+        med = float(np.median(share))
+        text += (f" The median nonlinear share is {100 * med:.2g} %: "
+                 + ("the small-strain (infinitesimal) measure would misstate the strain by "
+                    "more than 1 % of its value, so use a finite-strain measure."
+                    if med > 0.01 else "small strains, where the measures agree closely."))
+    return [_figure(fig, text, f"Strain {comp} in three measures and the nonlinear share")]
+
+
+def _gauges(res, gauges):
+    fig = plot.gauge_histories(gauges, times=np.asarray(res.image_times[:len(res)]))
+    rows = []
+    for g in gauges:
+        values = np.asarray(g.values, dtype=np.float64).ravel()
+        frames = np.asarray(g.frames).ravel()
+        unit = str(getattr(g, "unit", "") or "").strip()
+        plain = unit.lower() in plot._PLAIN_STRAIN_UNITS
+        f, u = (100.0, "%") if plain else (1.0, unit)
+        ok = np.isfinite(values)
+        last = _with_unit(values[ok][-1] * f, u) if ok.any() else "no reading"
+        big = _with_unit(np.max(np.abs(values[ok])) * f, u) if ok.any() else "\u2013"
+        rows.append((str(g.name), f"{int(ok.sum())} of {frames.size}", last, big))
+    return [_figure(fig, "Gauge readings frame by frame (gauges drawn on the strain maps "
+                         "where they carry their geometry).", "Gauge readings"),
+            Table(rows=rows, header=("Gauge", "Frames read", "Last reading",
+                                     "Largest magnitude"))]
+
+
+def _tensile_content(tensile):
+    """``(rows, notes, cautions)``: rows ``(quantity, value, standard, how found)``."""
+    rows_attr = getattr(tensile, "rows", None)
+    if callable(rows_attr):
+        rows_attr = rows_attr()
+    if rows_attr is not None and not isinstance(tensile, Mapping):
+        rows = []
+        for r in rows_attr:
+            cells = [_fmt(c) for c in (r if isinstance(r, (list, tuple)) else [r])]
+            cells += [""] * (4 - len(cells))
+            if not cells[2]:
+                cells[2] = _standard_for(cells[0])
+            rows.append(tuple(cells[:4]))
+        return rows, [], []
+    mapping = _as_mapping(tensile, "tensile")
+    rows, notes, cautions = [], [], []
+
+    def walk(m, prefix):
+        for key, value in m.items():
+            label, unit = _words(key)
+            label = f"{prefix}{label}"
+            lk = str(key).lower()
+            if isinstance(value, Mapping) and "value" in value:
+                name = str(value.get("name") or value.get("label") or label)
+                sym = value.get("key")
+                if sym and str(sym) not in name:
+                    name += f" ({sym})"
+                unit = str(value.get("unit") or unit)
+                unit = "" if unit in ("-", "1") else unit
+                std = str(value.get("standard") or _standard_for(f"{key} {name}"))
+                how = str(value.get("method") or "")
+                fr = value.get("fit_range")
+                if isinstance(fr, (list, tuple)) and len(fr) == 2 and all(
+                        isinstance(v, (int, float)) for v in fr):
+                    how += (f" (data from {_fmt(fr[0])} to {_fmt(fr[1])} "
+                            f"{value.get('range_unit', '')})").replace(" )", ")")
+                if value.get("note"):
+                    how += f"; {value['note']}"
+                rows.append((name, _with_unit(value["value"], unit), std, how.strip("; ")))
+            elif isinstance(value, Mapping):
+                walk(value, "" if lk in ("values", "results") else f"{label} / ")
+            elif lk in ("caution", "cautions"):
+                cautions.extend(value if isinstance(value, (list, tuple)) else [value])
+            elif lk in ("notes", "note"):
+                notes.extend(value if isinstance(value, (list, tuple)) else [value])
+            elif lk == "software":
+                continue
+            elif isinstance(value, str) and len(value) > 60:
+                notes.append(f"{label}: {value}")
+            else:
+                rows.append((label, _with_unit(value, unit), _standard_for(key), ""))
+
+    walk(mapping, "")
+    return rows, [str(n) for n in notes], [str(c) for c in cautions]
+
+
+def _tensile_figure(tensile):
+    from matplotlib.figure import Figure
+
+    if isinstance(tensile, Figure):
+        return tensile
+    for attr in ("figure", "stress_strain_figure", "plot_stress_strain", "plot"):
+        obj = getattr(tensile, attr, None)
+        if obj is None:
+            continue
+        if callable(obj) and not isinstance(obj, Figure):
+            try:
+                obj = obj()
+            except TypeError:  # needs arguments we cannot guess
+                continue
+        if isinstance(obj, tuple) and obj and isinstance(obj[0], Figure):
+            obj = obj[0]
+        if isinstance(obj, Figure):
+            return obj
+    return None
+
+
+def _tensile(tensile):
+    from matplotlib.figure import Figure
+
+    blocks = [Paragraph(
+        "Tensile properties computed from the force log and the optical strain. Each "
+        "quantity is defined as in the standard named beside it: ISO 6892-1 (proof strength, "
+        "tensile strength, uniform elongation), ASTM E111 (modulus), ASTM E132 (Poisson's "
+        "ratio), ISO 10275 (strain-hardening exponent n), ISO 10113 (plastic strain ratio r). "
+        "Whether the test as a whole meets a standard depends on the specimen, the machine and "
+        "the extensometer verification (see Cautions).")]
+    if not isinstance(tensile, Figure):
+        rows, notes, cautions = _tensile_content(tensile)
+        if rows:
+            if any(r[3] for r in rows):
+                blocks.append(Table(rows=rows, header=("Quantity", "Value", "Standard",
+                                                       "How found")))
+            else:
+                blocks.append(Table(rows=[r[:3] for r in rows],
+                                    header=("Quantity", "Value", "Standard")))
+        blocks += [Paragraph(n, "note") for n in notes]
+        blocks += [Paragraph(c, "caution") for c in cautions]
+    fig = _tensile_figure(tensile)
+    if fig is not None:
+        blocks.append(_figure(fig, "Stress-strain curve with the fitted lines.",
+                              "Stress-strain curve"))
+    return blocks
+
+
+def _quality(res, info, k_last):
+    counts, total, median = plot.valid_counts(res)
+    n = len(res)
+    times = np.asarray(res.image_times[:n], dtype=np.float64)
+    fig = plot.valid_points_plot(counts, total=total, reference_updates=info["updates"],
+                                 times=times)
+    share = 100.0 * counts / total
+    worst = int(np.argmin(counts))
+    blocks = [Paragraph(
+        f"Measured points per frame out of {total} inside the region of interest: "
+        f"{int(counts.min())} to {int(counts.max())} ({share.min():.1f} % to "
+        f"{share.max():.1f} %), fewest at frame {worst}. A point counts as measured when its "
+        f"subset matched with a ZNCC of at least {_fmt(res.settings.get('min_zncc'))}; every "
+        f"other point is left empty (NaN) in the results, never filled in."),
+        _figure(fig, "Measured points per frame; dotted lines mark a change of reference "
+                     "image.", "Measured points per frame")]
+    field = res.field(k_last)
+    fig_q, _ = plot.quality_map(field, plot._find_image(res, None), scale=res.scale,
+                                crop=True)
+    blocks.append(_figure(fig_q, f"ZNCC of every match at {_frame_label(res, k_last)}, on "
+                                 f"the reference grid.", f"ZNCC map at frame {k_last}"))
+    reasons = {k: v for k, v in field.reason_counts().items() if k not in ("measured",
+                                                                           "outside_roi")}
+    if reasons:
+        from ..field import Reason
+
+        text = "; ".join(f"{Reason.describe(Reason[k.upper()])}: {v}"
+                         for k, v in reasons.items())
+        blocks.append(Paragraph(f"Points not measured at frame {k_last} (inside the region of "
+                                f"interest), by reason: {text}.", "note"))
+    shown = range(n) if n <= _MAX_ROWS else sorted(
+        set(np.argsort(counts)[:_MAX_ROWS // 2].tolist()) | set(info["updates"].tolist()))
+    refs = np.asarray(res.reference_indices)
+    rows = [(str(k), Path(res.image_names[k]).name, f"{int(counts[k])}",
+             f"{share[k]:.1f}", f"{median[k]:.5f}" if np.isfinite(median[k]) else "\u2013",
+             str(int(refs[k])))
+            for k in shown]
+    caption = ("" if n <= _MAX_ROWS else
+               f"The {len(rows)} frames with the fewest measured points and the reference "
+               f"changes, of {n}.")
+    blocks.append(Table(rows=rows, header=("Frame", "Image", "Measured points", "%",
+                                           "Median ZNCC", "Reference image"),
+                        caption=caption))
+    return blocks
+
+
+# --------------------------------------------------------------------------------------------
+# the whole document
+# --------------------------------------------------------------------------------------------
+def _default_frames(n):
+    if n <= 1:
+        return [0]
+    if n <= 4:
+        return list(range(1, n))
+    return sorted({round(n / 3), round(2 * n / 3), n - 1})
+
+
+def _gauge_geometry(gauges):
+    shapes = []
+    for g in gauges or ():
+        try:
+            shapes.extend({"points": pts, "label": label, "closed": closed}
+                          for pts, label, closed in plot._gauge_shapes([g]))
+        except ValueError:
+            continue  # a point probe or a gauge without a drawable geometry
+    return shapes
+
+
+def build_document(res, *, frames=None, window=9, measure="green-lagrange", gauges=None,
+                   tensile=None, metrology=None, title=None):
+    """The report of an open results file as a :class:`Document`.
+
+    Parameters are those of :func:`dic.report.write_report` (``res`` opened).
+    """
+    from ..strain import canonical_measure, vsg_size
+
+    n = len(res)
+    if n == 0:
+        raise ValueError(f"results: '{res.path}' holds no completed frames; track images into "
+                         f"it first")
+    measure = canonical_measure(measure)
+    if isinstance(window, bool) or not isinstance(window, (int, np.integer)) or window < 3 \
+            or window % 2 == 0:
+        raise ValueError(f"window: {window!r} is not an odd whole number of at least 3; use "
+                         f"e.g. window=9")
+    chosen = plot._frame_indices(_default_frames(n) if frames is None else frames, n)
+    gauges = plot._gauge_items(gauges) if gauges is not None else None
+    metro = _metrology_items(metrology) if metrology is not None else []
+
+    # one pass over the frames: colour limits of every map component
+    tops = {c: 0.0 for c in MAP_COMPONENTS}
+    fit = "plane"
+    for k in range(n):
+        s = res.strain(k, window=int(window), measure=measure)
+        fit = s.fit
+        for c in MAP_COMPONENTS:
+            tops[c] = max(tops[c], plot._robust_top(plot._quantity_values(s, c)))
+    limits = {c: plot._limits_from_top(t, True) for c, t in tops.items()}
+    units = {c: plot._unit("auto", "strain", limits[c][1])[2] for c in MAP_COMPONENTS}
+    s_settings = res.settings
+    subset, step = s_settings.get("subset"), s_settings.get("step")
+    vsg = vsg_size(int(window), float(step), float(subset)) if subset and step else float("nan")
+    settings_frames = list(s_settings.get("frames", range(n)))
+    ref = s_settings.get("reference", 0)
+    ref_name = (res.image_names[settings_frames.index(ref)] if ref in settings_frames
+                and settings_frames.index(ref) < len(res.image_names) else "")
+    info = dict(window=int(window), measure=measure,
+                measure_title=plot._MEASURE_TITLES[measure], limits=limits, units=units,
+                vsg=vsg, fit=fit, updates=np.asarray(res.reference_updates, dtype=np.int64),
+                reference_name=ref_name)
+    shapes = _gauge_geometry(gauges)
+
+    if title is None:
+        stem = res.path.stem
+        if stem == "results" and res.path.resolve().parent.name:
+            stem = res.path.resolve().parent.name
+        title = f"Strain measurement report: {stem}"
+    now = _dt.datetime.now(_dt.timezone.utc).replace(microsecond=0)
+    doc = Document(title=str(title),
+                   subtitle=f"Digital image correlation of {n} images, {res.path.name}",
+                   generated=now.strftime("%Y-%m-%d %H:%M UTC"),
+                   footer=f"Made by dic {__version__} on {now.strftime('%Y-%m-%d %H:%M UTC')} "
+                          f"from {res.path.name}.")
+
+    def add(key, blocks):
+        doc.sections.append(Section(id=key, title=SECTION_TITLES[key], blocks=blocks))
+
+    add("overview", _overview(res, info))
+    add("settings", _settings(res, info, metro))
+    if metro:
+        add("uncertainty", _uncertainty(metro))
+    add("maps", _maps(res, info, chosen, shapes))
+    add("measures", _measures(res, info, chosen[-1]))
+    if gauges:
+        add("gauges", _gauges(res, gauges))
+    if tensile is not None:
+        add("tensile", _tensile(tensile))
+    add("quality", _quality(res, info, chosen[-1]))
+    add("cautions", [Paragraph(t, "caution") for t in CAUTIONS])
+    return doc

@@ -1,0 +1,304 @@
+"""The HTML and PDF report (dic.report) and the ``dic report`` command (dic._cli_report).
+
+The HTML file is opened in headless Chromium (Debian package ``chromium``), which must render
+it with every figure decoded and nothing on its console; a control page with a broken image
+and a script error shows that the check catches both.
+"""
+
+from __future__ import annotations
+
+import argparse
+import base64
+import re
+import shutil
+import subprocess
+from html.parser import HTMLParser
+from types import SimpleNamespace
+
+import numpy as np
+import pytest
+
+import dic
+from dic import synth
+from dic._cli_report import register
+from dic.report import CAUTIONS, write_report
+from dic.store import open_for_writing
+
+SHAPE = (96, 176)
+SCALE = 0.05
+STEP = 6
+SUBSET = 15
+N = 5
+ALL_SECTIONS = ["overview", "settings", "uncertainty", "maps", "measures", "gauges", "tensile",
+                "quality", "cautions"]
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("report")
+    pat = synth.make_speckle(SHAPE, radius=2.5, seed=8, contrast=600)
+    paths = []
+    for k, e in enumerate(np.linspace(0.0, 0.05, N)):
+        d = synth.tensile_neck(0.6 * e, centre=(88.0, 48.0), neck_strain=0.4 * e,
+                               neck_width=30.0) if k else None
+        img = synth.render(pat, SHAPE, d, noise=0.5, seed=k)
+        paths.append(dic.io.write_image(folder / f"c{k}.png", img * 16, bits=16))
+    mask = np.zeros(SHAPE, bool)
+    mask[14:82, 8:168] = True
+    res = dic.track(paths, folder / "results.h5", subset=SUBSET, step=STEP, roi=mask,
+                    scale=SCALE)
+    return res, folder
+
+
+def _inputs(n):
+    gauges = [SimpleNamespace(name="L0", frames=np.arange(n), values=np.linspace(0, 0.03, n),
+                              unit="strain", p0=(30.0, 48.0), p1=(150.0, 48.0)),
+              SimpleNamespace(name="width", frames=np.arange(n),
+                              values=-np.linspace(0, 0.01, n), unit="")]
+
+    class Tensile:
+        def to_dict(self):
+            return {"modulus_gpa": 69.1, "poisson_ratio": 0.33, "proof_strength_rp02_mpa": 276.0,
+                    "n_value": {"value": 0.10, "unit": "", "label": "Strain-hardening "
+                                                                    "exponent n"}}
+
+    class Metrology:
+        def to_dict(self):
+            return {"strain_noise_floor_microstrain": 21.5, "displacement_noise_px": 0.006,
+                    "spatial_resolution_px": 48.0}
+
+    return gauges, Tensile(), Metrology()
+
+
+class _Page(HTMLParser):
+    """Collects section ids, images, links and text of an HTML page."""
+
+    def __init__(self):
+        super().__init__()
+        self.sections, self.imgs, self.urls, self.text, self.meta = [], [], [], [], {}
+        self.body = {}
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "section":
+            self.sections.append(a.get("id"))
+        if tag == "img":
+            self.imgs.append(a)
+        if tag == "body":
+            self.body = a
+        if tag == "meta" and "http-equiv" in a:
+            self.meta[a["http-equiv"].lower()] = a.get("content", "")
+        for key in ("src", "href", "action", "data", "poster"):
+            if key in a:
+                self.urls.append(a[key])
+
+    def handle_data(self, data):
+        self.text.append(data)
+
+
+def _parse(text):
+    p = _Page()
+    p.feed(text)
+    p.all_text = " ".join(p.text)
+    return p
+
+
+@pytest.fixture(scope="module")
+def full_report(run, tmp_path_factory):
+    res, _ = run
+    gauges, tensile, metro = _inputs(len(res))
+    out = tmp_path_factory.mktemp("full")
+    html, pdf = write_report(res.path, out, window=5, gauges=gauges, tensile=tensile,
+                             metrology=metro, frames=[2, -1], title="Coupon A7")
+    return html, pdf
+
+
+# --------------------------------------------------------------------------------------------
+# content
+# --------------------------------------------------------------------------------------------
+def test_html_is_self_contained_with_every_section(full_report):
+    html, _ = full_report
+    text = html.read_text(encoding="utf-8")
+    page = _parse(text)
+    assert page.sections == ALL_SECTIONS
+    # no address outside the file: every src/href is inline data or an anchor in the page
+    assert page.urls and all(u.startswith(("data:", "#")) for u in page.urls)
+    assert not re.search(r"(?i)(https?:|ftp:)//", text.replace("doi:10.", ""))
+    assert "<link" not in text.lower()
+    # the page forbids any loading (W3C Content Security Policy Level 3: default-src 'none')
+    assert "default-src 'none'" in page.meta["content-security-policy"]
+    # figures: PNG data (PNG signature, ISO/IEC 15948 section 5.2)
+    assert len(page.imgs) >= 6
+    for img in page.imgs:
+        data = base64.b64decode(img["src"].split(",", 1)[1])
+        assert data[:8] == b"\x89PNG\r\n\x1a\n"
+        assert img.get("alt")
+    assert "Coupon A7" in page.all_text
+
+
+def test_settings_follow_the_idics_form(full_report):
+    page = _parse(full_report[0].read_text(encoding="utf-8"))
+    t = page.all_text
+    for label in ("Subset size", "Step (grid spacing)", "Subset shape function",
+                  "Matching criterion", "Interpolation", "Strain window",
+                  "Virtual strain gauge (VSG)", "Strain measure", "Strain noise floor",
+                  "Spatial resolution"):
+        assert label in t
+    # VSG = (window - 1) * step + subset (iDICs Good Practices Guide 2018, doi:10.32720/
+    # idics/gpg.ed1), in px and mm
+    vsg = (5 - 1) * STEP + SUBSET
+    assert f"{vsg} px ({vsg * SCALE:.3g} mm)" in t
+    assert "21.5 \u00b5\u03b5" in t  # the metrology input, with its unit
+    assert "tensor shear" in t
+    # standards named beside the tensile results (ASTM E111 modulus, ASTM E132 Poisson's ratio,
+    # ISO 6892-1 proof strength; from memory)
+    for std in ("ASTM E111", "ASTM E132", "ISO 6892-1"):
+        assert std in t
+    # the cautions of the project design (section 9): ISO 9513 / ASTM E83, indicative,
+    # machine safety
+    for c in CAUTIONS:
+        assert c in t
+    assert "ISO 9513" in t and "ASTM E83" in t
+
+
+def test_tables_of_histories_and_nested_tensile_values(run, tmp_path):
+    res, _ = run
+    n = len(res)
+    table = SimpleNamespace(frame=np.arange(n), columns={"axial": np.linspace(0, 0.02, n)},
+                            units={"axial": "mm/mm"})
+    tensile = {"software": "x", "caution": "Indicative only.",
+               "values": {"E": {"key": "E", "name": "modulus", "value": 70000.0,
+                                "unit": "MPa", "standard": "ASTM E111",
+                                "method": "least squares", "fit_range": [20.0, 150.0],
+                                "range_unit": "MPa"},
+                          "r": {"key": "r", "name": "plastic strain ratio", "value": None,
+                                "unit": "-", "standard": "ISO 10113", "method": "",
+                                "note": "no transverse strain"}},
+               "notes": ["force log shifted by 0.1 s"]}
+    html, _ = write_report(res.path, tmp_path, window=5, frames=[-1], gauges=table,
+                           tensile=tensile)
+    page = _parse(html.read_text(encoding="utf-8"))
+    t = page.all_text
+    assert page.sections == ["overview", "settings", "maps", "measures", "gauges", "tensile",
+                             "quality", "cautions"]
+    assert "modulus (E)" in t and "70000 MPa" in t and "data from 20 to 150 MPa" in t
+    assert "no transverse strain" in t and "force log shifted by 0.1 s" in t
+    assert "Indicative only." in t
+    # the last reading of the gauge column, in % (2 % = 0.02 mm/mm)
+    assert "2 %" in t
+
+
+def test_sections_without_input_are_left_out(run, tmp_path):
+    res, _ = run
+    html, _ = write_report(res.path, tmp_path, window=5)
+    page = _parse(html.read_text(encoding="utf-8"))
+    assert page.sections == ["overview", "settings", "maps", "measures", "quality", "cautions"]
+    assert "not assessed for this analysis" in page.all_text
+
+
+def test_pdf_holds_the_report(full_report):
+    _, pdf = full_report
+    data = pdf.read_bytes()
+    # a PDF file starts with %PDF- and ends with %%EOF (ISO 32000-1, 7.5.2 and 7.5.5)
+    assert data[:5] == b"%PDF-" and data.rstrip().endswith(b"%%EOF")
+    pages = len(re.findall(rb"/Type\s*/Page[^s]", data))
+    # nine sections and at least six figures do not fit on fewer than four A4 pages
+    assert pages >= 4
+    assert b"Coupon A7" in data  # document title in the metadata (uncompressed)
+
+
+# --------------------------------------------------------------------------------------------
+# in a browser
+# --------------------------------------------------------------------------------------------
+def _chromium(page, tmp_path):
+    exe = shutil.which("chromium") or shutil.which("chromium-browser")
+    if exe is None:
+        pytest.skip("headless Chromium is not installed (Debian: apt-get install -y chromium)")
+    cmd = [exe, "--headless", "--no-sandbox", "--disable-gpu", "--disable-quic",
+           "--no-first-run", "--disable-background-networking", "--disable-component-update",
+           "--disable-sync", f"--user-data-dir={tmp_path / 'profile'}", "--enable-logging=stderr",
+           "--v=0", "--virtual-time-budget=5000", "--dump-dom", page.as_uri()]
+    done = subprocess.run(cmd, capture_output=True, text=True, timeout=120)
+    assert done.returncode == 0, done.stderr[-2000:]
+    # page messages (console.log/error, uncaught exceptions, blocked loads) are logged by
+    # Chromium as lines with CONSOLE; nothing else the browser says about itself counts
+    console = [ln for ln in done.stderr.splitlines()
+               if "CONSOLE" in ln or "Uncaught" in ln or "Refused to" in ln]
+    return done.stdout, console
+
+
+def test_report_renders_in_headless_chromium(full_report, tmp_path):
+    html, _ = full_report
+    dom, console = _chromium(html, tmp_path)
+    assert console == []
+    page = _parse(dom)
+    assert page.sections == ALL_SECTIONS
+    # the page's own script marks the body once every image has decoded (naturalWidth > 0)
+    assert page.body.get("data-images") == "all-decoded"
+    assert len(page.imgs) >= 6
+
+
+def test_chromium_check_catches_errors(tmp_path):
+    bad = tmp_path / "bad.html"
+    bad.write_text('<!DOCTYPE html><html><head><meta charset="utf-8"></head>'
+                   '<body data-images="pending"><img src="data:image/png;base64,AAAA">'
+                   "<script>console.error('deliberate'); missingFunction();</script>"
+                   "<script>var i = document.images[0]; document.body.setAttribute("
+                   "'data-images', i.naturalWidth > 0 ? 'all-decoded' : 'broken');</script>"
+                   "</body></html>", encoding="utf-8")
+    dom, console = _chromium(bad, tmp_path)
+    assert any("deliberate" in ln for ln in console)
+    assert any("missingFunction" in ln for ln in console)
+    assert _parse(dom).body.get("data-images") == "broken"
+
+
+# --------------------------------------------------------------------------------------------
+# bad input
+# --------------------------------------------------------------------------------------------
+def test_report_errors(run, tmp_path):
+    res, folder = run
+    with pytest.raises(ValueError, match="frame 12 does not exist; .* frames 0 to 4"):
+        write_report(res.path, tmp_path, frames=[12], window=5)
+    with pytest.raises(ValueError, match="use one of: green-lagrange"):
+        write_report(res.path, tmp_path, measure="cauchy", window=5)
+    with pytest.raises(ValueError, match="window: 4 is not an odd"):
+        write_report(res.path, tmp_path, window=4)
+    with pytest.raises(ValueError, match="metrology: expected an object with to_dict"):
+        write_report(res.path, tmp_path, window=5, metrology=42)
+    with pytest.raises(OSError):
+        write_report(folder / "none.h5", tmp_path)
+    (tmp_path / "file").write_text("x")
+    with pytest.raises(OSError, match="out_dir"):
+        write_report(res.path, tmp_path / "file" / "sub", window=5)
+    empty = tmp_path / "empty.h5"
+    x, y = np.meshgrid([10.0, 20.0, 30.0], [10.0, 20.0, 30.0])
+    open_for_writing(empty, settings={"subset": 15, "step": 10}, grid_x=x, grid_y=y,
+                     n_frames=1, image_names=["a.png"], image_sha256=["0" * 64]).close()
+    with pytest.raises(ValueError, match="no completed frames"):
+        write_report(empty, tmp_path)
+
+
+def _main(argv):
+    parser = argparse.ArgumentParser(prog="dic")
+    register(parser.add_subparsers(dest="command", required=True))
+    args = parser.parse_args(argv)
+    return args.func(args)
+
+
+def test_report_command(run, tmp_path, capsys):
+    res, folder = run
+    out = tmp_path / "rep"
+    # RESULTS may be the output folder holding results.h5
+    assert _main(["report", str(folder), "--out", str(out), "--frames", "-1", "--window", "5",
+                  "--measure", "log"]) == 0
+    assert sorted(p.name for p in out.iterdir()) == ["report.html", "report.pdf"]
+    printed = capsys.readouterr().out
+    assert "report.html" in printed and "report.pdf" in printed
+    assert "Hencky" in (out / "report.html").read_text(encoding="utf-8")
+    with pytest.raises(ValueError, match="--frames: frame 5 does not exist") as info:
+        _main(["report", str(res.path), "--out", str(out), "--frames", "5", "--window", "5"])
+    assert "\n" not in str(info.value)
+    with pytest.raises(ValueError, match="use one of: green-lagrange"):
+        _main(["report", str(res.path), "--measure", "true-ish"])
+    with pytest.raises(FileNotFoundError, match="RESULTS: no such file"):
+        _main(["report", str(folder / "nothing.h5")])
