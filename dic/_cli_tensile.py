@@ -173,6 +173,20 @@ def run(args, out=None) -> int:
     ValueError, OSError
         Bad input, with a one-line message; files written before the error are kept.
     """
+    out = sys.stdout if out is None else out
+    _hist, results, folder = compute(args)
+    print(results.table(), file=out)
+    print(f"wrote tensile.json, tensile.csv, stress_strain.png and gauges.csv to {folder}",
+          file=out)
+    return 0
+
+
+def compute(args):
+    """Gauges, force synchronisation and tensile results; writes the files.
+
+    Returns ``(history, results, folder)``: the gauge histories (with time and force), the
+    :class:`dic.tensile.TensileResults` and the folder written to.
+    """
     import numpy as np
 
     from . import gauges as G
@@ -181,7 +195,6 @@ def run(args, out=None) -> int:
     from .tensile import engineering_stress, tensile_results
     from .tracker import load_results
 
-    out = sys.stdout if out is None else out
     _check_early(args)
     folder = args.out if args.out is not None else Path(args.results).resolve().parent
     with load_results(args.results) as res:
@@ -251,16 +264,13 @@ def run(args, out=None) -> int:
     results.notes.append(f"strain: gauge line {axial.length:g} mm along the axis, "
                          f"{across.length:g} mm across; force log synchronised "
                          f"{sync.method}; area {area:g} mm^2")
-    print(results.table(), file=out)
     results.to_json(folder / "tensile.json")
     results.to_csv(folder / "tensile.csv")
     fig, _ = results.plot()
     from .plot import save_figure
 
     save_figure(fig, folder / "stress_strain.png")
-    print(f"wrote tensile.json, tensile.csv, stress_strain.png and gauges.csv to {folder}",
-          file=out)
-    return 0
+    return hist, results, folder
 
 
 def _axial(G, res, args, scale):

@@ -30,6 +30,21 @@ Example (``analysis.toml``)::
     workers = 2                     # or cluster = "tcp://host:8786"
     block = 8
 
+    [tensile]                       # tensile results from gauges and the force log
+    force_log = "force_log.csv"
+    time_column = "time_s"
+    force_column = "force_kN"
+    force_unit = "kN"
+    frame_times = "frame_times.csv" # or frame_interval = 2.0 (s); trigger_offset = 0.0
+    width_mm = 12.5
+    thickness_mm = 3.0              # or area_mm2
+    gauge_length_mm = 40.0
+    modulus_range_mpa = [20, 265]
+
+    [report]
+    frames = [8, 16, -1]
+    title = "Tensile test, coupon 7"
+
 Relative paths are taken from the folder of the analysis file. Command-line options override the
 file. Unknown keys are errors that name the closest valid key.
 """
@@ -53,6 +68,15 @@ SCHEMA = {
     "scale": {"mm_per_px": (float, int), "line": (list,), "length_mm": (float, int)},
     "strain": {"window": (int,), "measure": (str,)},
     "run": {"workers": (int,), "cluster": (str,), "block": (int,)},
+    "tensile": {"force_log": (str,), "time_column": (str,), "force_column": (str,),
+                "crosshead_column": (str,), "force_unit": (str,), "time_unit": (str,),
+                "frame_times": (str,), "frame_interval": (float, int),
+                "trigger_offset": (float, int), "width_mm": (float, int),
+                "thickness_mm": (float, int), "area_mm2": (float, int),
+                "gauge_length_mm": (float, int), "transverse_length_mm": (float, int),
+                "modulus_range_mpa": (list,), "offsets_percent": (list,),
+                "n_range_percent": (list,)},
+    "report": {"frames": (list,), "title": (str,), "write": (bool,)},
 }
 _SECTIONS = [s for s in SCHEMA if s is not None and s != "frames"]
 
@@ -83,7 +107,7 @@ def _check_table(table, section, where):
             options = list(allowed) + (_SECTIONS if section is None else [])
             raise ValueError(f"{where}: unknown key {name!r}{_closest(key, options)}")
         types = allowed[key]
-        if isinstance(value, bool) or not isinstance(value, types):
+        if (isinstance(value, bool) and bool not in types) or not isinstance(value, types):
             want = " or ".join(t.__name__ for t in types)
             name = key if section is None else f"{section}.{key}"
             raise ValueError(f"{where}: {name} must be a {want}, got {value!r}")
@@ -190,4 +214,12 @@ def load_analysis(path) -> dict:
     if "strain" in data:
         out["strain"] = dict(data["strain"])
     out.update(data.get("run", {}))
+    if "tensile" in data:
+        t = dict(data["tensile"])
+        for key in ("force_log", "frame_times"):
+            if key in t:
+                t[key] = rel(t[key])
+        out["tensile"] = t
+    if "report" in data:
+        out["report"] = dict(data["report"])
     return out

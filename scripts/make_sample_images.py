@@ -468,6 +468,44 @@ def readme_text(states):
         white=WHITE, black=BLACK, darkbg=DARK, blur=EDGE_BLUR, noise=NOISE)
 
 
+def analysis_text() -> str:
+    """The analysis file that takes the sample from images to a report (``dic run``)."""
+    y0 = math.ceil(BAND_CENTRE_Y - BAND_HALF + 4.0)
+    y1 = math.floor(BAND_CENTRE_Y + BAND_HALF - 4.0)
+    return f"""# Analysis of the sample tensile test: dic run --config sample_images/analysis.toml
+# (paths are relative to this file; command-line options override these settings)
+images = "coupon_*.png"
+
+[matching]
+subset = 21
+step = 8
+
+[roi]
+rectangle = [0, {y0}, {COLS - 1}, {y1}]   # the painted band, 4 px inside its edges
+
+[scale]
+mm_per_px = {PIXEL_SIZE_MM}
+
+[strain]
+window = 9
+measure = "green-lagrange"
+
+[tensile]
+force_log = "force_log.csv"
+time_column = "time_s"
+force_column = "force_kN"
+force_unit = "kN"
+frame_times = "frame_times.csv"
+width_mm = {WIDTH_MM}
+thickness_mm = {THICKNESS_MM}
+gauge_length_mm = 40.0
+modulus_range_mpa = [20, 265]
+
+[report]
+title = "Tensile test of a 6061-T6 coupon (synthetic sample)"
+"""
+
+
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", default=str(Path(__file__).resolve().parent.parent / "sample_images"),
@@ -494,8 +532,10 @@ def main(argv=None) -> int:
     (out / "force_log.csv").write_text(force_log_text(), encoding="utf-8")
     (out / "frame_times.csv").write_text(frame_times_text(), encoding="utf-8")
     (out / "README.md").write_text(readme_text(states), encoding="utf-8")
+    (out / "analysis.toml").write_text(analysis_text(), encoding="utf-8")
     size = sum(p.stat().st_size for p in out.iterdir() if p.is_file())
-    print(f"wrote {N_FRAMES} images, force_log.csv, frame_times.csv and README.md to {out} "
+    print(f"wrote {N_FRAMES} images, force_log.csv, frame_times.csv, README.md and "
+          f"analysis.toml to {out} "
           f"({size / 1e6:.2f} MB) in {time.perf_counter() - t0:.1f} s")
     return 0
 

@@ -60,7 +60,7 @@ def force_log():
 def test_shipped_files_are_what_the_generator_makes(gen, tmp_path):
     assert gen.main(["--out", str(tmp_path), "--quiet"]) == 0
     names = [f"coupon_{k:03d}.png" for k in range(N_FRAMES)]
-    extra = ["force_log.csv", "frame_times.csv", "README.md"]
+    extra = ["force_log.csv", "frame_times.csv", "README.md", "analysis.toml"]
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(names + extra)
     assert sorted(p.name for p in SAMPLES.iterdir()) == sorted(names + extra)
     for name in names:

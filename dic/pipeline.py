@@ -1,0 +1,89 @@
+"""After tracking: gauges and tensile results, strain maps and the report, from one settings set.
+
+``dic run`` with an output folder calls :func:`finish` once the results file is complete, so one
+command takes a test from images to a report.
+"""
+
+from __future__ import annotations
+
+import argparse
+import logging
+from pathlib import Path
+
+__all__ = ["finish", "tensile_namespace"]
+
+log = logging.getLogger(__name__)
+
+
+def tensile_namespace(t: dict, results_path, out_dir) -> argparse.Namespace:
+    """The ``dic tensile`` options from the ``[tensile]`` table of an analysis file."""
+    missing = [k for k in ("force_log", "time_column", "force_column") if k not in t]
+    if missing:
+        raise ValueError(f"[tensile] needs {', '.join(missing)} (the force log and its time "
+                         f"and force columns)")
+
+    def pair(key):
+        v = t.get(key)
+        if v is None:
+            return None
+        if len(v) != 2:
+            raise ValueError(f"tensile.{key} must be two numbers [low, high]")
+        return (float(v[0]), float(v[1]))
+
+    return argparse.Namespace(
+        results=Path(results_path), force_log=Path(t["force_log"]),
+        time_column=t["time_column"], force_column=t["force_column"],
+        crosshead_column=t.get("crosshead_column"), force_unit=t.get("force_unit", "N"),
+        time_unit=t.get("time_unit", "s"), crosshead_unit="mm", delimiter=None, decimal=None,
+        skip_bad_rows=False,
+        frame_times=Path(t["frame_times"]) if "frame_times" in t else None,
+        frame_interval=t.get("frame_interval"), image_metadata=False, by_index=False,
+        trigger_offset=float(t.get("trigger_offset", 0.0)),
+        width=t.get("width_mm"), thickness=t.get("thickness_mm"), area=t.get("area_mm2"),
+        gauge_length=t.get("gauge_length_mm"), transverse_length=t.get("transverse_length_mm"),
+        axis="auto", scale=None, modulus_range=pair("modulus_range_mpa"),
+        offsets=[float(v) for v in t.get("offsets_percent", [0.2])],
+        n_range=pair("n_range_percent"), out=Path(out_dir))
+
+
+def finish(results_path, out_dir, settings: dict) -> dict:
+    """Tensile results (if a force log is set) and the report, into ``out_dir``.
+
+    Parameters
+    ----------
+    results_path : path
+        Complete results file.
+    out_dir : path
+        Output folder.
+    settings : dict
+        The analysis settings (as from :func:`dic.config.load_analysis`); uses ``tensile``,
+        ``strain`` and ``report``.
+
+    Returns
+    -------
+    dict
+        Paths written, by name (``tensile``, ``report_html``, ``report_pdf``), and the tensile
+        results object under ``tensile_results`` when computed.
+    """
+    out_dir = Path(out_dir)
+    written: dict = {}
+    hist = tens = None
+    if settings.get("tensile"):
+        from ._cli_tensile import compute
+
+        hist, tens, folder = compute(tensile_namespace(settings["tensile"], results_path,
+                                                       out_dir))
+        written["tensile"] = folder / "tensile.json"
+        written["tensile_results"] = tens
+    rep = settings.get("report", {})
+    if rep.get("write", True):
+        from .report import write_report
+
+        strain = settings.get("strain") or {}
+        frames = rep.get("frames")
+        html, pdf = write_report(results_path, out_dir, frames=frames,
+                                 window=int(strain.get("window", 9)),
+                                 measure=strain.get("measure", "green-lagrange"),
+                                 gauges=hist, tensile=tens, title=rep.get("title"))
+        written["report_html"], written["report_pdf"] = html, pdf
+    return written
