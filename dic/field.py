@@ -83,6 +83,10 @@ class DisplacementField:
         function was used, else None.
     settings : dict
         The settings that produced the field (subset, step, shape function, criterion, ...).
+    sigma_u, sigma_v : ndarray, shape (ny, nx), or None
+        Predicted standard deviation (px) of ``u`` and ``v`` at every point from image noise,
+        from each subset's Gauss-Newton Hessian (see :func:`dic.metrology.point_sigma`); NaN
+        where not measured. None when the field was not made by :func:`dic.correlate`.
     """
 
     x: np.ndarray
@@ -95,6 +99,8 @@ class DisplacementField:
     iterations: np.ndarray
     grad2: np.ndarray | None = None
     settings: dict = _dc_field(default_factory=dict)
+    sigma_u: np.ndarray | None = None
+    sigma_v: np.ndarray | None = None
 
     @property
     def valid(self) -> np.ndarray:

@@ -134,6 +134,7 @@ class _Propagation:
         self.zncc = np.full(n, np.nan)
         self.iters = np.zeros(n, np.int16)
         self.sigma = np.full(n, np.nan)
+        self.unc = np.full((n, 6), np.nan)
         self.n_matched = 0
 
     def mark_flat(self, min_std):
@@ -158,6 +159,7 @@ class _Propagation:
         self.zncc[idx] = res.zncc
         self.iters[idx] = res.iterations
         self.sigma[idx] = res.sigma_factor
+        self.unc[idx] = res.uncertainty
         self.reason[idx] = status
         if retry_later:
             # a failed start from an outside guess is no verdict: neighbours may still reach it
@@ -263,7 +265,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
               seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
               max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.02,
               initial: DisplacementField | None = None, workers: int | None = None,
-              _prepared=None, _points=None) -> DisplacementField:
+              image_noise=None, _prepared=None, _points=None) -> DisplacementField:
     """Measure the displacement field between a reference and a deformed image.
 
     Square subsets of the reference image, centred on a regular grid of points, are matched in
@@ -310,11 +312,18 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         points start from their best matched neighbour as usual.
     workers : int, optional
         Threads for the matching kernel (default: all cores).
+    image_noise : float or (float, float), optional
+        Noise standard deviation of the images in grey levels (one value for both, or
+        reference and deformed), used for the predicted uncertainty ``sigma_u``, ``sigma_v``.
+        By default each image's noise is estimated from the image itself over the points' area
+        (:func:`dic.metrology.image_noise`).
 
     Returns
     -------
     DisplacementField
-        Displacements, gradients, ZNCC and a reason code for every point.
+        Displacements, gradients, ZNCC and a reason code for every point, and the predicted
+        standard deviations ``sigma_u``, ``sigma_v`` (:func:`dic.metrology.point_sigma`); the
+        noise used is in ``settings["image_noise"]`` (reference, deformed).
 
     References
     ----------
@@ -349,6 +358,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     if initial is not None and initial.shape != candidate.shape:
         raise ValueError(f"initial field has grid {initial.shape}, this analysis has "
                          f"{candidate.shape}; use a field from the same ROI, subset and step")
+    noise = _image_noise(image_noise, ref, dfm, gx[candidate], gy[candidate], subset)
 
     # the grey-level range of the ROI, from a sparse sample (exactness is not needed here)
     sample = ref[::3, ::3][mask[::3, ::3]]
@@ -391,15 +401,51 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         "max_iterations": max_iterations, "tolerance": tolerance,
         "min_texture": min_texture, "search": search,
         "image_shape": tuple(int(s) for s in ref.shape),
+        "image_noise": noise,
     }
+    from ..metrology._uncertainty import point_sigma
+
+    sig_u, sig_v = point_sigma(np.where(good[:, None], prop.unc, np.nan), noise[0], noise[1],
+                               order)
     field = DisplacementField(
         x=gx.astype(np.float64), y=gy.astype(np.float64),
         u=p[:, iu].reshape(shape), v=p[:, iv].reshape(shape), grad=grad,
         zncc=np.where(good, prop.zncc, np.nan).reshape(shape),
         reason=prop.reason.reshape(shape), iterations=prop.iters.reshape(shape),
-        grad2=grad2, settings=settings)
+        grad2=grad2, settings=settings, sigma_u=sig_u.reshape(shape),
+        sigma_v=sig_v.reshape(shape))
     log.info("matched %s", field.summary())
     return field
+
+
+def _image_noise(value, ref, dfm, px, py, subset):
+    """(reference, deformed) noise standard deviations: given, or estimated from each image
+    over the bounding box of the points' subsets (its central 256 x 256 px at most: the noise
+    is taken as the same everywhere, and the estimate then costs a few milliseconds)."""
+    if value is not None:
+        try:
+            vals = np.atleast_1d(np.asarray(value, dtype=np.float64)).ravel()
+        except (TypeError, ValueError):
+            vals = np.array([np.nan])
+        if vals.size not in (1, 2) or not np.all(np.isfinite(vals) & (vals >= 0)):
+            raise ValueError(f"image_noise must be one or two non-negative numbers (grey "
+                             f"levels), got {value!r}; e.g. 2.0")
+        return (float(vals[0]), float(vals[-1]))
+    from ..metrology._noise import image_noise
+
+    half = subset // 2
+    if px.size == 0:
+        return (float("nan"), float("nan"))
+    r0, r1 = max(int(py.min()) - half, 0), min(int(py.max()) + half + 1, ref.shape[0])
+    c0, c1 = max(int(px.min()) - half, 0), min(int(px.max()) + half + 1, ref.shape[1])
+    big = 256
+    if r1 - r0 > big:
+        r0 = (r0 + r1 - big) // 2
+        r1 = r0 + big
+    if c1 - c0 > big:
+        c0 = (c0 + c1 - big) // 2
+        c1 = c0 + big
+    return (image_noise(ref[r0:r1, c0:c1]), image_noise(dfm[r0:r1, c0:c1]))
 
 
 def _irregular_points(shape, subset, order, px, py, wanted):

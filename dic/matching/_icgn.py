@@ -53,6 +53,18 @@ def grad_from_params(p: np.ndarray, second: bool) -> np.ndarray:
     return g
 
 
+def shape_outer_sum(half: int, second: bool) -> np.ndarray:
+    """Subset sum of ``s s^T`` over the shape-function vectors ``s`` of one displacement
+    component: ``(1, dx, dy)`` (first order) or ``(1, dx, dy, dx^2/2, dx dy, dy^2/2)``."""
+    d = np.arange(-half, half + 1, dtype=np.float64)
+    dx, dy = (a.ravel() for a in np.meshgrid(d, d))
+    cols = [np.ones_like(dx), dx, dy]
+    if second:
+        cols += [0.5 * dx * dx, dx * dy, 0.5 * dy * dy]
+    s = np.column_stack(cols)
+    return np.ascontiguousarray(s.T @ s)
+
+
 def params_from_fields(u, v, grad, second: bool) -> np.ndarray:
     """Parameter vectors from displacements and gradients (second derivatives set to zero)."""
     iu, iv = index_u_v(second)
@@ -75,6 +87,9 @@ class MatchResult:
     zncc: np.ndarray
     iterations: np.ndarray
     sigma_factor: np.ndarray
+    #: per point the u and v diagonal entries of H^-1, H^-1 M H^-1 and H^-1 M H^-1 M H^-1
+    #: (6 numbers), see :func:`dic.metrology.point_sigma`; NaN where H was not inverted
+    uncertainty: np.ndarray | None = None
 
 
 class SubsetMatcher:
@@ -122,6 +137,7 @@ class SubsetMatcher:
         if deformed_spline is None:
             deformed_spline = interp.prefilter(deformed, self.order)
         self.spline = deformed_spline
+        self.smat = shape_outer_sum(self.half, self.second)
 
     def match(self, xs, ys, p0) -> MatchResult:
         """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
@@ -135,11 +151,11 @@ class SubsetMatcher:
         npar = n_params(self.second)
         p0 = np.ascontiguousarray(np.broadcast_to(p0, (n, npar)), dtype=np.float64)
         out = MatchResult(np.empty((n, npar)), np.empty(n, np.int8), np.empty(n),
-                          np.empty(n, np.int16), np.empty(n))
+                          np.empty(n, np.int16), np.empty(n), np.full((n, 6), np.nan))
         if n:
             match_batch(self.reference, self.gx, self.gy, self.spline.coef, self.spline.pad,
                         self.order, xs, ys, p0, self.half, self.second, self.max_iterations,
                         self.tolerance, self.min_std, float(self.border),
                         64 * get_num_threads(), self.fast, out.params, out.status, out.zncc,
-                        out.iterations, out.sigma_factor)
+                        out.iterations, out.sigma_factor, self.smat, out.uncertainty)
         return out

@@ -296,9 +296,44 @@ def _spd_inverse(a, out):
 
 
 @njit(cache=True, fastmath=True)
+def _uncertainty_terms(hinv, smat, k, unc):
+    """Per-point terms of the predicted displacement variance (dic.metrology.point_sigma).
+
+    With ``h = H^-1 e`` (``e`` selecting u at index 0 or v at index k), ``H`` the Gauss-Newton
+    Hessian and ``M = diag(S, S)``, ``S = smat`` the subset sum of the outer products of the
+    shape-function vectors (k x k): ``unc = (h_u.e_u, h_v.e_v, h_u.M.h_u, h_v.M.h_v,
+    (M h_u).H^-1.(M h_u), (M h_v).H^-1.(M h_v))``, i.e. the diagonal entries of ``H^-1``,
+    ``H^-1 M H^-1`` and ``H^-1 M H^-1 M H^-1`` for u and v."""
+    n = 2 * k
+    mh = np.empty(n)
+    for which in range(2):
+        i = which * k
+        unc[which] = hinv[i, i]
+        for blk in range(2):
+            o = blk * k
+            for a in range(k):
+                acc = 0.0
+                for b in range(k):
+                    acc += smat[a, b] * hinv[o + b, i]
+                mh[o + a] = acc
+        b_term = 0.0
+        for a in range(n):
+            b_term += hinv[a, i] * mh[a]
+        c_term = 0.0
+        for a in range(n):
+            row = 0.0
+            for b in range(n):
+                row += hinv[a, b] * mh[b]
+            c_term += mh[a] * row
+        unc[2 + which] = b_term
+        unc[4 + which] = c_term
+
+
+@njit(cache=True, fastmath=True)
 def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter, tol,
-               min_std, border, fn, jac):
-    """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor)."""
+               min_std, border, fn, jac, smat, unc):
+    """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor);
+    fills ``unc`` (see :func:`_uncertainty_terms`) once the Hessian is inverted."""
     rows, cols = ref.shape
     npar = 12 if second else 6
     ns = 2 * half + 1
@@ -366,6 +401,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
         return FLAT, np.nan, 0, np.nan
     # sigma of u per unit image noise: sqrt(2 * (H^-1)_uu) is the usual first-order estimate
     sigma_factor = np.sqrt(hinv[0, 0])
+    _uncertainty_terms(hinv, smat, 6 if second else 3, unc)
 
     jg = np.zeros(npar)
     dp = np.zeros(npar)
@@ -433,7 +469,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
 
 @njit(cache=True, fastmath=True)
 def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, min_std,
-                  border):
+                  border, smat, unc):
     """First-order IC-GN for one subset, without per-point scratch arrays.
 
     Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
@@ -551,6 +587,7 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
     if not _spd_inverse(hess, hinv):
         return FLAT, np.nan, 0, np.nan
     sigma_factor = np.sqrt(hinv[0, 0])
+    _uncertainty_terms(hinv, smat, 3, unc)
     # J^T (f - fm) and J^T 1
     jfn = np.empty(6)
     jsum = np.empty(6)
@@ -653,11 +690,14 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
 
 @njit(cache=True, parallel=True, fastmath=True)
 def match_batch(ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second, max_iter, tol,
-                min_std, border, nchunk, fast, out_p, out_status, out_zncc, out_iter, out_sigma):
+                min_std, border, nchunk, fast, out_p, out_status, out_zncc, out_iter, out_sigma,
+                smat, out_unc):
     """Match the subsets centred on integer pixels (xs[k], ys[k]), in parallel.
 
     ``fast`` selects the moment-sum first-order solver; False runs the general one (used by the
-    tests to check the two against each other)."""
+    tests to check the two against each other). ``out_unc[k]`` receives the uncertainty terms of
+    :func:`_uncertainty_terms` (NaN where the Hessian was not inverted); ``smat`` is the subset
+    sum of the outer products of the shape-function vectors."""
     npts = xs.shape[0]
     npar = 12 if second else 6
     ns = 2 * half + 1
@@ -670,12 +710,16 @@ def match_batch(ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second, max
         for k in range(ch * npts // nchunk, (ch + 1) * npts // nchunk):
             for a in range(npar):
                 p[a] = p_init[k, a]
+            unc = out_unc[k]
+            for a in range(6):
+                unc[a] = np.nan
             if second or not fast:
                 st, zn, it, sf = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p, half,
-                                            second, max_iter, tol, min_std, border, fn, jac)
+                                            second, max_iter, tol, min_std, border, fn, jac,
+                                            smat, unc)
             else:
                 st, zn, it, sf = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
-                                               half, max_iter, tol, min_std, border)
+                                               half, max_iter, tol, min_std, border, smat, unc)
             for a in range(npar):
                 out_p[k, a] = p[a]
             out_status[k] = st

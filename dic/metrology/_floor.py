@@ -1,0 +1,218 @@
+"""Noise floor from a set of images of the unloaded specimen (iDICs 2018)."""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+
+import numpy as np
+
+__all__ = ["noise_floor", "NoiseFloor", "COMPONENTS"]
+
+#: the quantities whose noise is reported (xy is tensor shear)
+COMPONENTS = ("u", "v", "xx", "yy", "xy")
+
+
+def _resolve(images):
+    """A list of arrays or paths from a list, a folder or a glob pattern."""
+    from ..io import list_images
+
+    if isinstance(images, (str, os.PathLike)):
+        items = list(list_images(images))
+    elif isinstance(images, np.ndarray) and images.ndim == 2:
+        items = [images]
+    else:
+        try:
+            items = list(images)
+        except TypeError:
+            raise ValueError(f"images must be a list of images, a folder or a glob pattern, got "
+                             f"{type(images).__name__}") from None
+    if len(items) < 2:
+        raise ValueError(f"images: a noise floor needs at least two images of the unloaded, "
+                         f"static specimen (the first is the reference), got {len(items)}; take "
+                         f"a few images before loading")
+    return items
+
+
+@dataclass
+class NoiseFloor:
+    """Noise of displacement and strain measured on images of the unloaded specimen.
+
+    Every image after the first is matched against the first; nothing moved, so every
+    non-zero value is error.
+
+    Attributes
+    ----------
+    n_images : int
+        Images used (the first is the reference).
+    settings : dict
+        subset, step, window, measure, vsg, shape_function, interpolation.
+    spatial : dict
+        For ``u``, ``v`` (px) and ``xx``, ``yy``, ``xy`` (strain, tensor shear): the spatial
+        standard deviation over the ROI, averaged over the images.
+    spatial_each : dict
+        The same per image, arrays of length ``n_images - 1``.
+    mean : dict
+        Mean over the ROI, averaged over the images (a rigid drift shows in u, v).
+    temporal : dict or None
+        Per point, the standard deviation over the images (maps of the grid shape, NaN where a
+        point was not measured in every image); None with fewer than three images (one field
+        has no temporal scatter).
+    temporal_rms : dict or None
+        Root mean square of each temporal map over its points.
+    predicted : (float, float)
+        Root mean square of the per-point predicted ``sigma_u``, ``sigma_v`` (px) of the
+        fields, to set against ``spatial["u"]``, ``spatial["v"]``.
+    n_points : int
+        Grid points measured in every image.
+    x, y : ndarray
+        Grid positions, px.
+    """
+
+    n_images: int
+    settings: dict
+    spatial: dict
+    spatial_each: dict
+    mean: dict
+    temporal: dict | None
+    temporal_rms: dict | None
+    predicted: tuple
+    n_points: int
+    x: np.ndarray
+    y: np.ndarray
+
+    def summary(self) -> str:
+        """A few lines of plain text for a report."""
+        s = self.settings
+        sp = self.spatial
+        lines = [
+            f"noise floor from {self.n_images} images of the unloaded specimen (subset "
+            f"{s['subset']} px, step {s['step']} px, strain window {s['window']} points, "
+            f"VSG {s['vsg']:.0f} px, {s['measure']} strain):",
+            f"  spatial standard deviation: u {sp['u']:.4f} px, v {sp['v']:.4f} px; xx "
+            f"{sp['xx'] * 1e6:.0f}, yy {sp['yy'] * 1e6:.0f}, xy (tensor shear) "
+            f"{sp['xy'] * 1e6:.0f} microstrain",
+            f"  predicted from the subsets: u {self.predicted[0]:.4f} px, v "
+            f"{self.predicted[1]:.4f} px",
+        ]
+        if self.temporal_rms is not None:
+            t = self.temporal_rms
+            lines.append(f"  temporal standard deviation (RMS over points): u {t['u']:.4f} px, "
+                         f"v {t['v']:.4f} px; xx {t['xx'] * 1e6:.0f}, yy {t['yy'] * 1e6:.0f}, "
+                         f"xy {t['xy'] * 1e6:.0f} microstrain")
+        else:
+            lines.append("  temporal standard deviation: needs at least three images")
+        return "\n".join(lines)
+
+    def as_dict(self) -> dict:
+        """Scalars only (maps left out), for reports and files."""
+        return {"n_images": self.n_images, "settings": dict(self.settings),
+                "spatial": dict(self.spatial), "mean": dict(self.mean),
+                "temporal_rms": None if self.temporal_rms is None else dict(self.temporal_rms),
+                "predicted": list(self.predicted), "n_points": self.n_points}
+
+
+def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, roi=None,
+                measure: str = "green-lagrange", shape_function: str = "affine",
+                interpolation: str = "quintic", image_noise=None) -> NoiseFloor:
+    """Noise floor of displacement and strain from images of the unloaded specimen.
+
+    Parameters
+    ----------
+    images : list of arrays or paths, folder or glob pattern
+        At least two images of the static, unloaded specimen taken as in the test; the first
+        is the reference. Three or more also give the temporal scatter per point.
+    subset, step, window : int
+        Settings, as for :func:`dic.correlate` and :func:`dic.strain_field`.
+    roi : optional
+        Region of interest (see :func:`dic.roi.make_roi`).
+    measure : str
+        Strain measure.
+    shape_function, interpolation : str
+        As for :func:`dic.correlate`.
+    image_noise : float, optional
+        Passed to :func:`dic.correlate` for the predicted per-point uncertainty.
+
+    Returns
+    -------
+    NoiseFloor
+
+    Raises
+    ------
+    ValueError
+        Fewer than two images, images of different sizes, or settings the matcher refuses.
+    OSError
+        An image file cannot be read.
+
+    References
+    ----------
+    .. [1] International Digital Image Correlation Society, A Good Practices Guide for Digital
+       Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (noise floor: spatial and temporal
+       standard deviations on static images).
+    """
+    from ..io import read_image
+    from ..matching import correlate
+    from ..strain import canonical_measure, strain_field
+
+    items = _resolve(images)
+    measure = canonical_measure(measure)
+    ref = read_image(items[0], name="images[0]")
+    fields, strains = [], []
+    for k, item in enumerate(items[1:], start=1):
+        img = read_image(item, name=f"images[{k}]")
+        if img.shape != ref.shape:
+            raise ValueError(f"images[{k}] is {img.shape[1]} x {img.shape[0]} px but images[0] "
+                             f"is {ref.shape[1]} x {ref.shape[0]} px; use images of one camera "
+                             f"and size")
+        f = correlate(ref, img, subset=subset, step=step, roi=roi,
+                      shape_function=shape_function, interpolation=interpolation,
+                      image_noise=image_noise)
+        fields.append(f)
+        strains.append(strain_field(f, window=window, measure=measure))
+    f0 = fields[0]
+    n = len(fields)
+
+    def values(k, c):
+        f, e = fields[k], strains[k]
+        if c in ("u", "v"):
+            return np.where(f.valid, getattr(f, c), np.nan)
+        return np.where(e.valid, getattr(e, c), np.nan)
+
+    spatial_each, mean = {}, {}
+    for c in COMPONENTS:
+        sd, mu = [], []
+        for k in range(n):
+            a = values(k, c)
+            a = a[np.isfinite(a)]
+            sd.append(float(np.std(a)) if a.size > 1 else float("nan"))
+            mu.append(float(np.mean(a)) if a.size else float("nan"))
+        spatial_each[c] = np.array(sd)
+        mean[c] = float(np.nanmean(mu)) if np.isfinite(mu).any() else float("nan")
+    spatial = {c: float(np.nanmean(v)) if np.isfinite(v).any() else float("nan")
+               for c, v in spatial_each.items()}
+    temporal = temporal_rms = None
+    if n >= 2:
+        temporal, temporal_rms = {}, {}
+        for c in COMPONENTS:
+            stack = np.stack([values(k, c) for k in range(n)])
+            every = np.all(np.isfinite(stack), axis=0)
+            t = np.full(stack.shape[1:], np.nan)
+            t[every] = np.std(stack[:, every], axis=0, ddof=1)
+            temporal[c] = t
+            temporal_rms[c] = (float(np.sqrt(np.mean(t[every] ** 2))) if every.any()
+                               else float("nan"))
+    su = np.concatenate([f.sigma_u[f.valid] for f in fields if f.sigma_u is not None])
+    sv = np.concatenate([f.sigma_v[f.valid] for f in fields if f.sigma_v is not None])
+    predicted = (float(np.sqrt(np.nanmean(su ** 2))) if su.size else float("nan"),
+                 float(np.sqrt(np.nanmean(sv ** 2))) if sv.size else float("nan"))
+    all_valid = np.all([f.valid for f in fields], axis=0)
+    vsg = (window - 1) * step + subset
+    return NoiseFloor(
+        n_images=n + 1,
+        settings={"subset": subset, "step": step, "window": window, "measure": measure,
+                  "vsg": vsg, "shape_function": f0.settings.get("shape_function"),
+                  "interpolation": f0.settings.get("interpolation")},
+        spatial=spatial, spatial_each=spatial_each, mean=mean, temporal=temporal,
+        temporal_rms=temporal_rms, predicted=predicted, n_points=int(all_valid.sum()),
+        x=f0.x, y=f0.y)
+
