@@ -123,7 +123,8 @@ def _worker_matcher(stage: _Stage, key) -> FrameMatcher:
 def _run_block(stage, key, items, first_raw, n_expected, may_update, threads=None):
     """Match the frames of a block in order, each from the previous one's raw field.
 
-    Returns a list of (total, raw, degraded) tuples; stops after the first degraded frame.
+    Returns a list of (total, raw, degraded) tuples; stops after the first degraded frame. A
+    failure (an unreadable image, ...) ends the list as the exception itself.
     ``may_update[j]`` is False where a new reference would be the current one again.
     """
     if threads is not None:
@@ -133,13 +134,16 @@ def _run_block(stage, key, items, first_raw, n_expected, may_update, threads=Non
     m = _worker_matcher(stage, key)
     out = []
     prev = first_raw
-    for it, may in zip(items, may_update):
-        total, raw = m.match(_load(it), prev)
-        bad = may and needs_new_reference(total, n_expected, stage.settings)
-        out.append((total, raw, bad))
-        if bad:
-            break
-        prev = raw
+    try:
+        for it, may in zip(items, may_update):
+            total, raw = m.match(_load(it), prev)
+            bad = may and needs_new_reference(total, n_expected, stage.settings)
+            out.append((total, raw, bad))
+            if bad:
+                break
+            prev = raw
+    except Exception as exc:  # noqa: BLE001 -- returned last, so the frames before it are kept
+        out.append(exc)
     return out
 
 
@@ -158,8 +162,15 @@ class _Local:
     def submit(self, fn, *args):
         return self._Done(fn(*args))
 
-    def shutdown(self):
+    def shutdown(self, cancel_futures=False):
         pass
+
+
+def _ignore_ctrl_c():
+    """Worker processes leave Ctrl-C to the main process, which stops the pool."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
 
 
 def _make_executor(workers, cluster):
@@ -177,7 +188,7 @@ def _make_executor(workers, cluster):
             def submit(self, fn, *args):
                 return client.submit(fn, *args, pure=False)
 
-            def shutdown(self):
+            def shutdown(self, cancel_futures=False):
                 if client is not cluster:
                     client.close()
 
@@ -188,7 +199,8 @@ def _make_executor(workers, cluster):
     from concurrent.futures import ProcessPoolExecutor
 
     # 'spawn': forking a process whose compiled kernels have started threads is unsafe
-    pool = ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"))
+    pool = ProcessPoolExecutor(max_workers=workers, mp_context=mp.get_context("spawn"),
+                               initializer=_ignore_ctrl_c)
     pool.slots = workers
     return pool, 1
 
@@ -275,6 +287,11 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     first_stage = _Stage(items[reference], mask, None, settings, int(reference))
     matcher0 = first_stage.matcher()
     grid = matcher0.match(ref_img, None)[1]
+    # the first stage's matcher lives in the cache only, so that it is dropped when the
+    # reference changes: memory stays flat however many times that happens
+    _WORKER_CACHE.clear()
+    _WORKER_CACHE[("stage", reference)] = matcher0
+    del matcher0, ref_img
 
     writer = store.open_for_writing(
         out, settings=record, grid_x=grid.x, grid_y=grid.y, n_frames=len(order),
@@ -282,6 +299,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
         overwrite=overwrite)
     executor, threads = _make_executor(workers, cluster)
     bar = None
+    stopped = True
     try:
         if progress:
             from tqdm import tqdm
@@ -289,11 +307,12 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
             bar = tqdm(total=len(order), initial=writer.n_done, unit="frame", desc="tracking",
                        dynamic_ncols=True)
         _drive(items, order, reference, settings, mask, writer, executor, threads, bar,
-               matcher0, strain)
+               strain)
+        stopped = False
     finally:
         if bar is not None:
             bar.close()
-        executor.shutdown()
+        executor.shutdown(cancel_futures=stopped)  # on Ctrl-C or an error: no waiting work
         writer.close()
     return store.Results.open(out)
 
@@ -317,14 +336,14 @@ def _frame_list(frames, n_img):
     return out
 
 
-def _drive(items, order, reference, settings, mask, writer, executor, threads, bar, matcher0,
-           strain):
-    """Run stages (one per reference image) until every frame is written."""
+def _drive(items, order, reference, settings, mask, writer, executor, threads, bar, strain):
+    """Run stages (one per reference image) until every frame is written.
+
+    The first stage's matcher is expected in ``_WORKER_CACHE`` (put there by :func:`track`).
+    """
     n = len(order)
     stage = _Stage(items[reference], mask, None, settings, int(reference))
     stage_key = ("stage", reference)
-    _WORKER_CACHE.clear()
-    _WORKER_CACHE[stage_key] = matcher0
     start = 0
     ref_index = reference
     done = writer.n_done
@@ -380,24 +399,29 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
         # 1. the first frames of the blocks, in sequence
         heads = []
         stop_at = None
-        for s in batch:
-            if s < writer.n_done and stage.base is None:
-                # already in the file (resume, first stage): its raw field is the stored one
-                total = raw = writer.read_field(s)
-                bad = False
-            else:
-                guess = extrapolate(prev2_raw, prev_raw) if prev_raw is not None else None
-                total, raw = _stage_matcher(stage, key, local).match(_load(items[order[s]]),
-                                                                       guess)
-                bad = (n_expected is not None and s > start and order[s - 1] != stage.ref_index
-                       and needs_new_reference(total, n_expected, settings))
-            if n_expected is None:
-                n_expected = max(total.n_valid, 1)
-            heads.append((s, total, raw, bad))
-            if bad:
-                stop_at = s
-                break
-            prev2_raw, prev_raw = prev_raw, raw
+        error = None  # a failure (unreadable image, ...): frames before it are still written
+        try:
+            for s in batch:
+                if s < writer.n_done and stage.base is None:
+                    # already in the file (resume, first stage): its raw field is the stored one
+                    total = raw = writer.read_field(s)
+                    bad = False
+                else:
+                    guess = extrapolate(prev2_raw, prev_raw) if prev_raw is not None else None
+                    total, raw = _stage_matcher(stage, key, local).match(
+                        _load(items[order[s]]), guess)
+                    bad = (n_expected is not None and s > start
+                           and order[s - 1] != stage.ref_index
+                           and needs_new_reference(total, n_expected, settings))
+                if n_expected is None:
+                    n_expected = max(total.n_valid, 1)
+                heads.append((s, total, raw, bad))
+                if bad:
+                    stop_at = s
+                    break
+                prev2_raw, prev_raw = prev_raw, raw
+        except Exception as exc:  # noqa: BLE001 -- re-raised below, after saving
+            error = exc
         # 2. the rest of each block, in parallel
         futures = []
         for s, total, raw, bad in heads:
@@ -415,9 +439,22 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
         for s, fut in futures:
             if fut is None:
                 continue
-            for j, (total, raw, bad) in enumerate(fut.result()):
-                results[s + 1 + j] = (total, bad)
+            try:
+                done = fut.result()
+            except Exception as exc:  # noqa: BLE001 -- re-raised below, after saving
+                done = [exc]
+            for j, item in enumerate(done):
+                if isinstance(item, BaseException):
+                    error = item
+                    break
+                results[s + 1 + j] = item[0], item[2]
+            if error is not None:
+                break
+        following = batch[0]
         for k in sorted(results):
+            if k != following:  # a gap left by a failure: frames are written in order only
+                break
+            following += 1
             total, bad = results[k]
             if bad and k > start:
                 return k, last_total, True
@@ -428,6 +465,8 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
                 if bar is not None:
                     bar.update(1)
             last_total = total
+        if error is not None:
+            raise error
         if stop_at is not None:
             return stop_at, last_total, True
         i += len(batch)

@@ -19,6 +19,7 @@ import dic
 from dic.cli import main
 from dic.export import CSV_COLUMNS
 from dic.io import image_info, read_image, write_image
+from dic.store import Results
 
 SHIFT = (1.5, -0.75)
 SIZE = (200, 200)
@@ -93,12 +94,17 @@ def test_run_folder_measures_known_translation(pair, tmp_path, capsys):
     img = read_image(png)
     assert img.ndim == 2 and min(img.shape) > 100 and np.ptp(img) > 0
 
-    # one summary line for the one deformed image, then where the outputs are
+    # how many frames were tracked and where, the last frame's summary, where the exports are
     lines = captured.out.strip().splitlines()
-    assert len(lines) == 2
-    assert lines[0].startswith("img_10.png: ") and "points measured" in lines[0]
-    assert str(out) in lines[1]
-    # the reference image is not matched against itself
+    assert len(lines) == 3, lines
+    assert lines[0].startswith("tracked 2 frame(s)") and str(out / "results.h5") in lines[0]
+    assert "img_10.png" in lines[1] and "points measured" in lines[1]
+    assert str(out) in lines[2]
+    # the results file holds both frames, the reference image first (natural order)
+    with Results.open(out / "results.h5") as r:
+        assert len(r) == 2 and Path(r.image_names[0]).name == "img_9.png"
+        np.testing.assert_array_equal(r.field(1).u.ravel(), table["u_px"])
+    # no table or map of the reference image against itself
     assert not (out / "displacements_img_9.csv").exists()
 
 
@@ -128,7 +134,7 @@ def test_roi_and_options_reach_the_analysis(pair, tmp_path):
     out = tmp_path / "out"
     rc = main(["run", str(pair), "--out", str(out), "--roi", "40,40,159,159", "--subset", "25",
                "--step", "5", "--shape-function", "quadratic", "--interpolation", "cubic",
-               "--seed", "100,100", "--min-zncc", "0.95", "-q"])
+               "--min-zncc", "0.95", "--scale", "0.05", "-q"])
     assert rc == 0
     table = _read_csv(out / "displacements_img_10.csv")
     ok = table["reason"] == 0
@@ -140,8 +146,10 @@ def test_roi_and_options_reach_the_analysis(pair, tmp_path):
     header = (out / "displacements_img_10.csv").read_text().splitlines()[1]
     assert header.startswith("#")
     for text in ("subset=25", "step=5", "shape_function=quadratic", "interpolation=cubic",
-                 "min_zncc=0.95", "reference_image=img_9.png"):
+                 "min_zncc=0.95", "reference_image=img_9.png", "scale_mm_per_px=0.05"):
         assert text in header
+    with Results.open(out / "results.h5") as r:
+        assert r.scale == 0.05
 
 
 def test_help_and_version_exit_zero(capsys):
@@ -151,9 +159,14 @@ def test_help_and_version_exit_zero(capsys):
     assert "run" in capsys.readouterr().out
     assert main(["run", "--help"]) == 0
     text = capsys.readouterr().out
-    for option in ("--out", "--reference", "--subset", "--step", "--roi", "--roi-mask",
-                   "--shape-function", "--interpolation", "--seed", "--min-zncc", "--quiet"):
+    for option in ("--out", "--config", "--reference", "--frames", "--subset", "--step",
+                   "--roi", "--roi-mask", "--shape-function", "--interpolation", "--min-zncc",
+                   "--search", "--block", "--scale", "--scale-line", "--strain-window",
+                   "--strain-measure", "--workers", "--cluster", "--overwrite", "--quiet",
+                   "--verbose"):
         assert option in text
+    assert main(["info", "--help"]) == 0
+    assert "RESULTS" in capsys.readouterr().out
 
 
 def test_python_dash_m_version():
@@ -233,7 +246,7 @@ def test_no_command_is_a_usage_error(capsys):
     _one_error_line(capsys.readouterr().err)
 
 
-def test_outputs_before_an_error_are_kept(pair, tmp_path, capsys):
+def test_frames_before_an_error_are_kept(pair, tmp_path, capsys):
     # a PNG cut short: its header reads (the run starts) but its pixels do not decode
     folder = tmp_path / "seq"
     folder.mkdir()
@@ -247,7 +260,25 @@ def test_outputs_before_an_error_are_kept(pair, tmp_path, capsys):
     captured = capsys.readouterr()
     line = _one_error_line(captured.err)
     assert "a_3.png" in line
-    assert (out / "displacements_a_2.csv").is_file()
-    assert (out / "displacements_a_2.png").is_file()
+    assert captured.out == ""
+    # the frames matched before a_3.png are in the results file, readable
+    with Results.open(out / "results.h5") as r:
+        assert len(r) == 2
+        f = r.field(1)
+        ok = f.valid
+        np.testing.assert_allclose(f.u[ok], SHIFT[0], rtol=0, atol=TOL_PX)
     assert not (out / "displacements_a_3.csv").exists()
-    assert captured.out.startswith("a_2.png: ")
+
+
+def test_other_settings_need_overwrite(pair, tmp_path, capsys):
+    # the same output folder with another step: refused (one line naming the file, the setting
+    # and the fix); with --overwrite the results file and every table are made again
+    out = tmp_path / "out"
+    assert main(["run", str(pair), "--out", str(out), "-q"]) == 0
+    assert main(["run", str(pair), "--out", str(out), "--step", "20", "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "results.h5" in line and "step" in line and "--overwrite" in line
+    assert main(["run", str(pair), "--out", str(out), "--step", "20", "--overwrite",
+                 "-q"]) == 0
+    table = _read_csv(out / "displacements_img_10.csv")
+    assert set(np.diff(np.unique(table["x_px"]))) == {20.0}
