@@ -95,12 +95,17 @@ def test_same_numbers_on_one_core_a_process_pool_and_a_cluster(sequence, tmp_pat
     assert len(a) == len(b) == len(c) == N_FRAMES
     np.testing.assert_array_equal(a.reference_updates, b.reference_updates)
     np.testing.assert_array_equal(a.reference_updates, c.reference_updates)
+    # Same points, same reasons; the numbers agree to rounding: a process that compiles the
+    # kernels and one that loads them from numba's cache can differ in the last bits
+    # (~1e-13 px seen), 1e-10 of the 0.002 px accuracy bar.
     for k in range(N_FRAMES):
         fa, fb, fc = a.field(k), b.field(k), c.field(k)
-        np.testing.assert_array_equal(fa.u, fb.u)
-        np.testing.assert_array_equal(fa.u, fc.u)
-        np.testing.assert_array_equal(fa.grad, fc.grad)
+        np.testing.assert_array_equal(fa.reason, fb.reason)
         np.testing.assert_array_equal(fa.reason, fc.reason)
+        for other in (fb, fc):
+            np.testing.assert_allclose(other.u, fa.u, rtol=0, atol=1e-10)
+            np.testing.assert_allclose(other.v, fa.v, rtol=0, atol=1e-10)
+            np.testing.assert_allclose(other.grad, fa.grad, rtol=0, atol=1e-10)
 
 
 def test_resume_after_interruption_equals_uninterrupted(sequence, tmp_path, monkeypatch):
