@@ -70,6 +70,12 @@ class TrackSettings:
         return dict(self.__dict__)
 
 
+def accounted(field: DisplacementField) -> int:
+    """Points measured, plus points whose material has left the image (not a loss of
+    correlation, so no reason to change the reference)."""
+    return field.n_valid + int(np.count_nonzero(field.reason == Reason.OUTSIDE_IMAGE))
+
+
 def needs_new_reference(field: DisplacementField, n_expected: int,
                         settings: TrackSettings) -> bool:
     """True when a frame's match against the current reference has degraded.
@@ -79,13 +85,13 @@ def needs_new_reference(field: DisplacementField, n_expected: int,
     field : DisplacementField
         The frame's field (in the original reference configuration).
     n_expected : int
-        Points measured in the first frame matched against the current reference.
+        :func:`accounted` points of the first frame matched against the current reference.
     settings : TrackSettings
         Thresholds.
     """
     if n_expected <= 0:
         return False
-    if field.n_valid < settings.update_valid * n_expected:
+    if accounted(field) < settings.update_valid * n_expected:
         return True
     z = field.zncc[field.valid]
     return bool(z.size and np.median(z) < settings.update_zncc)

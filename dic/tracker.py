@@ -17,7 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from .field import DisplacementField
-from .sequence import FrameMatcher, TrackSettings, extrapolate, needs_new_reference
+from .sequence import (FrameMatcher, TrackSettings, accounted, extrapolate,
+                       needs_new_reference)
 
 __all__ = ["track", "load_results", "resolve_images"]
 
@@ -414,7 +415,7 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
                            and order[s - 1] != stage.ref_index
                            and needs_new_reference(total, n_expected, settings))
                 if n_expected is None:
-                    n_expected = max(total.n_valid, 1)
+                    n_expected = max(accounted(total), 1)
                 heads.append((s, total, raw, bad))
                 if bad:
                     stop_at = s
