@@ -46,6 +46,33 @@ def tensile_namespace(t: dict, results_path, out_dir) -> argparse.Namespace:
         n_range=pair("n_range_percent"), out=Path(out_dir))
 
 
+def _self_check(results_path, strain: dict):
+    """The self-check of the analysis settings on its own reference image (None if that image
+    is not among the analysed files)."""
+    from .io import read_image
+    from .metrology import self_check
+    from .tracker import load_results
+
+    with load_results(results_path) as res:
+        st = res.settings
+        frames = list(st.get("frames", []))
+        ref = st.get("reference", 0)
+        if ref not in frames:
+            return None
+        name = res.image_names[frames.index(ref)]
+        mask = res.roi_mask
+    try:
+        image = read_image(name)
+    except OSError:
+        log.warning("self-check skipped: the reference image %s cannot be read", name)
+        return None
+    return self_check(image, subset=int(st["subset"]), step=int(st["step"]),
+                      window=int(strain.get("window", 9)), roi=mask,
+                      shape_function=st.get("shape_function", "affine"),
+                      interpolation=st.get("interpolation", "quintic"),
+                      measure=strain.get("measure", "green-lagrange"))
+
+
 def finish(results_path, out_dir, settings: dict) -> dict:
     """Tensile results (if a force log is set) and the report, into ``out_dir``.
 
@@ -62,8 +89,9 @@ def finish(results_path, out_dir, settings: dict) -> dict:
     Returns
     -------
     dict
-        Paths written, by name (``tensile``, ``report_html``, ``report_pdf``), and the tensile
-        results object under ``tensile_results`` when computed.
+        Paths written, by name (``tensile``, ``report_html``, ``report_pdf``), the tensile
+        results object under ``tensile_results`` and the self-check of the settings on the
+        reference image under ``self_check`` (a section of the report).
     """
     out_dir = Path(out_dir)
     written: dict = {}
@@ -81,9 +109,13 @@ def finish(results_path, out_dir, settings: dict) -> dict:
 
         strain = settings.get("strain") or {}
         frames = rep.get("frames")
+        check = _self_check(results_path, strain)
+        if check is not None:
+            written["self_check"] = check
         html, pdf = write_report(results_path, out_dir, frames=frames,
                                  window=int(strain.get("window", 9)),
                                  measure=strain.get("measure", "green-lagrange"),
-                                 gauges=hist, tensile=tens, title=rep.get("title"))
+                                 gauges=hist, tensile=tens, metrology=check,
+                                 title=rep.get("title"))
         written["report_html"], written["report_pdf"] = html, pdf
     return written
