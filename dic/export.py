@@ -261,10 +261,11 @@ def _open(results):
     return res, opened
 
 
-def _out_folder(out_dir):
+def _out_folder(out_dir, what="the exported files"):
+    """Create (if needed) and check a writable output folder; one-line errors."""
     p = Path(os.fspath(out_dir))
     if p.exists() and not p.is_dir():
-        raise FileExistsError(f"out_dir: '{p}' is a file; give a folder for the exported files")
+        raise FileExistsError(f"out_dir: '{p}' is a file; give a folder for {what}")
     try:
         p.mkdir(parents=True, exist_ok=True)
     except OSError as exc:

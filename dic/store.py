@@ -117,7 +117,6 @@ import json
 import math
 import os
 import re
-import shutil
 from pathlib import Path
 
 import numpy as np
@@ -1041,7 +1040,7 @@ def _sparse_copy(src: Path, dst: Path) -> None:
     """Copy a file, skipping holes where the system can find them (unused frame space)."""
     size = src.stat().st_size
     with open(src, "rb") as fi, open(dst, "wb") as fo:
-        fdi, fdo = fi.fileno(), fo.fileno()
+        fdi = fi.fileno()
         pos = 0
         while pos < size:
             try:

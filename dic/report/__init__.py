@@ -15,7 +15,6 @@ write_report
 from __future__ import annotations
 
 import os
-from pathlib import Path
 
 from ._content import CAUTIONS, SECTION_TITLES, build_document
 
@@ -26,18 +25,9 @@ REPORT_NAMES = ("report.html", "report.pdf")
 
 
 def _out_folder(out_dir):
-    p = Path(os.fspath(out_dir))
-    if p.exists() and not p.is_dir():
-        raise FileExistsError(f"out_dir: '{p}' is a file; give a folder for the report")
-    try:
-        p.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OSError(f"out_dir: cannot create '{p}' ({exc.strerror or exc}); choose a folder "
-                      f"you can write to") from None
-    if not os.access(p, os.W_OK | os.X_OK):
-        raise PermissionError(f"out_dir: cannot write into '{p}' (permission denied); choose "
-                              f"a folder you can write to")
-    return p
+    from ..export import _out_folder as make_folder
+
+    return make_folder(out_dir, "the report")
 
 
 def _replace(target, write):
