@@ -192,8 +192,12 @@ def run_report(args) -> int:
         if n == 0:
             raise ValueError(f"RESULTS: '{results}' holds no completed frames; run 'dic run' "
                              f"into it first")
+        from .pipeline import _self_check
+
+        # every report carries the self-check of its settings on its own reference image
+        check = _self_check(results, {"window": window, "measure": measure})
         html, pdf = write_report(results, out, frames=_expand(_frames(args.frames), n),
-                                 window=window, measure=measure,
+                                 window=window, measure=measure, metrology=check,
                                  title=getattr(args, "title", None))
     except (ValueError, OSError) as exc:
         raise _as_option(exc) from None

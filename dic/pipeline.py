@@ -48,7 +48,7 @@ def tensile_namespace(t: dict, results_path, out_dir) -> argparse.Namespace:
 
 def _self_check(results_path, strain: dict):
     """The self-check of the analysis settings on its own reference image (None if that image
-    is not among the analysed files)."""
+    is not among the analysed files or is no longer readable)."""
     from .io import read_image
     from .metrology import self_check
     from .tracker import load_results
@@ -63,7 +63,7 @@ def _self_check(results_path, strain: dict):
         mask = res.roi_mask
     try:
         image = read_image(name)
-    except OSError:
+    except (OSError, ValueError):
         log.warning("self-check skipped: the reference image %s cannot be read", name)
         return None
     return self_check(image, subset=int(st["subset"]), step=int(st["step"]),
