@@ -140,12 +140,18 @@ def compose_increment(base: DisplacementField, inc: DisplacementField, dx, dy):
     F = np.einsum("...ij,...jk->...ik", eye + g, eye + base.grad)
     reason = np.where(base.valid, inc.reason, base.reason).astype(np.int8)
     nan = np.nan
+    sig = {}
+    for name in ("sigma_u", "sigma_v"):
+        a, b = getattr(base, name), getattr(inc, name)
+        if a is not None and b is not None:
+            # independent errors of the base and of the increment add in quadrature
+            sig[name] = np.where(ok, np.hypot(a, b), nan)
     return DisplacementField(
         x=base.x, y=base.y,
         u=np.where(ok, base.u + du, nan), v=np.where(ok, base.v + dv, nan),
         grad=np.where(ok[..., None, None], F - eye, nan),
         zncc=np.where(ok, inc.zncc, nan), reason=reason,
-        iterations=inc.iterations.copy(), grad2=None, settings=dict(inc.settings))
+        iterations=inc.iterations.copy(), grad2=None, settings=dict(inc.settings), **sig)
 
 
 @dataclass

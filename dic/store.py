@@ -40,6 +40,9 @@ Datasets (``F`` = ``n_frames``, ``(ny, nx)`` = grid shape)::
     /frames/zncc         (F, ny, nx)   float32  zero-normalised cross-correlation of each match
     /frames/reason       (F, ny, nx)   int8     reason code per point (dic.Reason; 0 = measured)
     /frames/iterations   (F, ny, nx)   int16    Gauss-Newton iterations
+    /frames/sigma_u, /frames/sigma_v (F, ny, nx) float32  predicted standard deviation of u and
+                                                v from each subset's Hessian and the image
+                                                noise (NaN where not measured or unknown)
     /frames/reference    (F,)          int32    index of the image each frame was matched against
     /frames/reference_update (F,)      uint8    1 where the tracker switched to a new reference
     /frames/finished     (F,)          ASCII    ISO 8601 UTC time each frame was completed
@@ -103,8 +106,8 @@ Alternatives weighed and rejected:
 - Compressed chunks: a compressed chunk's size varies, so every frame would change the chunk
   index and the file's end-of-allocation record, and without SWMR HDF5 does not order those
   metadata writes: a kill between them can leave pointers to space the file does not hold.
-  The price of the design chosen is that frames are stored uncompressed: 55 bytes per grid point
-  per frame (103 with second derivatives), plus 24 per strain group.
+  The price of the design chosen is that frames are stored uncompressed: 63 bytes per grid point
+  per frame (111 with second derivatives), plus 24 per strain group.
 - A side journal from which a damaged file is rebuilt would need a good copy of the whole file
   to rebuild from; the fixed layout needs no repair step at all.
 """
@@ -385,6 +388,8 @@ def _frame_layout(ny: int, nx: int, second: bool):
         ("zncc", (ny, nx), np.float32),
         ("reason", (ny, nx), np.int8),
         ("iterations", (ny, nx), np.int16),
+        ("sigma_u", (ny, nx), np.float32),
+        ("sigma_v", (ny, nx), np.float32),
     ]
     if second:
         out.append(("grad2", (ny, nx, 2, 3), np.float64))
@@ -1067,7 +1072,9 @@ def _read_field(f, k: int, x, y, settings) -> DisplacementField:
     fr = f["frames"]
     kw = {name: fr[name][k] for name in ("u", "v", "grad", "zncc", "reason", "iterations")}
     grad2 = fr["grad2"][k] if "grad2" in fr else None
-    return DisplacementField(x=x, y=y, grad2=grad2, settings=dict(settings), **kw)
+    sig = {name: fr[name][k].astype(np.float64) for name in ("sigma_u", "sigma_v")
+           if name in fr}
+    return DisplacementField(x=x, y=y, grad2=grad2, settings=dict(settings), **kw, **sig)
 
 
 def _strain_spec(measure, window, attrs):

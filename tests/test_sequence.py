@@ -160,3 +160,16 @@ def test_bad_sequences(tmp_path, sequence):
         dic.track(odd, tmp_path / "y.h5")
     with pytest.raises(ValueError, match="reference"):
         dic.track(folder, tmp_path / "z.h5", reference=99)
+
+
+def test_predicted_uncertainty_is_stored_per_point(sequence, tmp_path):
+    # Per-point predicted standard deviations travel into the results file (NaN where a point
+    # is not measured); with the 0.5 grey-level noise of these frames they are small but
+    # positive (Pan et al., Opt. Express 16 (2008) 7037: sigma_u ~ sqrt(2) sigma / sqrt(SSSIG))
+    folder, mask = sequence
+    res = dic.track(folder, tmp_path / "sig.h5", roi=mask, frames=range(4))
+    f = res.field(3)
+    assert f.sigma_u is not None and f.sigma_v is not None
+    ok = f.valid
+    assert np.all(np.isfinite(f.sigma_u[ok])) and np.all(np.isnan(f.sigma_u[~ok]))
+    assert 0 < np.median(f.sigma_u[ok]) < 0.01
