@@ -41,6 +41,9 @@ Example (``analysis.toml``)::
     gauge_length_mm = 40.0
     modulus_range_mpa = [20, 265]
 
+    [noise]                         # images of the unloaded specimen: the noise floor
+    images = "static/*.tif"
+
     [report]
     frames = [8, 16, -1]
     title = "Tensile test, coupon 7"
@@ -77,6 +80,7 @@ SCHEMA = {
                 "modulus_range_mpa": (list,), "offsets_percent": (list,),
                 "n_range_percent": (list,)},
     "report": {"frames": (list,), "title": (str,), "write": (bool,)},
+    "noise": {"images": (str, list)},
 }
 _SECTIONS = [s for s in SCHEMA if s is not None and s != "frames"]
 
@@ -222,4 +226,10 @@ def load_analysis(path) -> dict:
         out["tensile"] = t
     if "report" in data:
         out["report"] = dict(data["report"])
+    if "noise" in data:
+        imgs = data["noise"].get("images")
+        if imgs is None:
+            raise ValueError(f"{p.name}: [noise] needs images = the static images of the "
+                             f"unloaded specimen (a glob, folder or list)")
+        out["noise"] = {"images": rel(imgs) if isinstance(imgs, str) else [rel(i) for i in imgs]}
     return out

@@ -73,6 +73,33 @@ def _self_check(results_path, strain: dict):
                       measure=strain.get("measure", "green-lagrange"))
 
 
+def _noise_floor(results_path, out_dir, settings, written):
+    """The noise floor from the static images named in ``[noise]``, stored as
+    ``noise_floor.json`` beside the results (None without such images)."""
+    if not settings.get("noise"):
+        return None
+    import json
+
+    from .io import list_images
+    from .metrology import noise_floor
+    from .tracker import load_results, resolve_images
+
+    imgs = settings["noise"]["images"]
+    paths = resolve_images(imgs) if not isinstance(imgs, str) else list_images(imgs)
+    strain = settings.get("strain") or {}
+    with load_results(results_path) as res:
+        st, mask = res.settings, res.roi_mask
+    floor = noise_floor(paths, subset=int(st["subset"]), step=int(st["step"]),
+                        window=int(strain.get("window", 9)), roi=mask,
+                        measure=strain.get("measure", "green-lagrange"),
+                        shape_function=st.get("shape_function", "affine"),
+                        interpolation=st.get("interpolation", "quintic"))
+    target = Path(out_dir) / "noise_floor.json"
+    target.write_text(json.dumps(floor.as_dict(), indent=2, default=str), encoding="utf-8")
+    written["noise_floor"] = target
+    return floor
+
+
 def finish(results_path, out_dir, settings: dict) -> dict:
     """Tensile results (if a force log is set) and the report, into ``out_dir``.
 
@@ -84,7 +111,7 @@ def finish(results_path, out_dir, settings: dict) -> dict:
         Output folder.
     settings : dict
         The analysis settings (as from :func:`dic.config.load_analysis`); uses ``tensile``,
-        ``strain`` and ``report``.
+        ``strain``, ``noise`` and ``report``.
 
     Returns
     -------
@@ -110,12 +137,14 @@ def finish(results_path, out_dir, settings: dict) -> dict:
         strain = settings.get("strain") or {}
         frames = rep.get("frames")
         check = _self_check(results_path, strain)
+        metrology = [m for m in (check, _noise_floor(results_path, out_dir, settings, written))
+                     if m is not None]
         if check is not None:
             written["self_check"] = check
         html, pdf = write_report(results_path, out_dir, frames=frames,
                                  window=int(strain.get("window", 9)),
                                  measure=strain.get("measure", "green-lagrange"),
-                                 gauges=hist, tensile=tens, metrology=check,
+                                 gauges=hist, tensile=tens, metrology=metrology or None,
                                  title=rep.get("title"))
         written["report_html"], written["report_pdf"] = html, pdf
     return written
