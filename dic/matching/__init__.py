@@ -420,7 +420,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
 
 def _image_noise(value, ref, dfm, px, py, subset):
     """(reference, deformed) noise standard deviations: given, or estimated from each image
-    over the bounding box of the points' subsets (its central 256 x 256 px at most: the noise
+    over the bounding box of the points' subsets (its central 128 x 128 px at most: the noise
     is taken as the same everywhere, and the estimate then costs a few milliseconds)."""
     if value is not None:
         try:
@@ -438,7 +438,7 @@ def _image_noise(value, ref, dfm, px, py, subset):
         return (float("nan"), float("nan"))
     r0, r1 = max(int(py.min()) - half, 0), min(int(py.max()) + half + 1, ref.shape[0])
     c0, c1 = max(int(px.min()) - half, 0), min(int(px.max()) + half + 1, ref.shape[1])
-    big = 256
+    big = 128
     if r1 - r0 > big:
         r0 = (r0 + r1 - big) // 2
         r1 = r0 + big
