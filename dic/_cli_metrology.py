@@ -14,43 +14,16 @@ import math
 import sys
 from pathlib import Path
 
+from ._cli_types import positive_float, positive_int, rectangle
+
 __all__ = ["register", "run_pattern", "run_noise", "run_advise"]
 
 
 # --------------------------------------------------------------------------------------------
 # option types
 # --------------------------------------------------------------------------------------------
-def _rectangle(text):
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        if len(parts) != 4:
-            raise ValueError
-        values = tuple(float(p) for p in parts)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"expected X0,Y0,X1,Y1 as 4 comma-separated numbers (px), e.g. 20,30,580,270; got "
-            f"{text!r}") from None
-    if not all(math.isfinite(v) for v in values):
-        raise argparse.ArgumentTypeError(f"expected finite numbers, e.g. 20,30,580,270; got "
-                                         f"{text!r}")
-    return values
-
-
-def _positive(kind):
-    def parse(text):
-        try:
-            value = kind(text)
-        except ValueError:
-            value = None
-        if value is None or not (value > 0 and math.isfinite(value)):
-            raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
-        return value
-    parse.__name__ = kind.__name__
-    return parse
-
-
 def _odd(text):
-    value = _positive(int)(text)
+    value = positive_int(text)
     if value % 2 == 0:
         raise argparse.ArgumentTypeError(f"expected an odd whole number, got {text!r}")
     return value
@@ -69,7 +42,7 @@ def _odd_list(text):
 
 def _add_roi(parser):
     where = parser.add_mutually_exclusive_group()
-    where.add_argument("--roi", type=_rectangle, metavar="X0,Y0,X1,Y1",
+    where.add_argument("--roi", type=rectangle, metavar="X0,Y0,X1,Y1",
                        help="region of interest: rectangle corners in px (inclusive)")
     where.add_argument("--roi-mask", metavar="PATH",
                        help="region of interest: a mask image (non-zero inside)")
@@ -128,9 +101,9 @@ def register(subparsers):
                    help="subset size for the SSSIG and the verdict (default 21)")
     p.add_argument("--second-image", metavar="PATH",
                    help="a second image of the static specimen, for the image noise")
-    p.add_argument("--noise", type=_positive(float), metavar="GREY",
+    p.add_argument("--noise", type=positive_float, metavar="GREY",
                    help="image noise standard deviation, grey levels (default: estimated)")
-    p.add_argument("--bits", type=_positive(int), metavar="N",
+    p.add_argument("--bits", type=positive_int, metavar="N",
                    help="camera bit depth, e.g. 12 (default: from the largest grey level)")
     _add_roi(p)
     p.add_argument("--json", metavar="PATH", help="also write the numbers to a JSON file")
@@ -143,7 +116,7 @@ def register(subparsers):
     n.add_argument("images", nargs="+", metavar="IMAGES",
                    help="two or more images, a folder, or a glob pattern")
     n.add_argument("--subset", type=_odd, default=21, metavar="PX", help="subset (default 21)")
-    n.add_argument("--step", type=_positive(int), default=10, metavar="PX",
+    n.add_argument("--step", type=positive_int, default=10, metavar="PX",
                    help="grid step (default 10)")
     n.add_argument("--strain-window", type=_odd, default=9, metavar="N",
                    help="strain window in points (default 9)")
@@ -160,18 +133,18 @@ def register(subparsers):
                     "the one that meets the target (strain noise: with the smallest virtual "
                     "strain gauge; resolution only: with the least noise).")
     a.add_argument("image", metavar="IMAGE", help="the reference image")
-    a.add_argument("--target-noise", type=_positive(float), metavar="UE",
+    a.add_argument("--target-noise", type=positive_float, metavar="UE",
                    help="strain noise target, microstrain")
-    a.add_argument("--target-resolution", type=_positive(float), metavar="PX",
+    a.add_argument("--target-resolution", type=positive_float, metavar="PX",
                    help="strain spatial resolution target, px (mm with --pixel-size)")
-    a.add_argument("--pixel-size", type=_positive(float), metavar="MM",
+    a.add_argument("--pixel-size", type=positive_float, metavar="MM",
                    help="mm per px; then --target-resolution is in mm")
     a.add_argument("--subsets", type=_odd_list, metavar="LIST",
                    help="subset sizes to try, e.g. 15,21,31 (default 15,21,27,31,41)")
     a.add_argument("--windows", type=_odd_list, metavar="LIST",
                    help="strain windows to try, e.g. 5,9,15 (default 5,7,9,11,15)")
     a.add_argument("--shape-function", choices=("affine", "quadratic"), default="affine")
-    a.add_argument("--noise", type=_positive(float), metavar="GREY",
+    a.add_argument("--noise", type=positive_float, metavar="GREY",
                    help="image noise standard deviation, grey levels (default: estimated)")
     _add_roi(a)
     a.add_argument("--figure", metavar="PATH",

@@ -7,49 +7,15 @@ command line's ``main`` turns them into exit code 2); files written before an er
 
 from __future__ import annotations
 
-import argparse
 import logging
-import math
 import sys
 from pathlib import Path
+
+from ._cli_types import number, pair, positive_float
 
 __all__ = ["register", "run"]
 
 log = logging.getLogger("dic.cli")
-
-
-def _pair(text):
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        if len(parts) != 2:
-            raise ValueError
-        lo, hi = (float(p) for p in parts)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected LOW,HIGH as two numbers, e.g. 20,260; got "
-                                         f"{text!r}") from None
-    if not (math.isfinite(lo) and math.isfinite(hi) and lo < hi):
-        raise argparse.ArgumentTypeError(f"expected finite LOW < HIGH, got {text!r}")
-    return lo, hi
-
-
-def _positive(text):
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not (v > 0 and math.isfinite(v)):
-        raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
-    return v
-
-
-def _number(text):
-    try:
-        v = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"expected a number, got {text!r}") from None
-    if not math.isfinite(v):
-        raise argparse.ArgumentTypeError(f"expected a finite number, got {text!r}")
-    return v
 
 
 def register(subparsers):
@@ -100,37 +66,37 @@ def register(subparsers):
     how = s.add_mutually_exclusive_group()
     how.add_argument("--frame-times", type=Path, metavar="CSV",
                      help="per-image times, e.g. columns file,time_s")
-    how.add_argument("--frame-interval", type=_positive, metavar="S",
+    how.add_argument("--frame-interval", type=positive_float, metavar="S",
                      help="constant time between images, s")
     how.add_argument("--image-metadata", action="store_true",
                      help="capture times from the image files (EXIF), else their modification "
                           "times")
     how.add_argument("--by-index", action="store_true",
                      help="log row k belongs to image k (one row per camera trigger)")
-    s.add_argument("--trigger-offset", type=_number, default=0.0, metavar="S",
+    s.add_argument("--trigger-offset", type=number, default=0.0, metavar="S",
                    help="time on the force log's clock at the camera's time zero, s "
                         "(default: 0)")
     sp = p.add_argument_group("specimen")
-    sp.add_argument("--width", type=_positive, metavar="MM", help="width of the section, mm")
-    sp.add_argument("--thickness", type=_positive, metavar="MM", help="thickness, mm")
-    sp.add_argument("--area", type=_positive, metavar="MM2",
+    sp.add_argument("--width", type=positive_float, metavar="MM", help="width of the section, mm")
+    sp.add_argument("--thickness", type=positive_float, metavar="MM", help="thickness, mm")
+    sp.add_argument("--area", type=positive_float, metavar="MM2",
                     help="area of the section, mm^2 (instead of width and thickness)")
     ga = p.add_argument_group("gauges")
-    ga.add_argument("--gauge-length", type=_positive, metavar="MM",
+    ga.add_argument("--gauge-length", type=positive_float, metavar="MM",
                     help="axial gauge length, mm (default: 80 %% of the measured length)")
-    ga.add_argument("--transverse-length", type=_positive, metavar="MM",
+    ga.add_argument("--transverse-length", type=positive_float, metavar="MM",
                     help="transverse gauge length, mm (default: 80 %% of the measured width)")
     ga.add_argument("--axis", choices=("auto", "x", "y"), default="auto",
                     help="specimen axis in the image (default: auto, from the last frame)")
-    ga.add_argument("--scale", type=_positive, metavar="MM_PER_PX",
+    ga.add_argument("--scale", type=positive_float, metavar="MM_PER_PX",
                     help="image scale, when the results file has none")
     r = p.add_argument_group("results")
-    r.add_argument("--modulus-range", type=_pair, metavar="LO,HI",
+    r.add_argument("--modulus-range", type=pair, metavar="LO,HI",
                    help="stress range of the modulus fit, MPa (default: 10 %% to 40 %% of the "
                         "largest stress)")
-    r.add_argument("--offset", type=_positive, action="append", metavar="PCT", dest="offsets",
+    r.add_argument("--offset", type=positive_float, action="append", metavar="PCT", dest="offsets",
                    help="proof-strength offset, %% strain (repeat for several; default 0.2)")
-    r.add_argument("--n-range", type=_pair, metavar="LO,HI",
+    r.add_argument("--n-range", type=pair, metavar="LO,HI",
                    help="strain range for n and r, %% (default: 2 %% to Agt)")
     p.add_argument("--out", type=Path, metavar="DIR",
                    help="output folder (created if missing; default: the results file's "

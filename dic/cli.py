@@ -33,6 +33,7 @@ import sys
 import time
 from pathlib import Path
 
+from ._cli_types import numbers, positive_float, positive_int, rectangle
 from ._version import __version__
 
 __all__ = ["main"]
@@ -61,53 +62,14 @@ class _Parser(argparse.ArgumentParser):
         self.exit(EXIT_BAD_INPUT, f"dic: error: {_one_line(message)}; see '{self.prog} --help'\n")
 
 
-def _numbers(text, count, what, example, unit="px"):
-    parts = [p.strip() for p in str(text).split(",")]
-    try:
-        if len(parts) != count:
-            raise ValueError
-        values = tuple(float(p) for p in parts)
-    except ValueError:
-        raise argparse.ArgumentTypeError(
-            f"expected {what} as {count} comma-separated numbers ({unit}), e.g. {example}; got "
-            f"{text!r}") from None
-    if not all(v == v and abs(v) != float("inf") for v in values):
-        raise argparse.ArgumentTypeError(f"expected finite numbers, e.g. {example}; got {text!r}")
-    return values
-
-
-def _rectangle(text):
-    return _numbers(text, 4, "X0,Y0,X1,Y1", "20,30,580,270")
-
-
 def _scale_line(text):
-    values = _numbers(text, 5, "X0,Y0,X1,Y1,MM", "69.5,120,569.5,120,40", unit="px and mm")
+    values = numbers(text, 5, "X0,Y0,X1,Y1,MM", "69.5,120,569.5,120,40", unit="px and mm")
     from .config import scale_from_line
 
     try:
         return scale_from_line(values[:4], values[4])
     except ValueError as exc:
         raise argparse.ArgumentTypeError(str(exc)) from None
-
-
-def _positive_float(text):
-    try:
-        value = float(text)
-    except ValueError:
-        value = float("nan")
-    if not (value > 0 and value != float("inf")):
-        raise argparse.ArgumentTypeError(f"expected a positive number, e.g. 0.08; got {text!r}")
-    return value
-
-
-def _positive_int(text):
-    try:
-        value = int(text)
-    except ValueError:
-        value = 0
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"expected a whole number of at least 1; got {text!r}")
-    return value
 
 
 def _frame_range(text):
@@ -193,7 +155,7 @@ def _add_run(commands):
     m.add_argument("--step", type=int, metavar="PX",
                    help=f"grid spacing in px (default: {d['step']})")
     where = m.add_mutually_exclusive_group()
-    where.add_argument("--roi", type=_rectangle, metavar="X0,Y0,X1,Y1",
+    where.add_argument("--roi", type=rectangle, metavar="X0,Y0,X1,Y1",
                        help="measure inside this rectangle only (px, corners included)")
     where.add_argument("--roi-mask", metavar="PATH",
                        help="measure where this mask image (same size) is non-zero")
@@ -206,12 +168,12 @@ def _add_run(commands):
                    help=f"reject matches with a lower ZNCC (default: {d['min_zncc']})")
     m.add_argument("--search", type=int, metavar="PX",
                    help=f"seed search radius in px for the first image (default: {d['search']})")
-    m.add_argument("--block", type=_positive_int, metavar="N",
+    m.add_argument("--block", type=positive_int, metavar="N",
                    help=f"images per block of parallel work; part of the settings, since it "
                         f"fixes which image each one starts from (default: {d['block']})")
     s = run.add_argument_group("scale and strain")
     scale = s.add_mutually_exclusive_group()
-    scale.add_argument("--scale", type=_positive_float, metavar="MM_PER_PX",
+    scale.add_argument("--scale", type=positive_float, metavar="MM_PER_PX",
                        help="image scale in mm per pixel, stored with the results")
     scale.add_argument("--scale-line", type=_scale_line, metavar="X0,Y0,X1,Y1,MM",
                        help="image scale from two points (px) a known distance (mm) apart")
@@ -225,7 +187,7 @@ def _add_run(commands):
                         f"{_STRAIN_DEFAULTS['measure']})")
     p = run.add_argument_group("where to run")
     here = p.add_mutually_exclusive_group()
-    here.add_argument("--workers", type=_positive_int, metavar="N",
+    here.add_argument("--workers", type=positive_int, metavar="N",
                       help="N single-threaded worker processes, each on blocks of images "
                            "(default: this process, the matching on all cores)")
     here.add_argument("--cluster", metavar="ADDRESS",

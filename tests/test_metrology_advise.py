@@ -7,7 +7,6 @@ noise draws, so they are independent of the self-check images the advice was com
 """
 
 import argparse
-import importlib.util
 import io
 import json
 import math
@@ -25,15 +24,6 @@ from dic.metrology import advise
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLE = ROOT / "sample_images" / "coupon_000.png"
 SUBSETS, WINDOWS = (15, 21, 31), (5, 9, 15)
-
-
-@pytest.fixture(scope="module")
-def gen():
-    spec = importlib.util.spec_from_file_location("make_sample_images",
-                                                  ROOT / "scripts" / "make_sample_images.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
 
 
 @pytest.fixture(scope="module")

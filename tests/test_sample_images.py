@@ -7,7 +7,6 @@ X, no inversion needed). Material numbers are checked against the handbook value
 claims (6061-T6 typical properties, ASM Handbook Vol. 2 / MatWeb, from memory).
 """
 
-import importlib.util
 import math
 from pathlib import Path
 
@@ -21,16 +20,6 @@ ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_images"
 N_FRAMES = 24
 SHAPE = (240, 640)
-
-
-@pytest.fixture(scope="module")
-def gen():
-    """The generator script, imported as a module (scripts/ is not a package)."""
-    spec = importlib.util.spec_from_file_location("make_sample_images",
-                                                  ROOT / "scripts" / "make_sample_images.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
 
 
 def read16(path):

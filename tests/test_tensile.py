@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import argparse
 import csv
-import importlib.util
 import json
 import math
 from pathlib import Path
@@ -216,15 +215,6 @@ def test_outputs_carry_standards_ranges_and_the_caution(tmp_path):
 # --------------------------------------------------------------------------------------------
 # end to end on the sample images
 # --------------------------------------------------------------------------------------------
-@pytest.fixture(scope="module")
-def gen():
-    spec = importlib.util.spec_from_file_location("make_sample_images",
-                                                  ROOT / "scripts" / "make_sample_images.py")
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
-    return mod
-
-
 @pytest.fixture(scope="module")
 def tracked(tmp_path_factory, gen):
     """The 24 sample frames tracked into a results file (subset 21, step 8, band ROI)."""
