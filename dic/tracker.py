@@ -284,10 +284,15 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
                   roi=("mask" if roi is not None else "whole image"),
                   strain=strain or {})
 
-    # the grid is that of the reference image against itself
+    # the grid of points, as dic.correlate lays it out (no matching needed for that)
+    from .matching import prepare_grid
+    from .matching._icgn import INTERPOLATIONS, edge_margin
+
+    xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
+                          edge_margin(INTERPOLATIONS[settings.interpolation]))[:2]
+    grid_x, grid_y = (a.astype(np.float64) for a in np.meshgrid(xs, ys))
     first_stage = _Stage(items[reference], mask, None, settings, int(reference))
     matcher0 = first_stage.matcher()
-    grid = matcher0.match(ref_img, None)[1]
     # the first stage's matcher lives in the cache only, so that it is dropped when the
     # reference changes: memory stays flat however many times that happens
     _WORKER_CACHE.clear()
@@ -295,7 +300,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     del matcher0, ref_img
 
     writer = store.open_for_writing(
-        out, settings=record, grid_x=grid.x, grid_y=grid.y, n_frames=len(order),
+        out, settings=record, grid_x=grid_x, grid_y=grid_y, n_frames=len(order),
         image_names=names, image_sha256=shas, roi_mask=mask, scale_mm_per_px=scale,
         overwrite=overwrite)
     executor, threads = _make_executor(workers, cluster)
