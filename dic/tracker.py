@@ -284,8 +284,12 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
                   roi=("mask" if roi is not None else "whole image"),
                   strain=strain or {})
 
-    # the grid of points, as dic.correlate lays it out (no matching needed for that)
-    from .matching import prepare_grid
+    # the grid of points, as dic.correlate lays it out (no matching needed for that), after
+    # the same checks of the options that dic.correlate makes
+    from .matching import _check_options, prepare_grid
+
+    _check_options(subset, step, shape_function, interpolation, search, min_zncc, 50, 3e-3,
+                   0.02)
     from .matching._icgn import INTERPOLATIONS, edge_margin
 
     xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
