@@ -509,7 +509,10 @@ def _run(args, out=None):
     t0 = time.perf_counter()
     try:
         try:
-            results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
+            from .tracker import stop_on_interrupt
+
+            with stop_on_interrupt():
+                results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
         except ValueError as exc:
             if str(exc).endswith((_FIX_SETTINGS, _FIX_IMAGES)):  # another analysis's file
                 raise ValueError(f"{exc}, or add --overwrite to replace it") from None

@@ -112,6 +112,43 @@ class _Stage:
 
 _WORKER_CACHE: dict = {}
 
+# a stop asked for (e.g. by Ctrl-C, see stop_on_interrupt): honoured after the next frame written
+_STOP = {"asked": False}
+
+
+def stop_on_interrupt():
+    """A context manager: Ctrl-C during :func:`track` stops it after the frame being written.
+
+    The first SIGINT only asks for a stop, which the tracker honours at its next safe point (a
+    frame completely written) by raising KeyboardInterrupt there; a second SIGINT interrupts at
+    once. A KeyboardInterrupt raised wherever the signal happens to land could be swallowed (for
+    example inside a garbage-collection callback) and the run would go on.
+    """
+    import contextlib
+    import signal
+    import threading
+
+    @contextlib.contextmanager
+    def guard():
+        if threading.current_thread() is not threading.main_thread():
+            yield
+            return
+
+        def handler(signum, frame):
+            if _STOP["asked"]:
+                raise KeyboardInterrupt
+            _STOP["asked"] = True
+
+        _STOP["asked"] = False
+        old = signal.signal(signal.SIGINT, handler)
+        try:
+            yield
+        finally:
+            signal.signal(signal.SIGINT, old)
+            _STOP["asked"] = False
+
+    return guard()
+
 
 def _worker_matcher(stage: _Stage, key) -> FrameMatcher:
     m = _WORKER_CACHE.get(key)
@@ -474,6 +511,8 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
                     _write_strain(writer, k, total, strain)
                 if bar is not None:
                     bar.update(1)
+                if _STOP["asked"]:
+                    raise KeyboardInterrupt
             last_total = total
         if error is not None:
             raise error
