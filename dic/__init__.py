@@ -18,41 +18,44 @@ from __future__ import annotations
 
 import importlib
 
-from ._version import __version__
-from .field import DisplacementField, Reason
+from dic._version import __version__
+from dic.field import DisplacementField, Reason
 
 # name -> module that defines it; loaded on first attribute access (PEP 562)
 _LAZY = {
     "correlate": "dic.matching",
-    "read_image": "dic.io",
-    "make_roi": "dic.roi",
+    "read_image": "dic.images.io",
+    "make_roi": "dic.images.roi",
     "strain_field": "dic.strain",
     "StrainField": "dic.strain",
-    "synth": "dic.synth",
-    "track": "dic.tracker",
-    "load_results": "dic.tracker",
-    "tensile_results": "dic.tensile",
+    "track": "dic.sequence.track",
+    "load_results": "dic.sequence.track",
+    "tensile_results": "dic.tensile.results",
+    "gauge_histories": "dic.tensile.gauges",
 }
 
-# sub-modules reachable as attributes (``dic.io``) without an explicit import
-_SUBMODULES = {"io", "roi", "synth", "interp", "strain", "matching", "plot", "export", "cli",
-               "store", "sequence", "tracker", "animate", "report", "gauges", "tensile",
-               "forcelog", "config", "metrology"}
+# sub-packages and modules reachable as attributes (``dic.synth``) without an explicit import
+_SUBMODULES = {
+    "images": "dic.images", "io": "dic.images.io", "roi": "dic.images.roi",
+    "interp": "dic.images.interp", "synth": "dic.images.synth",
+    "matching": "dic.matching", "strain": "dic.strain", "sequence": "dic.sequence",
+    "metrology": "dic.metrology", "tensile": "dic.tensile", "figures": "dic.figures",
+    "report": "dic.report", "export": "dic.export", "workflow": "dic.workflow",
+}
 
 __all__ = ["__version__", "DisplacementField", "Reason", *_LAZY]
 
 
 def __getattr__(name):
-    mod = _LAZY.get(name)
-    if mod is None and name in _SUBMODULES:
-        mod = f"dic.{name}"
-    if mod is None:
+    if name in _LAZY:
+        value = getattr(importlib.import_module(_LAZY[name]), name)
+    elif name in _SUBMODULES:
+        value = importlib.import_module(_SUBMODULES[name])
+    else:
         raise AttributeError(f"module 'dic' has no attribute {name!r}")
-    module = importlib.import_module(mod)
-    value = module if mod == f"dic.{name}" and not hasattr(module, name) else getattr(module, name)
     globals()[name] = value
     return value
 
 
 def __dir__():
-    return sorted(set(globals()) | set(_LAZY) | _SUBMODULES)
+    return sorted(set(globals()) | set(_LAZY) | set(_SUBMODULES))

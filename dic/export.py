@@ -24,8 +24,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ._version import __version__
-from .field import DisplacementField
+from dic._version import __version__
+from dic.field import DisplacementField
 
 __all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "export_results", "field_from_npz", "field_to_csv",
            "field_to_npz", "frame_to_csv", "results_to_npz", "results_to_vtk"]
@@ -221,7 +221,7 @@ _TABLE_FMT = "%.9g"
 
 def _check_components(components):
     """Checked tuple of strain quantity names (a list or a comma-separated string)."""
-    from .plot import STRAIN_QUANTITIES
+    from dic.figures.plot import STRAIN_QUANTITIES
 
     if isinstance(components, str):
         components = [c for c in components.split(",")]
@@ -244,13 +244,13 @@ def _column(name):
 
 
 def _strain_columns(strain, components):
-    from .plot import _quantity_values
+    from dic.figures.plot import _quantity_values
 
     return {_column(c): _quantity_values(strain, c) for c in components}
 
 
 def _open(results):
-    from .animate import _open_results
+    from dic.figures.animate import _open_results
 
     res, opened = _open_results(results)
     if len(res) == 0:
@@ -278,7 +278,7 @@ def _out_folder(out_dir, what="the exported files"):
 
 
 def _strain_note(strain):
-    from .plot import _MEASURE_TITLES
+    from dic.figures.plot import _MEASURE_TITLES
 
     vsg = f", VSG {strain.vsg:g} px" if np.isfinite(strain.vsg) else ""
     return (f"{_MEASURE_TITLES.get(strain.measure, strain.measure)} strain, {strain.fit} fit, "
@@ -308,13 +308,13 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.store.Results
+    results : str, os.PathLike or dic.sequence.store.Results
     k : int
         Completed frame (negative counts from the end).
     path : str or os.PathLike
         Output file; its folder must exist.
     components : sequence of str or str, optional
-        Strain quantities (see :data:`dic.plot.STRAIN_QUANTITIES`), e.g. ``("xx", "yy", "xy")``
+        Strain quantities (see :data:`dic.figures.plot.STRAIN_QUANTITIES`), e.g. ``("xx", "yy", "xy")``
         or ``"xx,yy,xy"``.
     window, measure : optional
         As for :func:`dic.strain_field`.
@@ -393,7 +393,7 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.store.Results
+    results : str, os.PathLike or dic.sequence.store.Results
     path : str or os.PathLike
         Output archive (``.npz`` is added if missing); its folder must exist.
     frames : sequence of int or slice, optional
@@ -426,7 +426,7 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
     if not p.parent.is_dir():
         raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
                                 f"writing '{p.name}'")
-    from .plot import _frame_indices
+    from dic.figures.plot import _frame_indices
 
     res, opened = _open(results)
     try:
@@ -529,7 +529,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.store.Results
+    results : str, os.PathLike or dic.sequence.store.Results
     out_dir : str or os.PathLike
         Folder for the files (created if missing).
     frames, components, window, measure : optional
@@ -557,7 +557,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
     .. [1] Kitware, VTK File Formats (VTK User's Guide, "XML File Formats": StructuredGrid,
        Collection), https://docs.vtk.org/en/latest/design_documents/VTKFileFormats.html
     """
-    from .plot import _frame_indices
+    from dic.figures.plot import _frame_indices
 
     comps = _check_components(components)
     if not isinstance(name, str) or not name or any(c in name for c in "/\\\0"):
@@ -626,7 +626,7 @@ def export_results(results, out_dir, *, format="csv", frames=None,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.store.Results
+    results : str, os.PathLike or dic.sequence.store.Results
     out_dir : str or os.PathLike
         Folder for the files (created if missing).
     format : {'csv', 'npz', 'vtk'}, optional
@@ -653,8 +653,8 @@ def export_results(results, out_dir, *, format="csv", frames=None,
     OSError
         Unreadable results file or an output folder that cannot be written.
     """
-    from .plot import _frame_indices
-    from .strain import canonical_measure
+    from dic.figures.plot import _frame_indices
+    from dic.strain import canonical_measure
 
     fmt = format.strip().lower() if isinstance(format, str) else None
     if fmt not in EXPORT_FORMATS:

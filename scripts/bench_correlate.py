@@ -41,7 +41,7 @@ def main(argv=None) -> int:
     import cv2
 
     import dic
-    from dic import synth
+    from dic.images import synth
 
     # import time of the package in a fresh interpreter
     t_imp = float(subprocess.run(

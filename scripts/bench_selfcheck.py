@@ -2,7 +2,7 @@
 
 1. Noise predicted from one image of the pattern (``pattern_quality``, noise estimated from that
    image) against the displacement noise measured on pairs of synthetic images with known noise
-   (``dic.synth``, subpixel shift, independent noise draws). Bar: within 20 %.
+   (``dic.images.synth``, subpixel shift, independent noise draws). Bar: within 20 %.
 2. Per-point predicted sigma (``DisplacementField.sigma_u``) against the measured noise floor of
    a stack of static images (``noise_floor``).
 3. Self-check spatial resolution against the 10 % attenuation period of the Savitzky-Golay
@@ -30,7 +30,7 @@ SETTINGS = [(21, 10, 9, "affine"), (21, 4, 9, "affine"), (15, 3, 11, "affine"),
 
 def predicted_vs_measured(patterns, pairs):
     import dic
-    from dic import synth
+    from dic.images import synth
     from dic.metrology import pattern_quality
 
     print("1. predicted displacement noise (one image) vs measured (pairs), subset 21 px, "
@@ -57,7 +57,7 @@ def predicted_vs_measured(patterns, pairs):
 
 
 def sigma_vs_floor(n_images):
-    from dic import synth
+    from dic.images import synth
     from dic.metrology import noise_floor
 
     shape = (180, 180)
@@ -75,7 +75,7 @@ def sigma_vs_floor(n_images):
 
 
 def resolution_vs_theory(settings):
-    from dic import synth
+    from dic.images import synth
     from dic.metrology import self_check
 
     shape = (240, 640)

@@ -2,7 +2,7 @@
 
 What it measures
 ----------------
-A synthetic tensile test -- exact analytic speckle (dic.synth) under a uniform stretch plus a
+A synthetic tensile test -- exact analytic speckle (dic.images.synth) under a uniform stretch plus a
 diffuse neck that grows linearly to ``--strain`` engineering strain at the neck centre -- is
 rendered ONCE into a temporary folder as 8-bit PNG (100 frames of 1632 x 1232 px, about
 2 megapixels, by default; rendering time is printed on its own). The sequence is then tracked
@@ -59,7 +59,7 @@ MEMORY_ALLOWANCE = 1.10
 # rendering
 # --------------------------------------------------------------------------------------------
 def _field(k, n, shape, strain):
-    from dic import synth
+    from dic.images import synth
 
     rows, cols = shape
     e = strain * k / max(n - 1, 1)
@@ -71,12 +71,12 @@ def _field(k, n, shape, strain):
 def _render_one(args):
     k, n, shape, strain, folder = args
     import dic
-    from dic import synth
+    from dic.images import synth
 
     pattern = synth.make_speckle(shape, radius=2.5, seed=2024)
     img = synth.render(pattern, shape, _field(k, n, shape, strain) if k else None, noise=1.0,
                        seed=k, bits=8)
-    dic.io.write_image(Path(folder) / f"frame_{k:04d}.png", img, bits=8)
+    dic.images.io.write_image(Path(folder) / f"frame_{k:04d}.png", img, bits=8)
     return k
 
 

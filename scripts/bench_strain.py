@@ -1,6 +1,6 @@
 """Benchmark: strain noise floor of the whole chain, and the speed of the strain stage.
 
-Noise floor: one analytic speckle pattern (``dic.synth``) is rendered twice WITHOUT any
+Noise floor: one analytic speckle pattern (``dic.images.synth``) is rendered twice WITHOUT any
 deformation, each copy with independent Gaussian image noise of ``--sigma`` grey levels and
 quantised to the pattern's bit depth. The pair is matched (``dic.correlate``, affine, quintic)
 and turned into Green-Lagrange strain (``dic.strain_field``, plane fit); the true strain is zero
@@ -90,7 +90,7 @@ def _sssig_maps(pattern, n, subset):
     """Subset sums of fx^2 and fy^2 from the exact analytic pattern (central differences)."""
     from scipy.ndimage import uniform_filter
 
-    from dic import synth
+    from dic.images import synth
 
     yy, xx = np.mgrid[0:n, 0:n].astype(np.float64)
     d = 1e-3
@@ -104,7 +104,7 @@ def _sssig_maps(pattern, n, subset):
 
 def noise_floor(args, settings, patterns):
     import dic
-    from dic import synth
+    from dic.images import synth
 
     n, sigma = args.size, args.sigma
     print(f"Strain noise floor, zero strain, {n} x {n} px, image noise sigma = {sigma:g} grey "

@@ -25,12 +25,12 @@ invented uniform elongation of 10 %. E = 68.9 GPa and Poisson's ratio 0.33 (elas
 flow keeps the volume (width and thickness strains equal). Handbook values: typical properties of
 6061-T6 as listed by the ASM Handbook (Vol. 2) and MatWeb, from memory.
 
-The displacement field of frame ``k`` is :func:`dic.synth.tensile_neck` along ``x`` (uniform
+The displacement field of frame ``k`` is :func:`dic.images.synth.tensile_neck` along ``x`` (uniform
 stretch about the neck centre plus a ``sech^2`` neck) with our own lateral contraction
 ``dy/dY = (1 - nu e_el) sqrt((1 + e_el) / (1 + e(X)))`` (elastic Poisson contraction times
 plastic volume constancy, ``e_el = sigma_eng / E``), plus a rigid shift (0.5 px per mm of
 crosshead travel along ``x``, up to 0.3 px sideways drift). Images are rendered exactly from an
-analytic speckle (:mod:`dic.synth`, no interpolation of a stored image): Gaussian paint drops
+analytic speckle (:mod:`dic.images.synth`, no interpolation of a stored image): Gaussian paint drops
 whose optical depths add, the paint reflecting ``BLACK + (WHITE - BLACK) exp(-depth)`` (200 to
 3900 grey levels, so overlapping drops saturate towards black instead of clipping), the
 band edge blurred by a Gaussian of 1.2 px (as a lens would; a sharp edge is not band-limited and
@@ -250,13 +250,13 @@ def gauge_strain(state):
 # displacement field
 # --------------------------------------------------------------------------------------------
 def coupon_field(k):
-    """Exact displacement field of frame ``k`` (a :class:`dic.synth.Displacement`).
+    """Exact displacement field of frame ``k`` (a :class:`dic.images.synth.Displacement`).
 
-    ``u`` is :func:`dic.synth.tensile_neck` (``lateral="none"``); ``v`` is our lateral
+    ``u`` is :func:`dic.images.synth.tensile_neck` (``lateral="none"``); ``v`` is our lateral
     contraction ``(lam(X) - 1) (Y - yc)`` with ``lam = (1 - nu e_el) sqrt((1 + e_el) /
     (1 + e(X)))``, ``e(X)`` the local axial engineering strain, plus the rigid shift.
     """
-    import dic.synth as synth
+    import dic.images.synth as synth
 
     st = state_at(frame_time(k))
     e0, e1, e_el = st["e0"], st["e1"], st["e_el"]
@@ -294,7 +294,7 @@ def coupon_field(k):
 # --------------------------------------------------------------------------------------------
 def make_pattern():
     """The paint drops: analytic Gaussian blobs of optical depth, reference coordinates."""
-    import dic.synth as synth
+    import dic.images.synth as synth
 
     return synth.make_speckle((ROWS, COLS), radius=SPECKLE_RADIUS, density=SPECKLE_DENSITY,
                               contrast=SPECKLE_DEPTH, background=0.0, seed=SEED)
@@ -302,7 +302,7 @@ def make_pattern():
 
 def render_clean(pattern, k):
     """Noise-free float image of frame ``k`` (frame 0 = reference, no displacement)."""
-    import dic.synth as synth
+    import dic.images.synth as synth
     from scipy.special import erf
 
     yy, xx = np.mgrid[0:ROWS, 0:COLS].astype(np.float64)
@@ -513,7 +513,7 @@ def main(argv=None) -> int:
     ap.add_argument("--quiet", action="store_true", help="print only the summary line")
     args = ap.parse_args(argv)
 
-    from dic.io import write_image
+    from dic.images.io import write_image
 
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)

@@ -1,7 +1,7 @@
 """The ``dic`` command line, run in-process through ``main([...])``.
 
 The oracle for the numbers is the exactly known motion of synthetic images: a speckle pattern
-rendered analytically (dic.synth, no interpolation) and a copy translated by (1.5, -0.75) px,
+rendered analytically (dic.images.synth, no interpolation) and a copy translated by (1.5, -0.75) px,
 both quantised to 8-bit PNG.
 """
 
@@ -18,8 +18,8 @@ import pytest
 import dic
 from dic.cli import main
 from dic.export import CSV_COLUMNS
-from dic.io import image_info, read_image, write_image
-from dic.store import Results
+from dic.images.io import image_info, read_image, write_image
+from dic.sequence.store import Results
 
 SHIFT = (1.5, -0.75)
 SIZE = (200, 200)
@@ -38,7 +38,7 @@ TOL_GRAD = 0.005
 @pytest.fixture(scope="module")
 def pair(tmp_path_factory):
     """A folder with ``img_9.png`` (reference) and ``img_10.png`` (translated by SHIFT)."""
-    from dic import synth
+    from dic.images import synth
 
     folder = tmp_path_factory.mktemp("pair")
     pattern = synth.make_speckle(SIZE, radius=2.5, seed=7)

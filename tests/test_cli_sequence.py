@@ -1,8 +1,8 @@
 """``dic run`` and ``dic info`` on a whole image sequence, end to end.
 
-The images are exact analytic speckle (dic.synth; Zhou & Goodson, Opt. Eng. 40 (2001) 1613)
+The images are exact analytic speckle (dic.images.synth; Zhou & Goodson, Opt. Eng. 40 (2001) 1613)
 rendered under the analytic field of a tensile test with a diffuse neck
-(dic.synth.tensile_neck), written as 16-bit TIFF, so the true displacement of every reference
+(dic.images.synth.tensile_neck), written as 16-bit TIFF, so the true displacement of every reference
 point is known in every frame: that is the oracle for the numbers. Crash safety is checked by
 killing a real ``python -m dic run`` process (SIGKILL, SIGINT) and comparing the resumed file
 with an uninterrupted run, number for number.
@@ -24,9 +24,9 @@ import numpy as np
 import pytest
 
 import dic
-from dic import synth
+from dic.images import synth
 from dic.cli import main
-from dic.store import Results
+from dic.sequence.store import Results
 
 ROOT = Path(__file__).resolve().parent.parent
 SHAPE = (160, 240)                     # rows, cols
@@ -54,7 +54,7 @@ def _write_sequence(folder, shape=SHAPE, n=N_FRAMES):
     for k in range(n):
         img = synth.render(pattern, shape, _field(STRAINS[k]) if k else None, noise=0.5, seed=k)
         # x 16: 16-bit grey levels well inside 0..65535 (about 600..11300)
-        dic.io.write_image(folder / f"frame{k}.tif", img * 16, bits=16)
+        dic.images.io.write_image(folder / f"frame{k}.tif", img * 16, bits=16)
     return folder
 
 
@@ -236,11 +236,11 @@ step = 12
 def test_analysis_file_with_a_report_table_finishes_the_pipeline(frames, tmp_path,
                                                                   monkeypatch):
     # [tensile] and [report] in the analysis file: once the results file is complete, dic run
-    # hands it to dic.pipeline.finish with those tables (the report itself is tested there)
-    import dic.pipeline
+    # hands it to dic.workflow.run.finish with those tables (the report itself is tested there)
+    import dic.workflow.run
 
     calls = []
-    monkeypatch.setattr(dic.pipeline, "finish",
+    monkeypatch.setattr(dic.workflow.run, "finish",
                         lambda results, out, settings: calls.append((results, out, settings))
                         or {})
     toml = _toml(tmp_path / "r.toml", f"""
@@ -299,7 +299,7 @@ def test_output_folder_gets_results_file_tables_and_maps(frames, tmp_path, capsy
 # --------------------------------------------------------------------------------------------
 def test_interrupted_run_survives_failing_resumes(frames, reference_run, tmp_path, capsys,
                                                   monkeypatch):
-    from dic import store
+    from dic.sequence import store
 
     out = tmp_path / "part.h5"
     cmd = ["run", str(frames), "--out", str(out), "--shape-function", "quadratic", "-q"]
@@ -356,13 +356,13 @@ def bad_inputs(frames, tmp_path_factory):
     cases = {}
     sizes = base / "sizes"
     sizes.mkdir()
-    dic.io.write_image(sizes / "a1.tif", img, bits=16)
-    dic.io.write_image(sizes / "a2.tif", img[:, :-8], bits=16)
+    dic.images.io.write_image(sizes / "a1.tif", img, bits=16)
+    dic.images.io.write_image(sizes / "a2.tif", img[:, :-8], bits=16)
     cases["frames of different sizes"] = ([str(sizes)], "a2.tif")
     depths = base / "depths"
     depths.mkdir()
-    dic.io.write_image(depths / "a1.tif", img, bits=16)
-    dic.io.write_image(depths / "a2.tif", img / 64, bits=8)
+    dic.images.io.write_image(depths / "a1.tif", img, bits=16)
+    dic.images.io.write_image(depths / "a2.tif", img / 64, bits=8)
     cases["frames of different bit depths"] = ([str(depths)], "a2.tif")
     trunc = base / "trunc"
     trunc.mkdir()

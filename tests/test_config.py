@@ -4,7 +4,7 @@ import math
 
 import pytest
 
-from dic.config import load_analysis, scale_from_line
+from dic.workflow.config import load_analysis, scale_from_line
 
 
 def _write(tmp_path, text):

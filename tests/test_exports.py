@@ -1,5 +1,5 @@
 """Exports of whole results files (dic.export): CSV per frame, one NumPy archive, VTK series;
-and the ``dic export`` command (dic._cli_report).
+and the ``dic export`` command (dic.cli.report).
 
 The VTK files are read back with a minimal reader written here from the file-format
 specification (Kitware, "VTK File Formats", XML StructuredGrid and Collection), not with the
@@ -18,9 +18,10 @@ import numpy as np
 import pytest
 
 import dic
-from dic import export, synth
-from dic._cli_report import register
-from dic.store import open_for_writing
+from dic import export
+from dic.images import synth
+from dic.cli.report import register
+from dic.sequence.store import open_for_writing
 
 SHAPE = (80, 128)
 SCALE = 0.04
@@ -36,7 +37,7 @@ def run(tmp_path_factory):
         d = synth.tensile_neck(e, centre=(64.0, 40.0), neck_strain=0.5 * e,
                                neck_width=25.0) if k else None
         img = synth.render(pat, SHAPE, d, noise=0.5, seed=k)
-        paths.append(dic.io.write_image(folder / f"g{k}.png", img * 16, bits=16))
+        paths.append(dic.images.io.write_image(folder / f"g{k}.png", img * 16, bits=16))
     mask = np.zeros(SHAPE, bool)
     mask[12:68, 8:120] = True
     with_scale = dic.track(paths, folder / "scaled.h5", subset=15, step=STEP, roi=mask,

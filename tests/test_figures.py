@@ -1,4 +1,4 @@
-"""Strain maps, the measure comparison, line plots and animations (dic.plot, dic.animate).
+"""Strain maps, the measure comparison, line plots and animations (dic.figures.plot, dic.figures.animate).
 
 Two kinds of data: a homogeneous stretch built by hand (every strain value known in closed
 form), and a small sequence tracked by dic.track on exact synthetic speckle images with a hole
@@ -15,8 +15,9 @@ import numpy as np
 import pytest
 
 import dic
-import dic.animate
-from dic import plot, synth
+import dic.figures.animate
+from dic.figures import plot
+from dic.images import synth
 from dic.field import DisplacementField, Reason
 
 SHAPE = (96, 160)
@@ -43,7 +44,7 @@ def run(tmp_path_factory):
         d = synth.tensile_neck(0.6 * e, centre=CENTRE, neck_strain=0.4 * e,
                                neck_width=30.0) if k else None
         img = synth.render(pat, SHAPE, d, noise=0.5, seed=k)
-        paths.append(dic.io.write_image(folder / f"f{k}.png", img * 16, bits=16))
+        paths.append(dic.images.io.write_image(folder / f"f{k}.png", img * 16, bits=16))
     res = dic.track(paths, folder / "run.h5", subset=15, step=STEP, roi=_mask(), scale=SCALE)
     return res, paths
 
@@ -271,7 +272,7 @@ def test_contours_gauges_and_scale_bar(run):
 def test_quality_map_and_valid_point_counts(run):
     res, paths = run
     f = res.field(len(res) - 1)
-    fig, ax = plot.quality_map(f, dic.io.read_image(paths[0]), scale=SCALE)
+    fig, ax = plot.quality_map(f, dic.images.io.read_image(paths[0]), scale=SCALE)
     (im,) = _by_gid(ax, "zncc")
     np.testing.assert_array_equal(np.ma.getmaskarray(im.get_array()), ~f.valid)
     assert im.get_cmap().name.startswith("cividis") and im.norm.vmax == 1.0
@@ -364,7 +365,7 @@ def test_gif_animation(run, tmp_path):
 
     res, _ = run
     force = np.array([0.0, 1.5, 3.0, np.nan])
-    p = dic.animate.animate(res, tmp_path / "xx.gif", window=5, fps=4, force=force,
+    p = dic.figures.animate.animate(res, tmp_path / "xx.gif", window=5, fps=4, force=force,
                             size=(6, 3.5), dpi=80)
     with Image.open(p) as im:  # read back with Pillow
         assert im.n_frames == len(res)
@@ -379,7 +380,7 @@ def test_mp4_animation(run, tmp_path):
     import imageio_ffmpeg
 
     res, _ = run
-    p = dic.animate.animate(res, tmp_path / "eq.mp4", component="equivalent", window=5,
+    p = dic.figures.animate.animate(res, tmp_path / "eq.mp4", component="equivalent", window=5,
                             configuration="deformed", fps=5, size=(6, 3.5), dpi=80,
                             frames=[1, 2, 3])
     # decoded by the ffmpeg program itself (imageio-ffmpeg): 3 frames at 5 per second
@@ -395,6 +396,6 @@ def test_mp4_animation(run, tmp_path):
     assert meta["codec"] == "h264" and meta["fps"] == pytest.approx(5.0)
     assert w % 16 == 0 and h % 16 == 0 and len(first) == w * h * 3
     with pytest.raises(OSError, match="unsupported animation type"):
-        dic.animate.animate(res, tmp_path / "x.avi")
+        dic.figures.animate.animate(res, tmp_path / "x.avi")
     with pytest.raises(ValueError, match="one value per frame"):
-        dic.animate.animate(res, tmp_path / "x.gif", force=[1.0, 2.0])
+        dic.figures.animate.animate(res, tmp_path / "x.gif", force=[1.0, 2.0])

@@ -13,8 +13,8 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from dic.forcelog import read_force_log, read_table
-from dic.forcesync import image_times_from_files, read_frame_times, synchronise
+from dic.tensile.forcelog import read_force_log, read_table
+from dic.tensile.forcesync import image_times_from_files, read_frame_times, synchronise
 
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_images"

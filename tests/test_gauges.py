@@ -1,6 +1,6 @@
 """Gauge lines, area gauges and point probes.
 
-Oracles: analytic displacement fields (dic.synth, exact u and grad u) for which the stretch of a
+Oracles: analytic displacement fields (dic.images.synth, exact u and grad u) for which the stretch of a
 material line is |F d| / |d| and the Green-Lagrange tensor is (F^T F - I) / 2 (Holzapfel,
 Nonlinear Solid Mechanics, 2000, ch. 2); exact synthetic speckle images of a known homogeneous
 deformation; numpy.linalg.eigvalsh for principal strains; matplotlib.path.Path for
@@ -15,13 +15,13 @@ import numpy as np
 import pytest
 
 import dic
-from dic import gauges as G
-from dic import synth
+from dic.tensile import gauges as G
+from dic.images import synth
 from dic.field import DisplacementField, Reason
 
 
 def analytic_field(disp, shape=(9, 15), step=10.0, origin=(20.0, 30.0)):
-    """A DisplacementField holding the exact u, v and grad u of a dic.synth field."""
+    """A DisplacementField holding the exact u, v and grad u of a dic.images.synth field."""
     ny, nx = shape
     y, x = np.mgrid[0:ny, 0:nx].astype(float)
     x = origin[0] + step * x
@@ -200,7 +200,7 @@ def test_placement_helpers_on_a_neck():
     assert p.start[0] == 70.0 and p.end[0] == 130.0
     h = G.gauge_histories(fields, [a, n])
     # a line across the neck reads more than one farther out; exact stretch of the material
-    # segment: (u(X1) - u(X0)) / L0 from the analytic field (dic.synth.tensile_neck)
+    # segment: (u(X1) - u(X0)) / L0 from the analytic field (dic.images.synth.tensile_neck)
     for line in (a, n):
         (x0, y0), (x1, y1) = line.start, line.end
         u0, _ = neck(np.array(x0), np.array(y0))

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import ndimage
 
-from dic import interp
+from dic.images import interp
 from dic.matching._icgn_kernel import evaluate
 
 

@@ -1,4 +1,4 @@
-"""Tests of dic.io: image reading and writing, natural sort, sequence listing.
+"""Tests of dic.images.io: image reading and writing, natural sort, sequence listing.
 
 Oracles: OpenCV (cv2.imwrite / cv2.imread) and tifffile as independent writers and readers,
 scikit-image's rgb2gray for colour conversion, and the known integer arrays the tests write.
@@ -16,7 +16,7 @@ import pytest
 import tifffile
 from skimage.color import rgb2gray
 
-from dic.io import (
+from dic.images.io import (
     IMAGE_EXTENSIONS,
     MIN_IMAGE_SIZE,
     image_info,

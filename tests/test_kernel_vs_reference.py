@@ -8,7 +8,7 @@ accuracy bar; a disagreement means a bug in one of them.
 import numpy as np
 import pytest
 
-from dic import synth
+from dic.images import synth
 from dic.matching import _reference as plain
 from dic.matching._icgn import SubsetMatcher, n_params
 

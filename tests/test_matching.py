@@ -1,6 +1,6 @@
 """Accuracy of the subset-matching engine on images whose motion is exactly known.
 
-Synthetic images come from ``dic.synth``: analytic Gaussian-blob speckle evaluated at the exact
+Synthetic images come from ``dic.images.synth``: analytic Gaussian-blob speckle evaluated at the exact
 reference position of every pixel (Zhou & Goodson, Opt. Eng. 40 (2001) 1613), so no
 interpolation is involved in making them. Real texture comes from ``skimage.data.gravel``,
 shifted exactly by a Fourier phase ramp (``scipy.ndimage.fourier_shift``).
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 import dic
-from dic import synth
+from dic.images import synth
 from dic.field import Reason
 
 SHAPE = (200, 200)
@@ -46,7 +46,7 @@ def test_subpixel_translation_sweep_bias(radius):
 def test_homogeneous_affine_deformation(speckle):
     # Bar from the project issue: 1 % stretch, 0.5 % shear, subpixel offset, noise-free:
     # displacement RMS error <= 0.002 px and gradient error <= 2e-4 at every point. The
-    # homogeneous field of dic.synth.homogeneous is the oracle (exact analytic images).
+    # homogeneous field of dic.images.synth.homogeneous is the oracle (exact analytic images).
     pat, ref = speckle
     F = np.array([[1.01, 0.005], [0.0, 1.0]])
     c, off = (100.0, 100.0), (0.31, -0.47)
@@ -169,7 +169,7 @@ def test_real_texture_fourier_shift_and_opencv_lk():
 
 def test_large_motion_with_stretch():
     # Bar from the project issue: 40 px translation plus 5 % stretch: >= 99 % of interior
-    # points valid and within 0.01 px of the exact field (dic.synth.homogeneous as oracle).
+    # points valid and within 0.01 px of the exact field (dic.images.synth.homogeneous as oracle).
     shape = (240, 320)
     pat = synth.make_speckle(shape, radius=2.5, seed=21)
     ref = synth.render(pat, shape)
@@ -301,8 +301,8 @@ def test_reads_image_files_in_full_bit_depth(tmp_path, speckle):
     pat, ref = speckle
     dfm = synth.render(pat, SHAPE, synth.translation(0.25, 0.5))
     p_ref, p_def = tmp_path / "a.png", tmp_path / "b.png"
-    dic.io.write_image(p_ref, ref * 256, bits=16)
-    dic.io.write_image(p_def, dfm * 256, bits=16)
+    dic.images.io.write_image(p_ref, ref * 256, bits=16)
+    dic.images.io.write_image(p_def, dfm * 256, bits=16)
     f = dic.correlate(p_ref, p_def, subset=21, step=20)
     assert f.n_valid > 0
     assert abs(np.nanmean(f.u) - 0.25) <= 0.003

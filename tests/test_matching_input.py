@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 
 import dic
-from dic import synth
+from dic.images import synth
 from dic.matching._icgn import SubsetMatcher
 
 
@@ -92,7 +92,7 @@ def test_memory_five_megapixel_pair_stays_under_budget(tmp_path):
     shape = (1920, 2600)
     pat = synth.make_speckle(shape, radius=2.5, seed=1, margin=40)
     for name, disp in (("ref.png", None), ("def.png", synth.translation(1.3, -0.4))):
-        dic.io.write_image(tmp_path / name, synth.render(pat, shape, disp), bits=8)
+        dic.images.io.write_image(tmp_path / name, synth.render(pat, shape, disp), bits=8)
     code = textwrap.dedent(f"""
         import dic
         f = dic.correlate({str(tmp_path / "ref.png")!r}, {str(tmp_path / "def.png")!r},

@@ -17,8 +17,8 @@ import pytest
 from scipy.special import erf
 
 import dic
-from dic import synth
-from dic._cli_metrology import register, run_advise, run_noise, run_pattern
+from dic.images import synth
+from dic.cli.metrology import register, run_advise, run_noise, run_pattern
 from dic.metrology import advise
 
 ROOT = Path(__file__).resolve().parent.parent
@@ -157,7 +157,7 @@ def test_cli_pattern(parser, tmp_path):
     assert data["bits"] == 12 and data["verdict"] == "good"
     # a blank image is a verdict, not an error
     blank = tmp_path / "blank.png"
-    dic.io.write_image(blank, np.zeros((100, 120)), bits=8)
+    dic.images.io.write_image(blank, np.zeros((100, 120)), bits=8)
     out = io.StringIO()
     assert run_pattern(parser.parse_args(["pattern", str(blank)]), out) == 0
     assert out.getvalue().startswith("pattern: poor")
@@ -173,7 +173,7 @@ def test_cli_noise(parser, tmp_path):
     paths = []
     for k in range(3):
         p = tmp_path / f"static_{k}.png"
-        dic.io.write_image(p, synth.render(pat, shape, noise=2.0, bits=8, seed=k), bits=8)
+        dic.images.io.write_image(p, synth.render(pat, shape, noise=2.0, bits=8, seed=k), bits=8)
         paths.append(str(p))
     out = io.StringIO()
     args = parser.parse_args(["noise", *paths, "--step", "8", "--strain-window", "5"])

@@ -1,6 +1,6 @@
 """Image noise, per-point uncertainty and the noise floor, against images of known noise.
 
-Synthetic speckle comes from ``dic.synth`` (analytic Gaussian blobs, Zhou & Goodson, Opt. Eng. 40
+Synthetic speckle comes from ``dic.images.synth`` (analytic Gaussian blobs, Zhou & Goodson, Opt. Eng. 40
 (2001) 1613); the noise added to it is drawn by numpy with a known standard deviation, which is
 the oracle for the noise estimators and, through many independent draws, for the scatter of the
 measured displacements.
@@ -13,7 +13,7 @@ import pytest
 from scipy import ndimage
 
 import dic
-from dic import synth
+from dic.images import synth
 from dic.metrology import image_noise, noise_floor, pair_noise, point_sigma
 
 

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 
 import dic
-from dic import synth
+from dic.images import synth
 from dic.metrology import (mean_intensity_gradient, pattern_quality, speckle_size,
                            sssig_maps)
 

@@ -7,7 +7,7 @@ import numpy as np
 import pytest
 from scipy import ndimage, optimize, signal
 
-from dic import synth
+from dic.images import synth
 from dic.metrology import (attenuation_period, displacement_transfer, self_check,
                            strain_transfer)
 from dic.metrology._deform import EDGE, resample_lines, shift_image, stretch_image, wave_image

@@ -5,7 +5,8 @@ import json
 import numpy as np
 
 import dic
-from dic import pipeline, synth
+from dic.workflow import run as pipeline
+from dic.images import synth
 
 
 def test_noise_floor_and_self_check_reach_the_report(tmp_path):
@@ -17,10 +18,10 @@ def test_noise_floor_and_self_check_reach_the_report(tmp_path):
     static.mkdir()
     for k in range(3):
         disp = synth.homogeneous(np.diag([1 + 0.002 * k, 1.0]), centre=(100, 60)) if k else None
-        dic.io.write_image(frames / f"f{k}.tif", synth.render(pat, shape, disp, noise=1.0,
+        dic.images.io.write_image(frames / f"f{k}.tif", synth.render(pat, shape, disp, noise=1.0,
                                                               seed=k) * 16, bits=16)
     for k in range(3):
-        dic.io.write_image(static / f"s{k}.tif", synth.render(pat, shape, noise=1.0,
+        dic.images.io.write_image(static / f"s{k}.tif", synth.render(pat, shape, noise=1.0,
                                                               seed=100 + k) * 16, bits=16)
     out = tmp_path / "out"
     out.mkdir()

@@ -1,6 +1,6 @@
 """Tests of the plain reference IC-GN solver (dic.matching._reference), the oracle for the kernel.
 
-Oracles: exactly known motion of analytic Gaussian-blob speckle (``dic.synth``; Zhou & Goodson,
+Oracles: exactly known motion of analytic Gaussian-blob speckle (``dic.images.synth``; Zhou & Goodson,
 Opt. Eng. 40 (2001) 1613), direct evaluation of affine maps and of polynomial products with
 numpy/scipy, finite differences of ``scipy.ndimage.map_coordinates``, ``numpy.corrcoef`` and the
 offset/gain invariance of the ZNSSD criterion (Pan, Xie & Wang, Appl. Opt. 49 (2010) 5501).
@@ -22,7 +22,7 @@ import numpy as np
 import pytest
 from scipy import ndimage, signal
 
-from dic import synth
+from dic.images import synth
 from dic.matching import _reference as ref_solver
 
 SHAPE = (96, 96)

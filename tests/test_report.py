@@ -1,4 +1,4 @@
-"""The HTML and PDF report (dic.report) and the ``dic report`` command (dic._cli_report).
+"""The HTML and PDF report (dic.report) and the ``dic report`` command (dic.cli.report).
 
 The HTML file is opened in headless Chromium (Debian package ``chromium``), which must render
 it with every figure decoded and nothing on its console; a control page with a broken image
@@ -19,10 +19,10 @@ import numpy as np
 import pytest
 
 import dic
-from dic import synth
-from dic._cli_report import register
+from dic.images import synth
+from dic.cli.report import register
 from dic.report import CAUTIONS, write_report
-from dic.store import open_for_writing
+from dic.sequence.store import open_for_writing
 
 SHAPE = (96, 176)
 SCALE = 0.05
@@ -42,7 +42,7 @@ def run(tmp_path_factory):
         d = synth.tensile_neck(0.6 * e, centre=(88.0, 48.0), neck_strain=0.4 * e,
                                neck_width=30.0) if k else None
         img = synth.render(pat, SHAPE, d, noise=0.5, seed=k)
-        paths.append(dic.io.write_image(folder / f"c{k}.png", img * 16, bits=16))
+        paths.append(dic.images.io.write_image(folder / f"c{k}.png", img * 16, bits=16))
     mask = np.zeros(SHAPE, bool)
     mask[14:82, 8:168] = True
     res = dic.track(paths, folder / "results.h5", subset=SUBSET, step=STEP, roi=mask,

@@ -1,4 +1,4 @@
-"""Tests of dic.roi: region-of-interest masks, bounding box, erosion for subsets.
+"""Tests of dic.images.roi: region-of-interest masks, bounding box, erosion for subsets.
 
 Oracles: skimage.draw.rectangle for rectangles, matplotlib.path.Path.contains_points for
 polygons (point in polygon at pixel centres), scipy.ndimage.binary_erosion and a brute-force
@@ -14,7 +14,7 @@ from matplotlib.path import Path as MplPath
 from scipy import ndimage
 from skimage.draw import rectangle
 
-from dic.roi import erode_for_subset, make_roi, roi_bbox
+from dic.images.roi import erode_for_subset, make_roi, roi_bbox
 
 SHAPE = (48, 64)  # rows, cols: not square, so swapped x and y show up
 

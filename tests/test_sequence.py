@@ -1,8 +1,8 @@
 """Tracking whole sequences: large strain with a neck, reference updates, identical results from
 one core, a process pool and a Dask cluster, resume.
 
-The images are exact analytic speckle (dic.synth, Zhou & Goodson 2001) under the analytic field
-of a tensile test with a diffuse neck (dic.synth.tensile_neck), so the true displacement of
+The images are exact analytic speckle (dic.images.synth, Zhou & Goodson 2001) under the analytic field
+of a tensile test with a diffuse neck (dic.images.synth.tensile_neck), so the true displacement of
 every reference point is known at every frame.
 """
 
@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 
 import dic
-from dic import synth
+from dic.images import synth
 
 SHAPE = (200, 640)
 CENTRE = (320.0, 100.0)
@@ -30,7 +30,7 @@ def sequence(tmp_path_factory):
     pat = synth.make_speckle(SHAPE, radius=2.5, seed=5, contrast=600)
     for k, e in enumerate(STRAINS):
         img = synth.render(pat, SHAPE, _field(e) if k else None, noise=0.5, seed=k)
-        dic.io.write_image(folder / f"frame{k}.tif", img * 16, bits=16)
+        dic.images.io.write_image(folder / f"frame{k}.tif", img * 16, bits=16)
     mask = np.zeros(SHAPE, bool)
     mask[40:160, 220:420] = True
     return folder, mask
@@ -112,7 +112,7 @@ def test_resume_after_interruption_equals_uninterrupted(sequence, tmp_path, monk
     # Stop a run part-way (an exception after 5 written frames, as Ctrl-C would), run the same
     # call again: it continues after the last completed frame, and the file equals an
     # uninterrupted run.
-    from dic import store
+    from dic.sequence import store
 
     folder, mask = sequence
     kw = dict(roi=mask, block=3, update_zncc=0.9999)
@@ -154,8 +154,8 @@ def test_bad_sequences(tmp_path, sequence):
     odd = tmp_path / "odd"
     odd.mkdir()
     img = dic.read_image(folder / "frame0.tif")
-    dic.io.write_image(odd / "a1.tif", img, bits=16)
-    dic.io.write_image(odd / "a2.tif", img[:, :-8], bits=16)
+    dic.images.io.write_image(odd / "a1.tif", img, bits=16)
+    dic.images.io.write_image(odd / "a2.tif", img[:, :-8], bits=16)
     with pytest.raises(ValueError, match="a2.tif"):
         dic.track(odd, tmp_path / "y.h5")
     with pytest.raises(ValueError, match="reference"):

@@ -1,4 +1,4 @@
-"""Tests of dic.store: the results file, its layout, resume checks and crash safety.
+"""Tests of dic.sequence.store: the results file, its layout, resume checks and crash safety.
 
 Oracles: the deterministic frame generator in tests/_store_writer.py (what every stored frame
 must hold), plain h5py as an independent reader of the layout, an uninterrupted run for the
@@ -26,8 +26,8 @@ import pytest
 
 import _store_writer as sw
 from dic.field import DisplacementField
-from dic.store import FORMAT, FORMAT_VERSION, Results, ResultsWriter, results_info
-import dic.store as store
+from dic.sequence.store import FORMAT, FORMAT_VERSION, Results, ResultsWriter, results_info
+import dic.sequence.store as store
 
 HELPER = Path(__file__).with_name("_store_writer.py")
 N = 40  # frames in the subprocess runs
@@ -681,7 +681,7 @@ def test_real_write_failures_keep_the_existing_file(tmp_path):
 import resource, signal, sys
 sys.path.insert(0, {str(HELPER.parent)!r})
 import numpy as np, _store_writer as sw
-from dic.store import ResultsWriter
+from dic.sequence.store import ResultsWriter
 signal.signal(signal.SIGXFSZ, signal.SIG_IGN)   # make write() fail with EFBIG instead
 resource.setrlimit(resource.RLIMIT_FSIZE, ({limit}, {limit}))
 x, y = sw.grid(60, 80); names, digests = sw.images(40)

@@ -1,6 +1,6 @@
 """End-to-end checks of the strain stage: exact synthetic images -> correlate -> strain_field.
 
-Images come from :mod:`dic.synth` (analytic Gaussian-blob speckle evaluated at the exact inverse
+Images come from :mod:`dic.images.synth` (analytic Gaussian-blob speckle evaluated at the exact inverse
 of a known displacement field; no stored image is interpolated), so every expected value below is
 known in closed form. Matching uses the package defaults (affine shape function, quintic spline,
 FFT seed search) unless a test says otherwise.
@@ -19,7 +19,7 @@ import scipy.linalg
 from scipy import ndimage
 
 import dic
-from dic import synth
+from dic.images import synth
 
 N_IMG = 400
 CENTRE = ((N_IMG - 1) / 2.0, (N_IMG - 1) / 2.0)

@@ -1,4 +1,4 @@
-"""Tests of dic.synth: exact synthetic speckle images under known displacement fields.
+"""Tests of dic.images.synth: exact synthetic speckle images under known displacement fields.
 
 Oracles: the Gaussian-sum speckle model evaluated directly with numpy over all blobs (Zhou &
 Goodson, Opt. Eng. 40 (2001) 1613), closed-form inverses of homogeneous maps, scipy root finders
@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 from scipy import optimize, stats
 
-import dic.synth as synth
+import dic.images.synth as synth
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -33,7 +33,7 @@ CUT_RTOL = 1e-6
 def direct_sum(pat, X, Y, *, cut=False):
     """Zhou & Goodson 2001 speckle model, b + sum_k a_k exp(-|X - c_k|^2 / r_k^2), all blobs.
 
-    With ``cut=True`` each blob is dropped beyond 4 r_k, the truncation dic.synth documents.
+    With ``cut=True`` each blob is dropped beyond 4 r_k, the truncation dic.images.synth documents.
     """
     X = np.asarray(X, dtype=float)[..., None]
     Y = np.asarray(Y, dtype=float)[..., None]
@@ -364,7 +364,7 @@ def test_bad_pattern_and_field_arguments_raise(small):
 
 
 def test_package_import_stays_light():
-    # project rule: `import dic` must not load numba; dic.synth loads on first use
+    # project rule: `import dic` must not load numba; dic.images.synth loads on first use
     code = ("import sys, dic; assert 'numba' not in sys.modules, 'numba loaded'; "
             "import types; assert isinstance(dic.synth, types.ModuleType); "
             "assert callable(dic.synth.render)")

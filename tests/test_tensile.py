@@ -22,10 +22,10 @@ import numpy as np
 import pytest
 
 import dic
-from dic import gauges as G
-from dic.forcelog import read_force_log
-from dic.forcesync import read_frame_times, synchronise
-from dic.tensile import engineering_stress, tensile_results, true_stress_strain
+from dic.tensile import gauges as G
+from dic.tensile.forcelog import read_force_log
+from dic.tensile.forcesync import read_frame_times, synchronise
+from dic.tensile.results import engineering_stress, tensile_results, true_stress_strain
 
 ROOT = Path(__file__).resolve().parent.parent
 SAMPLES = ROOT / "sample_images"
@@ -273,7 +273,7 @@ def test_sample_coupon_end_to_end(tracked, gen):
 
 
 def parser():
-    from dic import _cli_tensile
+    from dic.cli import tensile as _cli_tensile
 
     p = argparse.ArgumentParser(prog="dic")
     _cli_tensile.register(p.add_subparsers(dest="command"))

@@ -12,8 +12,8 @@ from collections.abc import Sequence
 
 import numpy as np
 
-from ..field import DisplacementField, Reason
-from ._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
+from dic.field import DisplacementField, Reason
+from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
 
 __all__ = ["correlate", "prepare_grid"]
@@ -69,7 +69,7 @@ def prepare_grid(shape, roi, subset, step, border=0):
     shape : tuple
         Image shape ``(rows, cols)``.
     roi : None, bool array, rectangle or polygon
-        See :func:`dic.roi.make_roi`.
+        See :func:`dic.images.roi.make_roi`.
     subset, step : int
         Subset size and grid spacing (px).
     border : int, optional
@@ -86,7 +86,7 @@ def prepare_grid(shape, roi, subset, step, border=0):
     in_image : ndarray of bool, shape (len(ys), len(xs))
         Points whose subset is clear of the image margin.
     """
-    from ..roi import erode_for_subset, make_roi, roi_bbox
+    from dic.images.roi import erode_for_subset, make_roi, roi_bbox
 
     mask = make_roi(roi, shape)
     half = subset // 2
@@ -116,7 +116,7 @@ class _Propagation:
     """State of one reliability-guided propagation over the point grid."""
 
     def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc):
-        from . import _waves
+        from dic.matching import _waves
 
         self.w = _waves
         self.m = matcher
@@ -139,7 +139,7 @@ class _Propagation:
 
     def mark_flat(self, min_std):
         """Mark points whose reference subset has too little texture before any matching."""
-        from ._icgn_kernel import subset_std
+        from dic.matching._icgn_kernel import subset_std
 
         todo = np.flatnonzero(self.state == self.w.TODO)
         std = np.empty(todo.size)
@@ -217,7 +217,7 @@ def _seed_candidates(comp_idx, px, py):
 def _try_seed(prop, k, ref, deformed, search, guess=None, start=None):
     """Match grid point ``k`` from a full parameter vector ``start``, a user's ``(u, v)``
     guess, or an FFT search; True if it is a good seed."""
-    from ._seed import fft_guess
+    from dic.matching._seed import fft_guess
 
     if start is not None and np.all(np.isfinite(start[k])):
         if prop.run(np.array([k], np.int64), start[k][None, :], retry_later=True).size:
@@ -286,7 +286,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     step : int, optional
         Grid spacing in px.
     roi : None, bool array, rectangle, polygon or mask-image path, optional
-        Region of interest (see :func:`dic.roi.make_roi`). Points whose subset is not wholly
+        Region of interest (see :func:`dic.images.roi.make_roi`). Points whose subset is not wholly
         inside it are not measured.
     shape_function : {'affine', 'quadratic'}, optional
         First-order (6 parameters) or second-order (12 parameters) subset shape function.
@@ -336,7 +336,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     .. [4] M. Unser, "Splines: a perfect fit for signal and image processing", IEEE Signal
        Process. Mag. 16 (1999) 22-38.
     """
-    from ..io import read_image
+    from dic.images.io import read_image
 
     (subset, step, second, order, search, min_zncc, max_iterations, tolerance,
      min_texture) = _check_options(subset, step, shape_function, interpolation, search,
@@ -403,7 +403,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         "image_shape": tuple(int(s) for s in ref.shape),
         "image_noise": noise,
     }
-    from ..metrology._uncertainty import point_sigma
+    from dic.metrology._uncertainty import point_sigma
 
     sig_u, sig_v = point_sigma(np.where(good[:, None], prop.unc, np.nan), noise[0], noise[1],
                                order)
@@ -431,7 +431,7 @@ def _image_noise(value, ref, dfm, px, py, subset):
             raise ValueError(f"image_noise must be one or two non-negative numbers (grey "
                              f"levels), got {value!r}; e.g. 2.0")
         return (float(vals[0]), float(vals[-1]))
-    from ..metrology._noise import image_noise
+    from dic.metrology._noise import image_noise
 
     half = subset // 2
     if px.size == 0:

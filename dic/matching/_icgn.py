@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .. import interp
+from dic.images import interp
 
 SHAPE_FUNCTIONS = {"affine": 1, "first": 1, "first-order": 1,
                    "quadratic": 2, "second": 2, "second-order": 2}
@@ -143,7 +143,7 @@ class SubsetMatcher:
         """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
         from numba import get_num_threads
 
-        from ._icgn_kernel import match_batch
+        from dic.matching._icgn_kernel import match_batch
 
         xs = np.ascontiguousarray(xs, dtype=np.int64)
         ys = np.ascontiguousarray(ys, dtype=np.int64)

@@ -8,9 +8,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._selfcheck import (MAX_SIZE, _correlate, _crossing, _prepare, _subsample, _wave_geometry,
+from dic.metrology._selfcheck import (MAX_SIZE, _correlate, _crossing, _prepare, _subsample, _wave_geometry,
                          _wave_image, _wave_response, AMPLITUDE)
-from ._transfer import attenuation_period, displacement_transfer, strain_transfer
+from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
 
 __all__ = ["advise", "Advice"]
 
@@ -188,7 +188,7 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
     pixel_size : float, optional
         mm per px.
     roi : optional
-        Region of interest (see :func:`dic.roi.make_roi`).
+        Region of interest (see :func:`dic.images.roi.make_roi`).
     subsets, windows : sequence of int
         Odd subset sizes (px) and strain windows (points) to try.
     steps : sequence of int, optional
@@ -214,7 +214,7 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (VSG, noise floor).
     .. [2] P. L. Reu et al., Exp. Mech. 62 (2022) 639-654 (spatial resolution).
     """
-    from ..strain import canonical_measure, strain_field
+    from dic.strain import canonical_measure, strain_field
 
     t_noise, t_res, ps = _check_targets(target_strain_noise, target_resolution, pixel_size)
     measure = canonical_measure(measure)

@@ -21,7 +21,7 @@ Close to the image (or crop) border the mirror extension has a kink, and band-li
 interpolation rings next to it, decaying over a few pixels: the self-check keeps its points
 away from the border (see ``EDGE``).
 
-Accuracy, against exact renders of an analytic speckle (:mod:`dic.synth`, radius 2.5 px,
+Accuracy, against exact renders of an analytic speckle (:mod:`dic.images.synth`, radius 2.5 px,
 180 grey levels of contrast), more than ``EDGE`` px from the border: largest error 0.009 grey
 levels for a 0.37 px shift and for a 0.5 % stretch, 0.06 grey levels for the wave (which
 compresses the pattern locally by up to 10 %); 0.05 grey levels at 8 px and 0.4 at 2 px from

@@ -15,7 +15,7 @@ COMPONENTS = ("u", "v", "xx", "yy", "xy")
 
 def _resolve(images):
     """A list of arrays or paths from a list, a folder or a glob pattern."""
-    from ..io import list_images
+    from dic.images.io import list_images
 
     if isinstance(images, (str, os.PathLike)):
         items = list(list_images(images))
@@ -125,7 +125,7 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
     subset, step, window : int
         Settings, as for :func:`dic.correlate` and :func:`dic.strain_field`.
     roi : optional
-        Region of interest (see :func:`dic.roi.make_roi`).
+        Region of interest (see :func:`dic.images.roi.make_roi`).
     measure : str
         Strain measure.
     shape_function, interpolation : str
@@ -150,9 +150,9 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (noise floor: spatial and temporal
        standard deviations on static images).
     """
-    from ..io import read_image
-    from ..matching import correlate
-    from ..strain import canonical_measure, strain_field
+    from dic.images.io import read_image
+    from dic.matching import correlate
+    from dic.strain import canonical_measure, strain_field
 
     items = _resolve(images)
     measure = canonical_measure(measure)

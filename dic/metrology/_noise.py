@@ -16,7 +16,7 @@ _PILE_UP = 1e-3
 
 
 def _as_image(image, name):
-    from ..io import read_image
+    from dic.images.io import read_image
 
     return read_image(image, name=name)
 
@@ -25,7 +25,7 @@ def _region(shape, roi, name="roi"):
     """Boolean mask of the pixels to use (the whole image when roi is None)."""
     if roi is None:
         return None
-    from ..roi import make_roi
+    from dic.images.roi import make_roi
 
     return make_roi(roi, shape)
 
@@ -67,7 +67,7 @@ def image_noise(image, *, roi=None, block: int = BLOCK) -> float:
     image : ndarray or path
         Grey (or colour, converted to luminance) image.
     roi : optional
-        Region to use (anything :func:`dic.roi.make_roi` accepts); only blocks wholly inside
+        Region to use (anything :func:`dic.images.roi.make_roi` accepts); only blocks wholly inside
         it count. Default: the whole image.
     block : int, optional
         Block side in px (3 to 9). Larger blocks separate the pattern from the noise better
@@ -140,7 +140,7 @@ def pair_noise(first, second, *, roi=None) -> float:
     first, second : ndarray or path
         Two images of the same size.
     roi : optional
-        Region to use (see :func:`dic.roi.make_roi`); default the whole image.
+        Region to use (see :func:`dic.images.roi.make_roi`); default the whole image.
 
     Returns
     -------

@@ -283,7 +283,7 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
     second_image : ndarray or path, optional
         A second image of the static, unloaded specimen, for the noise.
     roi : optional
-        Region of interest (see :func:`dic.roi.make_roi`).
+        Region of interest (see :func:`dic.images.roi.make_roi`).
     bits : int, optional
         Camera bit depth (e.g. 12 for 12-bit values stored in 16-bit files); inferred from the
         largest grey level when omitted.
@@ -311,10 +311,10 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
     .. [4] International Digital Image Correlation Society, A Good Practices Guide for Digital
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1.
     """
-    from ..io import read_image
-    from ..roi import make_roi
-    from ._noise import image_noise, pair_noise
-    from ._uncertainty import gradient_noise_gain, predicted_sigma
+    from dic.images.io import read_image
+    from dic.images.roi import make_roi
+    from dic.metrology._noise import image_noise, pair_noise
+    from dic.metrology._uncertainty import gradient_noise_gain, predicted_sigma
 
     img = read_image(image, name="image")
     if isinstance(subset, bool) or not isinstance(subset, (int, np.integer)) or subset < 7 \
@@ -358,12 +358,12 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
     # gradients, SSSIG, speckle size
     mig = mean_intensity_gradient(img, mask)
     ssx, ssy = sssig_maps(img, subset)
-    from ..roi import erode_for_subset
+    from dic.images.roi import erode_for_subset
 
     centres = erode_for_subset(mask, subset) & np.isfinite(ssx)
     sssig_min = float(np.min(np.minimum(ssx, ssy)[centres])) if centres.any() else float("nan")
     # the speckle size from the ROI's bounding box, its central 1024 x 1024 px at most
-    from ..roi import roi_bbox
+    from dic.images.roi import roi_bbox
 
     x0, y0, x1, y1 = roi_bbox(mask)
     if y1 - y0 >= 1024:
@@ -374,7 +374,7 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
         x1 = x0 + 1023
     box = np.s_[y0:y1 + 1, x0:x1 + 1]
     size, size_xy = speckle_size(img[box], mask[box], sigma)
-    from .. import interp
+    from dic.images import interp
 
     gxs, gys = interp.reference_gradients(interp.prefilter(img, order))
     msq = float(np.mean((gxs ** 2 + gys ** 2)[mask]) / 2.0)

@@ -7,8 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._deform import EDGE, shift_image, stretch_image, wave_image, wave_periods
-from ._transfer import attenuation_period, displacement_transfer, strain_transfer
+from dic.metrology._deform import EDGE, shift_image, stretch_image, wave_image, wave_periods
+from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
 
 __all__ = ["self_check", "SelfCheck"]
 
@@ -46,9 +46,9 @@ class _Scene:
 
 
 def _prepare(image, roi, noise, seed, max_size):
-    from ..io import read_image
-    from ..roi import make_roi, roi_bbox
-    from ._noise import image_noise
+    from dic.images.io import read_image
+    from dic.images.roi import make_roi, roi_bbox
+    from dic.metrology._noise import image_noise
 
     img = read_image(image, name="image")
     mask = make_roi(roi, img.shape)
@@ -88,7 +88,7 @@ def _prepare(image, roi, noise, seed, max_size):
 # measurement helpers
 # --------------------------------------------------------------------------------------------
 def _correlate(scene, deformed, subset, step, shape_function, interpolation):
-    from ..matching import correlate
+    from dic.matching import correlate
 
     return correlate(scene.reference, deformed, subset=subset, step=step, roi=scene.mask,
                      shape_function=shape_function, interpolation=interpolation,
@@ -97,7 +97,7 @@ def _correlate(scene, deformed, subset, step, shape_function, interpolation):
 
 def _subsample(f, m):
     """Every m-th point of a field: the field of an m times coarser step on the same grid."""
-    from ..field import DisplacementField
+    from dic.field import DisplacementField
 
     if m == 1:
         return f
@@ -386,7 +386,7 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     subset, step, window : int
         The settings to check (window in grid points; VSG = (window - 1) step + subset).
     roi : optional
-        Region of interest (see :func:`dic.roi.make_roi`).
+        Region of interest (see :func:`dic.images.roi.make_roi`).
     shape_function, interpolation : str
         As for :func:`dic.correlate`.
     measure : str
@@ -421,7 +421,7 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     .. [4] International Digital Image Correlation Society, A Good Practices Guide for Digital
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1.
     """
-    from ..strain import canonical_measure, strain_field, strain_tensor
+    from dic.strain import canonical_measure, strain_field, strain_tensor
 
     _check_settings(subset, step, window)
     measure = canonical_measure(measure)

@@ -14,7 +14,7 @@ def gradient_noise_gain(order: int = 5) -> float:
     """Variance of the matcher's x-gradient of unit white noise, ``sum_k d_k^2``.
 
     The reference gradients are the derivatives of the B-spline interpolant at the pixel
-    centres (:func:`dic.interp.reference_gradients`): a linear filter ``d`` along x (identity
+    centres (:func:`dic.images.interp.reference_gradients`): a linear filter ``d`` along x (identity
     along y). White noise of variance ``s^2`` gives gradient noise of variance ``c s^2`` with
     ``c = sum_k d_k^2``, found here by filtering a unit impulse.
 
@@ -27,7 +27,7 @@ def gradient_noise_gain(order: int = 5) -> float:
     -------
     float
     """
-    from .. import interp
+    from dic.images import interp
 
     n = 65
     delta = np.zeros((n, n))
@@ -98,7 +98,7 @@ def point_sigma(terms, noise_reference, noise_deformed, order: int = 5):
 
 def _hessian_terms(gx, gy, xs, ys, half, second, chunk=256):
     """The kernel's uncertainty terms computed from gradient images at integer points."""
-    from ..matching._icgn import shape_outer_sum
+    from dic.matching._icgn import shape_outer_sum
 
     d = np.arange(-half, half + 1, dtype=np.float64)
     dx, dy = (a.ravel() for a in np.meshgrid(d, d))
@@ -160,7 +160,7 @@ def predicted_sigma(image, subset, noise, *, points=None, step=None, shape_funct
     shape_function, interpolation : str
         As for :func:`dic.correlate`.
     roi : optional
-        Region of interest (see :func:`dic.roi.make_roi`).
+        Region of interest (see :func:`dic.images.roi.make_roi`).
 
     Returns
     -------
@@ -173,9 +173,9 @@ def predicted_sigma(image, subset, noise, *, points=None, step=None, shape_funct
     ----------
     .. [1] B. Pan, H. Xie, Z. Wang, K. Qian, Z. Wang, Opt. Express 16 (2008) 7037-7048.
     """
-    from .. import interp
-    from ..matching import prepare_grid
-    from ..matching._icgn import INTERPOLATIONS, SHAPE_FUNCTIONS, edge_margin
+    from dic.images import interp
+    from dic.matching import prepare_grid
+    from dic.matching._icgn import INTERPOLATIONS, SHAPE_FUNCTIONS, edge_margin
 
     img = np.asarray(image, dtype=np.float64)
     order = INTERPOLATIONS[str(interpolation).lower()]

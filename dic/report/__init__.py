@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import os
 
-from ._content import CAUTIONS, SECTION_TITLES, build_document
+from dic.report._content import CAUTIONS, SECTION_TITLES, build_document
 
 __all__ = ["CAUTIONS", "REPORT_NAMES", "SECTION_TITLES", "write_report"]
 
@@ -25,7 +25,7 @@ REPORT_NAMES = ("report.html", "report.pdf")
 
 
 def _out_folder(out_dir):
-    from ..export import _out_folder as make_folder
+    from dic.export import _out_folder as make_folder
 
     return make_folder(out_dir, "the report")
 
@@ -70,7 +70,7 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
         Strain measure of the maps (see :func:`dic.strain.canonical_measure`).
     gauges : sequence, optional
         Gauge histories, each with ``name``, ``frames``, ``values`` and ``unit`` (see
-        :func:`dic.plot.gauge_histories`); those that also carry their geometry (``points``,
+        :func:`dic.figures.plot.gauge_histories`); those that also carry their geometry (``points``,
         or ``p0`` and ``p1``) are drawn on the maps.
     tensile : object, optional
         Tensile results: an object with ``to_dict()`` (or ``rows``, a sequence of
@@ -103,9 +103,9 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (reporting of analysis settings,
        VSG, noise floor, spatial resolution).
     """
-    from ..store import Results
-    from ._html import render_html
-    from ._pdf import render_pdf
+    from dic.sequence.store import Results
+    from dic.report._html import render_html
+    from dic.report._pdf import render_pdf
 
     res = Results.open(results_path)
     try:

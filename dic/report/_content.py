@@ -12,9 +12,9 @@ from pathlib import Path
 
 import numpy as np
 
-from .. import plot
-from .._version import __version__
-from ._document import Document, FigureBlock, Paragraph, Section, Table
+from dic.figures import plot
+from dic._version import __version__
+from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
 
@@ -596,7 +596,7 @@ def _quality(res, info, k_last):
     reasons = {k: v for k, v in field.reason_counts().items() if k not in ("measured",
                                                                            "outside_roi")}
     if reasons:
-        from ..field import Reason
+        from dic.field import Reason
 
         text = "; ".join(f"{Reason.describe(Reason[k.upper()])}: {v}"
                          for k, v in reasons.items())
@@ -646,7 +646,7 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
 
     Parameters are those of :func:`dic.report.write_report` (``res`` opened).
     """
-    from ..strain import canonical_measure, vsg_size
+    from dic.strain import canonical_measure, vsg_size
 
     n = len(res)
     if n == 0:

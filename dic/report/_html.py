@@ -11,7 +11,7 @@ from __future__ import annotations
 import base64
 import html
 
-from ._document import FigureBlock, Paragraph, Table
+from dic.report._document import FigureBlock, Paragraph, Table
 
 __all__ = ["render_html"]
 

@@ -12,7 +12,7 @@ import textwrap
 
 import numpy as np
 
-from ._document import FigureBlock, Paragraph, Table
+from dic.report._document import FigureBlock, Paragraph, Table
 
 __all__ = ["render_pdf"]
 

@@ -16,14 +16,14 @@ measure_difference
     Derived quantities.
 """
 
-from ._api import strain_field, vsg_size
-from ._gradients import FITS, GradientFit, default_min_points, displacement_gradient
-from ._measures import (MEASURES, area_change, canonical_measure, engineering,
+from dic.strain._api import strain_field, vsg_size
+from dic.strain._gradients import FITS, GradientFit, default_min_points, displacement_gradient
+from dic.strain._measures import (MEASURES, area_change, canonical_measure, engineering,
                         equivalent_strain, euler_almansi, green_lagrange, hencky, infinitesimal,
                         max_shear, measure_difference, nonlinear_mask, nonlinear_part,
                         nonlinear_share, out_of_plane, polar_decomposition, principal_strains,
                         rotation_angle, strain_tensor)
-from ._result import COMPONENTS, LineProfile, StrainField
+from dic.strain._result import COMPONENTS, LineProfile, StrainField
 
 __all__ = [
     "strain_field", "StrainField", "LineProfile", "COMPONENTS", "vsg_size",

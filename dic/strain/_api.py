@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from . import _measures as m
-from ._gradients import displacement_gradient
-from ._result import StrainField
+from dic.strain import _measures as m
+from dic.strain._gradients import displacement_gradient
+from dic.strain._result import StrainField
 
 __all__ = ["strain_field", "vsg_size"]
 

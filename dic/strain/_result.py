@@ -8,8 +8,8 @@ from typing import NamedTuple
 
 import numpy as np
 
-from . import _measures as m
-from ._sample import bilinear
+from dic.strain import _measures as m
+from dic.strain._sample import bilinear
 
 __all__ = ["StrainField", "LineProfile", "COMPONENTS"]
 

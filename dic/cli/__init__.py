@@ -12,10 +12,10 @@ Commands
 ``dic info RESULTS``
     Summarise a results file (or the ``results.h5`` of an output folder).
 ``dic tensile``, ``dic report``, ``dic export``, ``dic pattern``, ``dic noise``, ``dic advise``
-    Defined in ``dic._cli_tensile``, ``dic._cli_report`` and ``dic._cli_metrology``.
+    Defined in ``dic.cli.tensile``, ``dic.cli.report`` and ``dic.cli.metrology``.
 
 With ``--config`` and an output folder, ``dic run`` goes on, once every frame is done, to what
-the analysis file's ``[tensile]`` and ``[report]`` tables ask for (:func:`dic.pipeline.finish`).
+the analysis file's ``[tensile]`` and ``[report]`` tables ask for (:func:`dic.workflow.run.finish`).
 
 Exit codes: 0 success, 2 bad input (unreadable or missing files, bad options, images of
 another size or bit depth, a results file made with other settings, a full disk; one line
@@ -33,8 +33,8 @@ import sys
 import time
 from pathlib import Path
 
-from ._cli_types import numbers, positive_float, positive_int, rectangle
-from ._version import __version__
+from dic.cli.types import numbers, positive_float, positive_int, rectangle
+from dic._version import __version__
 
 __all__ = ["main"]
 
@@ -64,7 +64,7 @@ class _Parser(argparse.ArgumentParser):
 
 def _scale_line(text):
     values = numbers(text, 5, "X0,Y0,X1,Y1,MM", "69.5,120,569.5,120,40", unit="px and mm")
-    from .config import scale_from_line
+    from dic.workflow.config import scale_from_line
 
     try:
         return scale_from_line(values[:4], values[4])
@@ -92,7 +92,7 @@ def _frame_range(text):
 
 
 def _measure(text):
-    from .strain import canonical_measure
+    from dic.strain import canonical_measure
 
     try:
         return canonical_measure(text)
@@ -111,7 +111,9 @@ def _build_parser():
     _add_run(commands)
     _add_info(commands)
     # the commands that work on a results file or on images, each in a module of its own
-    from . import _cli_metrology, _cli_report, _cli_tensile
+    from dic.cli import metrology as _cli_metrology
+    from dic.cli import report as _cli_report
+    from dic.cli import tensile as _cli_tensile
 
     for module in (_cli_tensile, _cli_report, _cli_metrology):
         module.register(commands)
@@ -223,7 +225,7 @@ def _collect_images(arguments):
     Paths are made absolute, so that the same images give the same results file (and resume)
     whether named on the command line or in an analysis file.
     """
-    from .io import list_images
+    from dic.images.io import list_images
 
     found, seen = [], set()
     for arg in arguments:
@@ -250,9 +252,9 @@ def _analysis(args):
     """Merged settings: analysis file first, then the options given on the command line.
 
     Returns ``(images, out, kwargs, after)``: ``kwargs`` for :func:`dic.track`, ``after`` the
-    analysis file's ``tensile`` and ``report`` tables (for :func:`dic.pipeline.finish`).
+    analysis file's ``tensile`` and ``report`` tables (for :func:`dic.workflow.run.finish`).
     """
-    from .config import load_analysis
+    from dic.workflow.config import load_analysis
 
     conf = load_analysis(args.config) if args.config is not None else {}
     source = f"the analysis file '{args.config}'" if args.config is not None else None
@@ -310,7 +312,7 @@ def _analysis(args):
 
 
 def _checked_measure(name, source):
-    from .strain import canonical_measure
+    from dic.strain import canonical_measure
 
     try:
         return canonical_measure(name)
@@ -387,9 +389,9 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out):
 
     Returns the number of files written.
     """
-    from .export import field_to_csv
-    from .io import read_image
-    from .plot import displacement_map, save_figure
+    from dic.export import field_to_csv
+    from dic.images.io import read_image
+    from dic.figures.plot import displacement_map, save_figure
 
     st = results.settings
     frames, ref = st.get("frames", list(range(results.n_frames))), st.get("reference", 0)
@@ -470,7 +472,7 @@ def _write_line(text, out):
 
 def _frames_done(path):
     """Completed frames in a results file, or None if there is no readable one."""
-    from .store import Results
+    from dic.sequence.store import Results
 
     try:
         with Results.open(path) as r:
@@ -480,8 +482,8 @@ def _frames_done(path):
 
 
 def _run(args, out=None):
-    from .store import _FIX_IMAGES, _FIX_SETTINGS
-    from .tracker import track
+    from dic.sequence.store import _FIX_IMAGES, _FIX_SETTINGS
+    from dic.sequence.track import track
 
     out = sys.stdout if out is None else out
 
@@ -509,7 +511,7 @@ def _run(args, out=None):
     t0 = time.perf_counter()
     try:
         try:
-            from .tracker import stop_on_interrupt
+            from dic.sequence.track import stop_on_interrupt
 
             with stop_on_interrupt():
                 results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
@@ -568,7 +570,7 @@ def _run(args, out=None):
         results.close()
     if folder is not None and after and n == nf:
         # the analysis file asks for more: tensile results and the report, into the folder
-        from .pipeline import finish
+        from dic.workflow.run import finish
 
         try:
             done = finish(h5, folder, after)
@@ -605,7 +607,7 @@ def _measured_share(path):
 
 
 def _info(args, out=None):
-    from .store import results_info
+    from dic.sequence.store import results_info
 
     out = sys.stdout if out is None else out
 

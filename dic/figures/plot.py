@@ -42,7 +42,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .field import DisplacementField
+from dic.field import DisplacementField
 
 __all__ = ["FIGURE_FORMATS", "ROBUST_PERCENTILE", "STRAIN_QUANTITIES", "STRAIN_UNITS",
            "displacement_map", "gauge_histories", "measure_comparison", "quality_map",
@@ -129,7 +129,7 @@ def displacement_map(field, image=None, *, component="magnitude", ax=None, alpha
     field : DisplacementField
         From :func:`dic.correlate`.
     image : array_like, optional
-        The reference image (2-D grey levels, or anything :func:`dic.io.read_image` accepts),
+        The reference image (2-D grey levels, or anything :func:`dic.images.io.read_image` accepts),
         drawn in grey underneath. Without it the field is drawn on a white background.
     component : {'magnitude', 'u', 'v'}, optional
         ``'magnitude'`` is ``sqrt(u**2 + v**2)`` on ``cividis`` from 0; ``'u'`` and ``'v'`` are
@@ -176,7 +176,7 @@ def displacement_map(field, image=None, *, component="magnitude", ax=None, alpha
         raise ValueError(f"alpha must lie between 0 and 1, got {alpha!r}; e.g. 0.7")
     grey = None
     if image is not None:
-        from .io import read_image
+        from dic.images.io import read_image
 
         grey = read_image(image, name="image")
         expected = field.settings.get("image_shape")
@@ -285,7 +285,7 @@ def _quantity_name(component):
 
 
 def _check_strain(strain, name="strain"):
-    from .strain import StrainField
+    from dic.strain import StrainField
 
     if not isinstance(strain, StrainField):
         raise ValueError(f"{name} must be a StrainField (from dic.strain_field or "
@@ -407,7 +407,7 @@ def _find_image(results, k):
     for cand in (Path(name), folder / name, folder / Path(name).name):
         try:
             if cand.is_file():
-                from .io import read_image
+                from dic.images.io import read_image
 
                 return read_image(cand, name="image")
         except (OSError, ValueError):
@@ -429,7 +429,7 @@ def strain_limits(source, component="xx", *, frames=None, window=9, measure="gre
 
     Parameters
     ----------
-    source : dic.store.Results or iterable of dic.strain.StrainField
+    source : dic.sequence.store.Results or iterable of dic.strain.StrainField
         A results file opened with :func:`dic.load_results` (strain is computed frame by frame
         with ``window`` and ``measure``), or strain fields already computed.
     component : str, optional
@@ -448,7 +448,7 @@ def strain_limits(source, component="xx", *, frames=None, window=9, measure="gre
     (float, float)
         ``(-top, top)`` for signed quantities, ``(0, top)`` for magnitudes, in the quantity's own
         units: strain as a plain number (0.01 = 1 %), rotation in degrees, the nonlinear share
-        as a ratio. Pass them to ``limits=`` of :func:`strain_map` or :func:`dic.animate.animate`.
+        as a ratio. Pass them to ``limits=`` of :func:`strain_map` or :func:`dic.figures.animate.animate`.
 
     Raises
     ------
@@ -499,7 +499,7 @@ def _configuration(configuration):
 def _background(image):
     if image is None:
         return None
-    from .io import read_image
+    from dic.images.io import read_image
 
     return read_image(image, name="image")
 
@@ -718,7 +718,7 @@ def _draw_gauges(ax, shapes, strain=None, field=None):
     for pts, label, closed in shapes:
         p = pts
         if field is not None:
-            from .strain._sample import bilinear
+            from dic.strain._sample import bilinear
 
             x, y = strain.x, strain.y
             sx = _spacing(x, 1, strain.step)
@@ -828,7 +828,7 @@ def strain_map(strain, image=None, *, component="xx", field=None, configuration=
     Parameters
     ----------
     strain : dic.strain.StrainField
-        From :func:`dic.strain_field` or :meth:`dic.store.Results.strain`.
+        From :func:`dic.strain_field` or :meth:`dic.sequence.store.Results.strain`.
     image : array_like or path, optional
         Drawn in grey underneath: the reference image for ``configuration="reference"``, the
         frame's own (deformed) image for ``"deformed"``.
@@ -1197,7 +1197,7 @@ def _gauge_items(gauges):
     """Gauge histories as items with ``name``, ``frames``, ``values``, ``unit``.
 
     A table of histories (an object with ``frame``, ``columns`` and ``units``, such as
-    :class:`dic.histories.History`) becomes one item per column.
+    :class:`dic.tensile.histories.History`) becomes one item per column.
     """
     from types import SimpleNamespace
 
@@ -1335,7 +1335,7 @@ def valid_counts(results):
 
     Parameters
     ----------
-    results : dic.store.Results
+    results : dic.sequence.store.Results
 
     Returns
     -------
@@ -1346,7 +1346,7 @@ def valid_counts(results):
     median_zncc : ndarray of float
         Median ZNCC of the measured points per frame (NaN where none).
     """
-    from .field import Reason
+    from dic.field import Reason
 
     n = len(results)
     counts = np.zeros(n, dtype=np.int64)
@@ -1370,7 +1370,7 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
 
     Parameters
     ----------
-    source : dic.store.Results or array_like of int
+    source : dic.sequence.store.Results or array_like of int
         A results file, or the counts themselves (one per frame, from frame 0).
     total : int, optional
         Points that could have been measured (inside the region of interest); taken from the

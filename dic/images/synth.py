@@ -19,7 +19,7 @@ same fraction :math:`e^{-16}` of its integral. Summed over all blobs, the neglec
 point is on average ``density * mean(amplitude) * exp(-16)``, about 1e-5 grey levels for the
 default pattern -- far below one grey level and below any noise the matcher will see.
 
-numba is imported here (the kernel), so this module is loaded only on use (``dic.synth``).
+numba is imported here (the kernel), so this module is loaded only on use (``dic.images.synth``).
 
 References
 ----------
@@ -660,7 +660,7 @@ def evaluate(pattern, X, Y):
     ----------
     .. [1] P. Zhou and K. E. Goodson, Opt. Eng. 40(8) (2001) 1613-1620.
     """
-    from ._synth_kernel import blob_sum
+    from dic.images._synth_kernel import blob_sum
 
     c, r, a, b = _check_pattern(pattern)
     X, Y = np.broadcast_arrays(np.asarray(X, dtype=np.float64), np.asarray(Y, dtype=np.float64))

@@ -2,7 +2,7 @@
 Agt, n and r, each with the standard it follows and the range it was fitted over.
 
 Works on plain arrays (:func:`tensile_results`), so strain may come from the gauges of
-:mod:`dic.gauges` or from anywhere else. Engineering stress comes from force and the specimen's
+:mod:`dic.tensile.gauges` or from anywhere else. Engineering stress comes from force and the specimen's
 cross-section (:func:`engineering_stress`); true stress and strain follow by volume constancy,
 valid only up to the maximum force (:func:`true_stress_strain`).
 
@@ -20,9 +20,9 @@ from pathlib import Path
 
 import numpy as np
 
-from . import _tensile_fits as fits
-from ._version import __version__
-from .histories import CAUTION
+from dic.tensile import fits
+from dic._version import __version__
+from dic.tensile.histories import CAUTION
 
 __all__ = ["tensile_results", "TensileResults", "Value", "engineering_stress",
            "true_stress_strain", "CAUTION"]
@@ -280,7 +280,7 @@ class TensileResults:
         -------
         fig, ax
         """
-        from ._tensile_plot import stress_strain_figure
+        from dic.figures.tensile_plot import stress_strain_figure
 
         return stress_strain_figure(self, ax=ax, strain_unit=strain_unit)
 

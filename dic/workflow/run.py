@@ -49,9 +49,9 @@ def tensile_namespace(t: dict, results_path, out_dir) -> argparse.Namespace:
 def _self_check(results_path, strain: dict):
     """The self-check of the analysis settings on its own reference image (None if that image
     is not among the analysed files or is no longer readable)."""
-    from .io import read_image
-    from .metrology import self_check
-    from .tracker import load_results
+    from dic.images.io import read_image
+    from dic.metrology import self_check
+    from dic.sequence.track import load_results
 
     with load_results(results_path) as res:
         st = res.settings
@@ -80,9 +80,9 @@ def _noise_floor(results_path, out_dir, settings, written):
         return None
     import json
 
-    from .io import list_images
-    from .metrology import noise_floor
-    from .tracker import load_results, resolve_images
+    from dic.images.io import list_images
+    from dic.metrology import noise_floor
+    from dic.sequence.track import load_results, resolve_images
 
     imgs = settings["noise"]["images"]
     paths = resolve_images(imgs) if not isinstance(imgs, str) else list_images(imgs)
@@ -110,7 +110,7 @@ def finish(results_path, out_dir, settings: dict) -> dict:
     out_dir : path
         Output folder.
     settings : dict
-        The analysis settings (as from :func:`dic.config.load_analysis`); uses ``tensile``,
+        The analysis settings (as from :func:`dic.workflow.config.load_analysis`); uses ``tensile``,
         ``strain``, ``noise`` and ``report``.
 
     Returns
@@ -124,7 +124,7 @@ def finish(results_path, out_dir, settings: dict) -> dict:
     written: dict = {}
     hist = tens = None
     if settings.get("tensile"):
-        from ._cli_tensile import compute
+        from dic.cli.tensile import compute
 
         hist, tens, folder = compute(tensile_namespace(settings["tensile"], results_path,
                                                        out_dir))
@@ -132,7 +132,7 @@ def finish(results_path, out_dir, settings: dict) -> dict:
         written["tensile_results"] = tens
     rep = settings.get("report", {})
     if rep.get("write", True):
-        from .report import write_report
+        from dic.report import write_report
 
         strain = settings.get("strain") or {}
         frames = rep.get("frames")

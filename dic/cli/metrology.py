@@ -14,7 +14,7 @@ import math
 import sys
 from pathlib import Path
 
-from ._cli_types import positive_float, positive_int, rectangle
+from dic.cli.types import positive_float, positive_int, rectangle
 
 __all__ = ["register", "run_pattern", "run_noise", "run_advise"]
 
@@ -155,7 +155,7 @@ def register(subparsers):
 
 def run_pattern(args, out=None) -> int:
     """``dic pattern``: print the pattern quality; 0 on success."""
-    from .metrology import pattern_quality
+    from dic.metrology import pattern_quality
 
     out = sys.stdout if out is None else out
     q = pattern_quality(args.image, subset=args.subset, noise=args.noise,
@@ -168,7 +168,7 @@ def run_pattern(args, out=None) -> int:
 
 def run_noise(args, out=None) -> int:
     """``dic noise``: print the noise floor; 0 on success."""
-    from .metrology import noise_floor
+    from dic.metrology import noise_floor
 
     out = sys.stdout if out is None else out
     images = args.images[0] if len(args.images) == 1 else args.images
@@ -184,8 +184,8 @@ def run_noise(args, out=None) -> int:
 def run_advise(args, out=None) -> int:
     """``dic advise``: print the proposed settings; 0 on success (also when no setting
     reaches the target: the advice then says so and shows the best reachable)."""
-    from .metrology import advise
-    from .metrology._advise import SUBSETS, WINDOWS
+    from dic.metrology import advise
+    from dic.metrology._advise import SUBSETS, WINDOWS
 
     out = sys.stdout if out is None else out
     if args.target_noise is None and args.target_resolution is None:

@@ -25,7 +25,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .forcelog import TIME_UNITS, ForceLog, read_table, unit_factor
+from dic.tensile.forcelog import TIME_UNITS, ForceLog, read_table, unit_factor
 
 __all__ = ["ForceAtFrames", "read_frame_times", "image_times_from_files", "synchronise"]
 
@@ -89,7 +89,7 @@ def read_frame_times(path, *, names=None, time_column=None, file_column=None, ti
         Default: the one numeric column, and the one other column.
     time_unit : {"s", "ms", "min"}
     delimiter, decimal : optional
-        As for :func:`dic.forcelog.read_table`.
+        As for :func:`dic.tensile.forcelog.read_table`.
 
     Returns
     -------
@@ -138,7 +138,7 @@ def read_frame_times(path, *, names=None, time_column=None, file_column=None, ti
 
 
 def _num_or_none(row, j, decimal):
-    from .forcelog import _to_float
+    from dic.tensile.forcelog import _to_float
 
     return j < len(row) and _to_float(row[j], decimal) is not None
 
@@ -232,7 +232,7 @@ def synchronise(force_log: ForceLog, n_frames: int, *, image_times=None, frame_i
     Parameters
     ----------
     force_log : ForceLog
-        From :func:`dic.forcelog.read_force_log`.
+        From :func:`dic.tensile.forcelog.read_force_log`.
     n_frames : int
         Number of images.
     image_times : array_like, optional

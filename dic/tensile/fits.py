@@ -1,4 +1,4 @@
-"""The property algorithms of a tensile test on plain arrays (used by :mod:`dic.tensile`).
+"""The property algorithms of a tensile test on plain arrays (used by :mod:`dic.tensile.results`).
 
 Conventions: ``e`` engineering strain (mm/mm), ``s`` engineering stress (MPa), in test order.
 Every function returns plain numbers and never extrapolates: a value that cannot be found is

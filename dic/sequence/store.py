@@ -124,8 +124,8 @@ from pathlib import Path
 
 import numpy as np
 
-from ._version import __version__
-from .field import DisplacementField, Reason
+from dic._version import __version__
+from dic.field import DisplacementField, Reason
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "Results", "ResultsWriter", "open_for_writing",
            "results_info"]
@@ -1395,7 +1395,7 @@ class Results:
         -------
         dic.strain.StrainField
         """
-        from .strain import strain_field
+        from dic.strain import strain_field
 
         return strain_field(self.field(k), window=window, measure=measure, fit=fit)
 

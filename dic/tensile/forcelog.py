@@ -15,7 +15,7 @@ Machines export their logs in many layouts. The reader makes few assumptions:
 Rows whose mapped columns are empty or not numbers, and times that repeat or go backwards, are
 errors naming the line (``skip_bad_rows=True`` drops bad rows instead and says how many).
 
-Only this module and :mod:`dic.forcesync` read such tables.
+Only this module and :mod:`dic.tensile.forcesync` read such tables.
 """
 
 from __future__ import annotations

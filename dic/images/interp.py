@@ -86,7 +86,7 @@ def prefilter(image: np.ndarray, order: int = 3) -> BSplineImage:
     .. [2] P. Thévenaz, T. Blu, M. Unser, "Interpolation revisited", IEEE Trans. Med. Imaging
        19 (2000) 739-758.
     """
-    from . import _interp_kernel as k
+    from dic.images import _interp_kernel as k
 
     order = _check_order(order)
     img = np.ascontiguousarray(image, dtype=np.float64)
@@ -142,7 +142,7 @@ def reference_gradients(spline: BSplineImage) -> tuple[np.ndarray, np.ndarray]:
     gx, gy : ndarray, shape (rows, cols)
         d/dx (along columns) and d/dy (along rows) of the interpolant at integer positions.
     """
-    from . import _interp_kernel as kern
+    from dic.images import _interp_kernel as kern
 
     k = spline.order // 2
     offsets = np.arange(-k, k + 1, dtype=np.float64)

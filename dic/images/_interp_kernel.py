@@ -1,6 +1,6 @@
 """Compiled B-spline prefilter and derivative filters (numba), parallel over lines.
 
-Private: :mod:`dic.interp` wraps these and checks their input.
+Private: :mod:`dic.images.interp` wraps these and checks their input.
 
 References
 ----------

@@ -1,7 +1,7 @@
 """Histories: per-frame values of gauges (and force), exported to CSV and plotted.
 
 A :class:`History` is a small table: one row per frame, with the frame number, the image time
-(s), the force (N) and named columns, each with its unit. It is what :mod:`dic.gauges` returns.
+(s), the force (N) and named columns, each with its unit. It is what :mod:`dic.tensile.gauges` returns.
 """
 
 from __future__ import annotations
@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from ._version import __version__
+from dic._version import __version__
 
 __all__ = ["History", "CAUTION"]
 
@@ -73,7 +73,7 @@ class History:
         f = np.asarray(force, dtype=np.float64).ravel()
         if f.size != len(self):
             raise ValueError(f"force: {f.size} values for {len(self)} frames; give one force "
-                             "per frame (see dic.forcesync.synchronise)")
+                             "per frame (see dic.tensile.forcesync.synchronise)")
         return replace(self, force=f.copy(), columns=dict(self.columns), units=dict(self.units),
                        notes=list(self.notes))
 

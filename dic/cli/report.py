@@ -165,7 +165,7 @@ def _as_option(exc):
 
 
 def _count(path):
-    from .store import Results
+    from dic.sequence.store import Results
 
     with Results.open(path) as r:
         return len(r)
@@ -180,8 +180,8 @@ def _check_window(window):
 
 def run_report(args) -> int:
     """Run ``dic report``: write the HTML and PDF reports; returns 0."""
-    from .report import write_report
-    from .strain import canonical_measure
+    from dic.report import write_report
+    from dic.strain import canonical_measure
 
     results = _results_file(args.results)
     window = _check_window(args.window)
@@ -192,7 +192,7 @@ def run_report(args) -> int:
         if n == 0:
             raise ValueError(f"RESULTS: '{results}' holds no completed frames; run 'dic run' "
                              f"into it first")
-        from .pipeline import _self_check
+        from dic.workflow.run import _self_check
 
         # every report carries the self-check of its settings on its own reference image
         check = _self_check(results, {"window": window, "measure": measure})
@@ -208,8 +208,8 @@ def run_report(args) -> int:
 
 def run_export(args) -> int:
     """Run ``dic export``: write CSV, NPZ or VTK files; returns 0."""
-    from .export import EXPORT_FORMATS, _check_components, export_results
-    from .strain import canonical_measure
+    from dic.export import EXPORT_FORMATS, _check_components, export_results
+    from dic.strain import canonical_measure
 
     fmt = str(args.format).strip().lower()
     if fmt not in EXPORT_FORMATS:

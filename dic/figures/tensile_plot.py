@@ -1,4 +1,4 @@
-"""The stress-strain figure of :class:`dic.tensile.TensileResults` (Agg canvas, no pyplot)."""
+"""The stress-strain figure of :class:`dic.tensile.results.TensileResults` (Agg canvas, no pyplot)."""
 
 from __future__ import annotations
 

@@ -140,7 +140,7 @@ def _mask_from_array(arr):
 
 
 def _mask_from_file(path, shape):
-    from .io import read_image
+    from dic.images.io import read_image
 
     image = read_image(path, name="roi")
     if image.shape != shape:

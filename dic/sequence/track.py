@@ -1,6 +1,6 @@
 """The sequence driver: frames in order, blocks in parallel, results appended to the file.
 
-See :mod:`dic.sequence` for the per-frame logic. This module schedules it: the first frame of
+See :mod:`dic.sequence.frames` for the per-frame logic. This module schedules it: the first frame of
 every block is matched in sequence (each from the previous block's first frame), the remaining
 frames of the blocks then run in any order -- in this process, in a process pool or on a Dask
 cluster -- and their results are written in frame order by this process alone.
@@ -16,8 +16,8 @@ from pathlib import Path
 
 import numpy as np
 
-from .field import DisplacementField
-from .sequence import (FrameMatcher, TrackSettings, accounted, extrapolate,
+from dic.field import DisplacementField
+from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, extrapolate,
                        needs_new_reference)
 
 __all__ = ["track", "load_results", "resolve_images"]
@@ -33,7 +33,7 @@ def resolve_images(images) -> list:
 
     ``images`` may be a folder, a glob pattern, a list of paths/patterns, or a list of arrays.
     """
-    from .io import list_images
+    from dic.images.io import list_images
 
     if isinstance(images, (str, os.PathLike)):
         return list(list_images(images))
@@ -63,7 +63,7 @@ def _sha256(path) -> str:
 
 def _check_frames(paths, reference_shape):
     """All frames the same size and bit depth as the reference (cheap header reads)."""
-    from .io import image_info
+    from dic.images.io import image_info
 
     if isinstance(paths[0], np.ndarray):
         for k, a in enumerate(paths):
@@ -86,7 +86,7 @@ def _check_frames(paths, reference_shape):
 
 
 def _load(item):
-    from .io import read_image
+    from dic.images.io import read_image
 
     if isinstance(item, np.ndarray):
         return read_image(item, name="image")
@@ -286,7 +286,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
     Returns
     -------
-    dic.store.Results
+    dic.sequence.store.Results
         The results, read back from the file.
 
     References
@@ -294,8 +294,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     .. [1] B. Pan, "Reliability-guided digital image correlation for image deformation
        measurement", Applied Optics 48 (2009) 1535-1542.
     """
-    from . import store
-    from .roi import make_roi
+    from dic.sequence import store
+    from dic.images.roi import make_roi
 
     items = resolve_images(images)
     n_img = len(items)
@@ -323,11 +323,11 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
     # the grid of points, as dic.correlate lays it out (no matching needed for that), after
     # the same checks of the options that dic.correlate makes
-    from .matching import _check_options, prepare_grid
+    from dic.matching import _check_options, prepare_grid
 
     _check_options(subset, step, shape_function, interpolation, search, min_zncc, 50, 3e-3,
                    0.02)
-    from .matching._icgn import INTERPOLATIONS, edge_margin
+    from dic.matching._icgn import INTERPOLATIONS, edge_margin
 
     xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
                           edge_margin(INTERPOLATIONS[settings.interpolation]))[:2]
@@ -365,8 +365,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
 
 def load_results(path):
-    """Open a results file written by :func:`track` (see :class:`dic.store.Results`)."""
-    from .store import Results
+    """Open a results file written by :func:`track` (see :class:`dic.sequence.store.Results`)."""
+    from dic.sequence.store import Results
 
     return Results.open(path)
 
@@ -527,7 +527,7 @@ def _stage_matcher(stage, key, local):
 
 
 def _write_strain(writer, k, total, strain):
-    from .strain import strain_field
+    from dic.strain import strain_field
 
     s = strain_field(total, window=int(strain.get("window", 9)),
                      measure=strain.get("measure", "green-lagrange"))

@@ -1,8 +1,8 @@
 """Animations of a strain component through a sequence: GIF and MP4 through imageio.
 
-Every frame is drawn with :func:`dic.plot.strain_map` into one figure whose layout is fixed
+Every frame is drawn with :func:`dic.figures.plot.strain_map` into one figure whose layout is fixed
 after the first frame, with colour limits fixed for the whole sequence (given, or from
-:func:`dic.plot.strain_limits`), so a colour means the same strain in every frame. A caption
+:func:`dic.figures.plot.strain_limits`), so a colour means the same strain in every frame. A caption
 gives the frame number, the image, its time and, if given, the force. GIF is written with
 Pillow, MP4 (H.264) with the ffmpeg program that the ``imageio-ffmpeg`` package ships.
 """
@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from . import plot as _plot
+from dic.figures import plot as _plot
 
 __all__ = ["ANIMATION_FORMATS", "animate"]
 
@@ -29,10 +29,10 @@ def _open_results(results):
     """``(Results, opened_here)`` from a Results object or a path."""
     if _plot._is_results(results):
         return results, False
-    from .store import Results
+    from dic.sequence.store import Results
 
     if not isinstance(results, (str, os.PathLike)):
-        raise ValueError(f"results must be a results file path or dic.store.Results; got "
+        raise ValueError(f"results must be a results file path or dic.sequence.store.Results; got "
                          f"{type(results).__name__}")
     return Results.open(results), True
 
@@ -76,19 +76,19 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.store.Results
+    results : str, os.PathLike or dic.sequence.store.Results
         The results file.
     path : str or os.PathLike
         Output file ending in ``.gif`` or ``.mp4``; its folder must exist.
     component : str, optional
-        One of :data:`dic.plot.STRAIN_QUANTITIES` (``xy`` is tensor shear).
+        One of :data:`dic.figures.plot.STRAIN_QUANTITIES` (``xy`` is tensor shear).
     window, measure : optional
         Strain window and measure, as for :func:`dic.strain_field`.
     frames : sequence of int or slice, optional
         Frames to show (default all completed frames).
     limits : (float, float), optional
         Colour limits for every frame (plain strain numbers); by default
-        :func:`dic.plot.strain_limits` over the frames shown.
+        :func:`dic.figures.plot.strain_limits` over the frames shown.
     units : {'auto', 'microstrain', '%'}, optional
     configuration : {'reference', 'deformed'}, optional
         Draw on the reference grid over the reference image, or following the specimen over
@@ -139,7 +139,7 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
         raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
                                 f"writing '{p.name}'")
     name = _plot._quantity_name(component)
-    from .strain import canonical_measure
+    from dic.strain import canonical_measure
 
     measure = canonical_measure(measure)
     config = _plot._configuration(configuration)

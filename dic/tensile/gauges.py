@@ -43,8 +43,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .field import DisplacementField
-from .histories import CAUTION, History
+from dic.field import DisplacementField
+from dic.tensile.histories import CAUTION, History
 
 __all__ = ["GaugeLine", "AreaGauge", "PointProbe", "gauge_histories", "axial_line",
            "transverse_line", "neck_line", "poisson_ratio", "displacement_at", "History",
@@ -353,7 +353,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
 
     Parameters
     ----------
-    source : dic.store.Results, DisplacementField or list of DisplacementField
+    source : dic.sequence.store.Results, DisplacementField or list of DisplacementField
         Tracked results (Lagrangian: every frame on the reference grid).
     gauges : GaugeLine, AreaGauge, PointProbe or a list of them
         Names must be distinct.
@@ -421,7 +421,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
                              "larger than the grid step")
         area_mask[g.name] = m
     if (areas or probes):
-        from .strain import COMPONENTS
+        from dic.strain import COMPONENTS
 
         bad = [c for c in comps if c not in COMPONENTS]
         if bad:
@@ -462,7 +462,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
             cols[f"{g.name}.true"][row] = math.log(lam) if lam > 0 else math.nan
             cols[f"{g.name}.green_lagrange"][row] = 0.5 * (lam * lam - 1.0)
         if areas or probes:
-            from .strain import strain_field
+            from dic.strain import strain_field
 
             if f.n_valid == 0:
                 continue
@@ -496,7 +496,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
                      "fields); engineering = L/L0 - 1, true = ln(L/L0), green_lagrange = "
                      "((L/L0)^2 - 1)/2")
     if areas or probes:
-        from .strain import canonical_measure
+        from dic.strain import canonical_measure
 
         notes.append(f"area gauges and point probes: {canonical_measure(measure)} strain, "
                      f"window {window} points" + (f", VSG {vsg:g} px" if vsg and
@@ -704,7 +704,7 @@ def neck_line(source, gauge_length, *, units="mm", axis="auto", component="major
     """
     if through not in ("section", "point"):
         raise ValueError(f"through: use 'section' or 'point', got {through!r}")
-    from .strain import strain_field
+    from dic.strain import strain_field
 
     src = _Frames(source, scale)
     ax = _resolve_axis(src, axis)

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field as dc_field, replace
 
 import numpy as np
 
-from .field import DisplacementField, Reason
+from dic.field import DisplacementField, Reason
 
 __all__ = ["TrackSettings", "FrameMatcher", "compose_increment", "needs_new_reference",
            "current_points"]
@@ -178,8 +178,8 @@ class FrameMatcher:
     _grads: tuple | None = dc_field(default=None, repr=False)
 
     def __post_init__(self):
-        from . import interp
-        from .matching._icgn import INTERPOLATIONS
+        from dic.images import interp
+        from dic.matching._icgn import INTERPOLATIONS
 
         order = INTERPOLATIONS[self.settings.interpolation]
         self._grads = interp.reference_gradients(interp.prefilter(self.reference, order))
@@ -189,7 +189,7 @@ class FrameMatcher:
 
         ``initial`` is a raw field (on this matcher's grid) to start from, or None.
         """
-        from .matching import correlate
+        from dic.matching import correlate
 
         if self.base is None:
             raw = correlate(self.reference, image, roi=self.roi, initial=initial,

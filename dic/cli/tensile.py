@@ -11,7 +11,7 @@ import logging
 import sys
 from pathlib import Path
 
-from ._cli_types import number, pair, positive_float
+from dic.cli.types import number, pair, positive_float
 
 __all__ = ["register", "run"]
 
@@ -107,7 +107,7 @@ def register(subparsers):
 
 def _check_early(args):
     """Checks that need no file, so a typo fails before any work."""
-    from .forcelog import FORCE_UNITS, LENGTH_UNITS, TIME_UNITS, unit_factor
+    from dic.tensile.forcelog import FORCE_UNITS, LENGTH_UNITS, TIME_UNITS, unit_factor
 
     unit_factor(args.force_unit, FORCE_UNITS, "--force-unit")
     unit_factor(args.time_unit, TIME_UNITS, "--time-unit")
@@ -151,15 +151,15 @@ def compute(args):
     """Gauges, force synchronisation and tensile results; writes the files.
 
     Returns ``(history, results, folder)``: the gauge histories (with time and force), the
-    :class:`dic.tensile.TensileResults` and the folder written to.
+    :class:`dic.tensile.results.TensileResults` and the folder written to.
     """
     import numpy as np
 
-    from . import gauges as G
-    from .forcelog import read_force_log
-    from .forcesync import image_times_from_files, read_frame_times, synchronise
-    from .tensile import engineering_stress, tensile_results
-    from .tracker import load_results
+    from dic.tensile import gauges as G
+    from dic.tensile.forcelog import read_force_log
+    from dic.tensile.forcesync import image_times_from_files, read_frame_times, synchronise
+    from dic.tensile.results import engineering_stress, tensile_results
+    from dic.sequence.track import load_results
 
     _check_early(args)
     folder = args.out if args.out is not None else Path(args.results).resolve().parent
@@ -233,7 +233,7 @@ def compute(args):
     results.to_json(folder / "tensile.json")
     results.to_csv(folder / "tensile.csv")
     fig, _ = results.plot()
-    from .plot import save_figure
+    from dic.figures.plot import save_figure
 
     save_figure(fig, folder / "stress_strain.png")
     return hist, results, folder

@@ -1,6 +1,6 @@
-"""Compiled kernel for :mod:`dic.synth`: sum of truncated Gaussian blobs at given points.
+"""Compiled kernel for :mod:`dic.images.synth`: sum of truncated Gaussian blobs at given points.
 
-Private. The Python wrapper in :mod:`dic.synth` checks every argument and builds the cell table;
+Private. The Python wrapper in :mod:`dic.images.synth` checks every argument and builds the cell table;
 this module trusts its input.
 """
 

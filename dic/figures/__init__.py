@@ -1,0 +1,1 @@
+"""Figures: strain and displacement maps, line plots, animations, the stress-strain plot."""

@@ -1,0 +1,1 @@
+"""Workflow: the analysis file and the whole run from images to report."""
