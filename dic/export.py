@@ -24,7 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
-from dic._version import __version__
+from dic import __version__
 from dic.field import DisplacementField
 
 __all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "export_results", "field_from_npz", "field_to_csv",
@@ -219,7 +219,7 @@ DEFAULT_COMPONENTS = ("xx", "yy", "xy")
 _TABLE_FMT = "%.9g"
 
 
-def _check_components(components):
+def check_components(components):
     """Checked tuple of strain quantity names (a list or a comma-separated string)."""
     from dic.figures.plot import STRAIN_QUANTITIES
 
@@ -332,7 +332,7 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
     significant digits; ``nan`` marks values that do not exist (an unmeasured point, or a
     point too near the edge of the measured area for a strain).
     """
-    comps = _check_components(components)
+    comps = check_components(components)
     res, opened = _open(results)
     try:
         kk = _frame(res, k)
@@ -419,7 +419,7 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
 
     from numpy.lib.format import open_memmap
 
-    comps = _check_components(components)
+    comps = check_components(components)
     p = Path(os.fspath(path))
     if p.suffix != ".npz":
         p = p.with_name(p.name + ".npz")
@@ -559,7 +559,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
     """
     from dic.figures.plot import _frame_indices
 
-    comps = _check_components(components)
+    comps = check_components(components)
     if not isinstance(name, str) or not name or any(c in name for c in "/\\\0"):
         raise ValueError(f"name: {name!r} is not a plain file stem; use e.g. 'results'")
     res, opened = _open(results)
@@ -659,7 +659,7 @@ def export_results(results, out_dir, *, format="csv", frames=None,
     fmt = format.strip().lower() if isinstance(format, str) else None
     if fmt not in EXPORT_FORMATS:
         raise ValueError(f"format: unknown {format!r}; use one of: {', '.join(EXPORT_FORMATS)}")
-    comps = _check_components(components)
+    comps = check_components(components)
     measure = canonical_measure(measure)
     res, opened = _open(results)
     try:

@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from dic.images import synth
-from dic.matching import _reference as plain
+import plain_icgn as plain
 from dic.matching._icgn import SubsetMatcher, n_params
 
 

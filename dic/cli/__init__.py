@@ -34,7 +34,7 @@ import time
 from pathlib import Path
 
 from dic.cli.types import numbers, positive_float, positive_int, rectangle
-from dic._version import __version__
+from dic import __version__
 
 __all__ = ["main"]
 

@@ -192,10 +192,10 @@ def run_report(args) -> int:
         if n == 0:
             raise ValueError(f"RESULTS: '{results}' holds no completed frames; run 'dic run' "
                              f"into it first")
-        from dic.workflow.run import _self_check
+        from dic.workflow.run import settings_self_check
 
         # every report carries the self-check of its settings on its own reference image
-        check = _self_check(results, {"window": window, "measure": measure})
+        check = settings_self_check(results, {"window": window, "measure": measure})
         html, pdf = write_report(results, out, frames=_expand(_frames(args.frames), n),
                                  window=window, measure=measure, metrology=check,
                                  title=getattr(args, "title", None))
@@ -208,7 +208,7 @@ def run_report(args) -> int:
 
 def run_export(args) -> int:
     """Run ``dic export``: write CSV, NPZ or VTK files; returns 0."""
-    from dic.export import EXPORT_FORMATS, _check_components, export_results
+    from dic.export import EXPORT_FORMATS, check_components, export_results
     from dic.strain import canonical_measure
 
     fmt = str(args.format).strip().lower()
@@ -219,7 +219,7 @@ def run_export(args) -> int:
     window = _check_window(args.window)
     measure = canonical_measure(args.measure)
     try:
-        components = _check_components(args.components)
+        components = check_components(args.components)
     except ValueError as exc:
         raise _as_option(exc) from None
     out = Path(args.out) if args.out is not None else results.parent / _EXPORT_FOLDER

@@ -105,19 +105,22 @@ def register(subparsers):
     return p
 
 
-def _check_early(args):
-    """Checks that need no file, so a typo fails before any work."""
-    from dic.tensile.forcelog import FORCE_UNITS, LENGTH_UNITS, TIME_UNITS, unit_factor
+def setup_from_args(args):
+    """The :class:`dic.tensile.workflow.TensileSetup` from the parsed options."""
+    from dic.tensile.workflow import TensileSetup
 
-    unit_factor(args.force_unit, FORCE_UNITS, "--force-unit")
-    unit_factor(args.time_unit, TIME_UNITS, "--time-unit")
-    if args.crosshead_column is not None:
-        unit_factor(args.crosshead_unit, LENGTH_UNITS, "--crosshead-unit")
-    if args.area is not None and (args.width is not None or args.thickness is not None):
-        raise ValueError("--area: give either --area or --width and --thickness, not both")
-    if args.area is None and (args.width is None or args.thickness is None):
-        raise ValueError("--width/--thickness: give the specimen's width and thickness in mm "
-                         "(or --area in mm^2)")
+    return TensileSetup(
+        force_log=args.force_log, time_column=args.time_column,
+        force_column=args.force_column, crosshead_column=args.crosshead_column,
+        force_unit=args.force_unit, time_unit=args.time_unit,
+        crosshead_unit=args.crosshead_unit, delimiter=args.delimiter, decimal=args.decimal,
+        skip_bad_rows=args.skip_bad_rows, frame_times=args.frame_times,
+        frame_interval=args.frame_interval, image_metadata=args.image_metadata,
+        by_index=args.by_index, trigger_offset=args.trigger_offset, width=args.width,
+        thickness=args.thickness, area=args.area, gauge_length=args.gauge_length,
+        transverse_length=args.transverse_length, axis=args.axis, scale=args.scale,
+        modulus_range=args.modulus_range, offsets=tuple(args.offsets or (0.2,)),
+        n_range=args.n_range)
 
 
 def run(args, out=None) -> int:
@@ -139,118 +142,11 @@ def run(args, out=None) -> int:
     ValueError, OSError
         Bad input, with a one-line message; files written before the error are kept.
     """
+    from dic.workflow.run import tensile_outputs
+
     out = sys.stdout if out is None else out
-    _hist, results, folder = compute(args)
-    print(results.table(), file=out)
-    print(f"wrote tensile.json, tensile.csv, stress_strain.png and gauges.csv to {folder}",
-          file=out)
+    outcome = tensile_outputs(args.results, setup_from_args(args), args.out)
+    print(outcome.results.table(), file=out)
+    print(f"wrote tensile.json, tensile.csv, stress_strain.png and gauges.csv to "
+          f"{outcome.folder}", file=out)
     return 0
-
-
-def compute(args):
-    """Gauges, force synchronisation and tensile results; writes the files.
-
-    Returns ``(history, results, folder)``: the gauge histories (with time and force), the
-    :class:`dic.tensile.results.TensileResults` and the folder written to.
-    """
-    import numpy as np
-
-    from dic.tensile import gauges as G
-    from dic.tensile.forcelog import read_force_log
-    from dic.tensile.forcesync import image_times_from_files, read_frame_times, synchronise
-    from dic.tensile.results import engineering_stress, tensile_results
-    from dic.sequence.track import load_results
-
-    _check_early(args)
-    folder = args.out if args.out is not None else Path(args.results).resolve().parent
-    with load_results(args.results) as res:
-        if len(res) < 4:
-            raise ValueError(f"RESULTS: '{args.results}' holds {len(res)} completed frames; a "
-                             "tensile curve needs at least four")
-        scale = args.scale if args.scale is not None else res.scale
-        if scale is None:
-            raise ValueError(f"--scale: '{args.results}' has no image scale (mm/px); give "
-                             "--scale MM_PER_PX")
-        # 1. gauges (kept on disk even if the force log turns out bad)
-        axial = _axial(G, res, args, scale)
-        across = G.transverse_line(res, args.transverse_length, units="mm", axis=args.axis,
-                                   scale=scale)
-        hist = G.gauge_histories(res, [axial, across], scale=scale)
-        try:
-            folder.mkdir(parents=True, exist_ok=True)
-        except OSError as exc:
-            raise OSError(f"--out: cannot create folder '{folder}' ({exc.strerror or exc})"
-                          ) from None
-        hist.to_csv(folder / "gauges.csv")
-        # 2. force log on the images' clock
-        flog = read_force_log(args.force_log, time_column=args.time_column,
-                              force_column=args.force_column,
-                              crosshead_column=args.crosshead_column,
-                              time_unit=args.time_unit, force_unit=args.force_unit,
-                              crosshead_unit=args.crosshead_unit, delimiter=args.delimiter,
-                              decimal=args.decimal, skip_bad_rows=args.skip_bad_rows)
-        n = len(res)
-        names = res.image_names[:n]
-        if args.by_index:
-            sync = synchronise(flog, n, by_index=True)
-        elif args.frame_interval is not None:
-            sync = synchronise(flog, n, frame_interval=args.frame_interval,
-                               trigger_offset=args.trigger_offset)
-        else:
-            if args.frame_times is not None:
-                times = read_frame_times(args.frame_times, names=names)
-            elif args.image_metadata:
-                times, used = image_times_from_files(names)
-                log.info("image times from the files' %s", used)
-            else:
-                times = np.asarray(res.image_times[:n], dtype=float)
-                if not np.all(np.isfinite(times)):
-                    raise ValueError("the results file holds no image times; give "
-                                     "--frame-times, --frame-interval, --image-metadata or "
-                                     "--by-index")
-            sync = synchronise(flog, n, image_times=times, trigger_offset=args.trigger_offset)
-        hist = hist.with_time(sync.time).with_force(sync.force)
-        if sync.crosshead is not None:
-            hist.columns["crosshead"] = sync.crosshead
-            hist.units["crosshead"] = "mm"
-        hist.notes.append(f"force from '{flog.path.name}' ({sync.method})")
-        hist.to_csv(folder / "gauges.csv")
-    # 3. stress and results
-    stress = engineering_stress(sync.force, width=args.width, thickness=args.thickness,
-                                area=args.area)
-    area = args.area if args.area is not None else args.width * args.thickness
-    peak = float(np.max(flog.force)) / area
-    n_range = None if args.n_range is None else (args.n_range[0] / 100, args.n_range[1] / 100)
-    results = tensile_results(hist[f"{axial.name}.engineering"], stress,
-                              transverse=hist[f"{across.name}.engineering"],
-                              modulus_range=args.modulus_range,
-                              offsets=tuple(args.offsets or (0.2,)), n_range=n_range,
-                              r_range=n_range, peak_stress=peak)
-    results.notes.extend(sync.notes)
-    results.notes.append(f"strain: gauge line {axial.length:g} mm along the axis, "
-                         f"{across.length:g} mm across; force log synchronised "
-                         f"{sync.method}; area {area:g} mm^2")
-    results.to_json(folder / "tensile.json")
-    results.to_csv(folder / "tensile.csv")
-    fig, _ = results.plot()
-    from dic.figures.plot import save_figure
-
-    save_figure(fig, folder / "stress_strain.png")
-    return hist, results, folder
-
-
-def _axial(G, res, args, scale):
-    if args.gauge_length is not None:
-        return G.axial_line(res, args.gauge_length, units="mm", axis=args.axis, scale=scale)
-    # default: 80 % of the measured length along the axis, through the centre
-    src = G._Frames(res, scale)
-    ax = G._resolve_axis(src, args.axis)
-    x0, x1, y0, y1 = G._roi_box(src)
-    centre = (0.5 * (x0 + x1), 0.5 * (y0 + y1)) if ax == "x" else (0.5 * (y0 + y1),
-                                                                    0.5 * (x0 + x1))
-    lo, hi = G._measured_span(src, ax, centre[1])
-    half = min(centre[0] - lo, hi - centre[0])
-    if not half > 0:
-        raise ValueError("--gauge-length: the region of interest is not measured around its "
-                         "centre; give --gauge-length")
-    return G.axial_line(res, 1.6 * half * scale, units="mm", axis=ax, scale=scale)

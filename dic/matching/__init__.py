@@ -16,7 +16,13 @@ from dic.field import DisplacementField, Reason
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
 
-__all__ = ["correlate", "prepare_grid"]
+from dic.matching._grid import check_int, check_options, prepare_grid
+from dic.matching._noise import image_noise, pair_noise
+from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
+
+__all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
+           "edge_margin", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
+           "gradient_noise_gain"]
 
 log = logging.getLogger(__name__)
 
@@ -25,91 +31,6 @@ _SEED_TRIES = 7
 _MIN_ISLAND = 10
 # grids at least this many points across propagate over a coarse lattice first
 _COARSE_MIN = 12
-
-
-def _check_int(name, value, low, hint):
-    if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
-        raise ValueError(f"{name} must be an integer, got {value!r}; {hint}")
-    if value < low:
-        raise ValueError(f"{name} must be at least {low}, got {value}; {hint}")
-    return int(value)
-
-
-def _check_options(subset, step, shape_function, interpolation, search, min_zncc,
-                   max_iterations, tolerance, min_texture):
-    subset = _check_int("subset", subset, 7, "use an odd size of 7 px or more, e.g. 21")
-    if subset % 2 == 0:
-        raise ValueError(f"subset must be odd so it has a centre pixel, got {subset}; "
-                         f"use {subset + 1}")
-    step = _check_int("step", step, 1, "use a grid spacing of 1 px or more, e.g. 10")
-    sf = str(shape_function).lower()
-    if sf not in SHAPE_FUNCTIONS:
-        raise ValueError(f"unknown shape_function {shape_function!r}; use 'affine' or "
-                         f"'quadratic'")
-    it = str(interpolation).lower()
-    if it not in INTERPOLATIONS:
-        raise ValueError(f"unknown interpolation {interpolation!r}; use 'cubic' or 'quintic'")
-    search = _check_int("search", search, 0, "give the search radius in px, e.g. 60")
-    if not (-1.0 < float(min_zncc) < 1.0):
-        raise ValueError(f"min_zncc must lie between -1 and 1, got {min_zncc}; e.g. 0.9")
-    max_iterations = _check_int("max_iterations", max_iterations, 1, "e.g. 50")
-    if not float(tolerance) > 0:
-        raise ValueError(f"tolerance must be positive, got {tolerance}; e.g. 0.001 px")
-    if not 0.0 <= float(min_texture) < 1.0:
-        raise ValueError(f"min_texture must lie in [0, 1), got {min_texture}; e.g. 0.02")
-    return (subset, step, SHAPE_FUNCTIONS[sf] == 2, INTERPOLATIONS[it], search,
-            float(min_zncc), max_iterations, float(tolerance), float(min_texture))
-
-
-def prepare_grid(shape, roi, subset, step, border=0):
-    """Point grid over the ROI and the points whose whole subset lies inside it.
-
-    Parameters
-    ----------
-    shape : tuple
-        Image shape ``(rows, cols)``.
-    roi : None, bool array, rectangle or polygon
-        See :func:`dic.images.roi.make_roi`.
-    subset, step : int
-        Subset size and grid spacing (px).
-    border : int, optional
-        Width of the image margin that subsets must not touch (px).
-
-    Returns
-    -------
-    xs, ys : ndarray of int
-        Column and row positions of the grid lines.
-    candidate : ndarray of bool, shape (len(ys), len(xs))
-        Points whose subset is wholly inside the ROI and clear of the image margin.
-    mask : ndarray of bool
-        The ROI as a pixel mask.
-    in_image : ndarray of bool, shape (len(ys), len(xs))
-        Points whose subset is clear of the image margin.
-    """
-    from dic.images.roi import erode_for_subset, make_roi, roi_bbox
-
-    mask = make_roi(roi, shape)
-    half = subset // 2
-    x0, y0, x1, y1 = roi_bbox(mask)
-    xs = np.arange(x0 + half, x1 - half + 1, step, dtype=np.int64)
-    ys = np.arange(y0 + half, y1 - half + 1, step, dtype=np.int64)
-    if xs.size == 0 or ys.size == 0:
-        raise ValueError(f"roi is too small for subset {subset} px (its bounding box is "
-                         f"{x1 - x0 + 1} x {y1 - y0 + 1} px); enlarge the ROI or use a smaller "
-                         f"subset")
-    rows, cols = shape
-    lo_x, hi_x = border + half, cols - 1 - border - half
-    lo_y, hi_y = border + half, rows - 1 - border - half
-    in_image = (((xs >= lo_x) & (xs <= hi_x))[None, :] & ((ys >= lo_y) & (ys <= hi_y))[:, None])
-    if mask[y0:y1 + 1, x0:x1 + 1].all():
-        # a rectangular ROI: every subset inside the bounding box is inside the ROI
-        candidate = in_image
-    else:
-        candidate = erode_for_subset(mask, subset)[np.ix_(ys, xs)] & in_image
-    if not candidate.any():
-        raise ValueError(f"roi holds no point whose {subset} px subset fits inside it; enlarge "
-                         f"the ROI or use a smaller subset")
-    return xs, ys, candidate, mask, in_image
 
 
 class _Propagation:
@@ -339,7 +260,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     from dic.images.io import read_image
 
     (subset, step, second, order, search, min_zncc, max_iterations, tolerance,
-     min_texture) = _check_options(subset, step, shape_function, interpolation, search,
+     min_texture) = check_options(subset, step, shape_function, interpolation, search,
                                    min_zncc, max_iterations, tolerance, min_texture)
     seed_list = _parse_seeds(seeds)
     ref = read_image(reference, name="reference")
@@ -368,7 +289,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     if workers is not None:
         import numba
 
-        workers = _check_int("workers", workers, 1, "e.g. 2")
+        workers = check_int("workers", workers, 1, "e.g. 2")
         prev_threads = numba.get_num_threads()
         numba.set_num_threads(min(workers, numba.config.NUMBA_NUM_THREADS))
     try:
@@ -403,7 +324,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         "image_shape": tuple(int(s) for s in ref.shape),
         "image_noise": noise,
     }
-    from dic.metrology._uncertainty import point_sigma
+    from dic.matching._uncertainty import point_sigma
 
     sig_u, sig_v = point_sigma(np.where(good[:, None], prop.unc, np.nan), noise[0], noise[1],
                                order)
@@ -431,7 +352,7 @@ def _image_noise(value, ref, dfm, px, py, subset):
             raise ValueError(f"image_noise must be one or two non-negative numbers (grey "
                              f"levels), got {value!r}; e.g. 2.0")
         return (float(vals[0]), float(vals[-1]))
-    from dic.metrology._noise import image_noise
+    from dic.matching._noise import image_noise
 
     half = subset // 2
     if px.size == 0:

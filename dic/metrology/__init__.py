@@ -26,14 +26,15 @@ displacement_transfer, strain_transfer, attenuation_period
 
 from __future__ import annotations
 
+from dic.matching import (gradient_noise_gain, image_noise, pair_noise, point_sigma,
+                          predicted_sigma)
+
 from dic.metrology._advise import Advice, advise
 from dic.metrology._floor import NoiseFloor, noise_floor
-from dic.metrology._noise import image_noise, pair_noise
 from dic.metrology._pattern import (PatternQuality, mean_intensity_gradient, pattern_quality, speckle_size,
                        sssig_maps)
 from dic.metrology._selfcheck import SelfCheck, self_check
 from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
-from dic.metrology._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
 
 __all__ = [
     "pattern_quality", "PatternQuality", "mean_intensity_gradient", "sssig_maps", "speckle_size",

@@ -8,8 +8,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from dic.metrology._selfcheck import (MAX_SIZE, _correlate, _crossing, _prepare, _subsample, _wave_geometry,
-                         _wave_image, _wave_response, AMPLITUDE)
+from dic.metrology._selfcheck import (AMPLITUDE, MAX_SIZE, correlate_scene, crossing,
+                                      prepare_scene, scene_wave_image, subsample,
+                                      wave_geometry, wave_response)
 from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
 
 __all__ = ["advise", "Advice"]
@@ -225,7 +226,7 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
         raise ValueError(f"subsets must be odd integers of at least 7, got {subsets}")
     if not windows or any(w < 3 or w % 2 == 0 for w in windows):
         raise ValueError(f"windows must be odd integers of at least 3, got {windows}")
-    scene = _prepare(image, roi, noise, seed, max_size)
+    scene = prepare_scene(image, roi, noise, seed, max_size)
     area = int(scene.mask.sum())
     plan = {}
     for s in subsets:
@@ -246,21 +247,21 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
                for s in subsets)
     lo = max(0.5 * min(th_u.values()), 4.0 * math.pi * AMPLITUDE)
     hi = max(2.5 * th_e, 2.0 * lo)
-    geom = _wave_geometry(scene, lo, hi)
+    geom = wave_geometry(scene, lo, hi)
     static = scene.noisy(scene.image)
-    wave = scene.noisy(_wave_image(scene, geom, AMPLITUDE))
+    wave = scene.noisy(scene_wave_image(scene, geom, AMPLITUDE))
 
     candidates = []
     for s in subsets:
         base = functools.reduce(math.gcd, plan[s])
         try:
-            fs0 = _correlate(scene, static, s, base, sf, interpolation)
-            fw0 = _correlate(scene, wave, s, base, sf, interpolation)
+            fs0 = correlate_scene(scene, static, s, base, sf, interpolation)
+            fw0 = correlate_scene(scene, wave, s, base, sf, interpolation)
         except ValueError:
             continue                                   # the ROI is too small for this subset
         for st in plan[s]:
             m = st // base
-            fs, fw = _subsample(fs0, m), _subsample(fw0, m)
+            fs, fw = subsample(fs0, m), subsample(fw0, m)
             ok = fs.valid
             if ok.sum() < 10:
                 continue
@@ -275,9 +276,9 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
                 if v.sum() < 10 or np.count_nonzero(es.n_used >= w * w) < 10:
                     continue                           # the window hardly fits in the ROI
                 e_noise = float(max(np.std(es.xx[v]), np.std(es.yy[v])))
-                periods, ru, re = _wave_response(scene, geom, AMPLITUDE, fw, ew, w)
-                res_e, flag = _crossing(periods, re)
-                res_u, _f = _crossing(periods, ru)
+                periods, ru, re = wave_response(scene, geom, AMPLITUDE, fw, ew, w)
+                res_e, flag = crossing(periods, re)
+                res_u, _f = crossing(periods, ru)
                 if flag == ">":
                     res_e = float("inf")               # worse than the longest period tried
                 candidates.append({

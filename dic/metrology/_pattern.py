@@ -313,8 +313,7 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
     """
     from dic.images.io import read_image
     from dic.images.roi import make_roi
-    from dic.metrology._noise import image_noise, pair_noise
-    from dic.metrology._uncertainty import gradient_noise_gain, predicted_sigma
+    from dic.matching import gradient_noise_gain, image_noise, pair_noise, predicted_sigma
 
     img = read_image(image, name="image")
     if isinstance(subset, bool) or not isinstance(subset, (int, np.integer)) or subset < 7 \

@@ -45,10 +45,10 @@ class _Scene:
         return img + self.rng.normal(0.0, self.noise, img.shape)
 
 
-def _prepare(image, roi, noise, seed, max_size):
+def prepare_scene(image, roi, noise, seed, max_size):
     from dic.images.io import read_image
     from dic.images.roi import make_roi, roi_bbox
-    from dic.metrology._noise import image_noise
+    from dic.matching import image_noise
 
     img = read_image(image, name="image")
     mask = make_roi(roi, img.shape)
@@ -87,7 +87,7 @@ def _prepare(image, roi, noise, seed, max_size):
 # --------------------------------------------------------------------------------------------
 # measurement helpers
 # --------------------------------------------------------------------------------------------
-def _correlate(scene, deformed, subset, step, shape_function, interpolation):
+def correlate_scene(scene, deformed, subset, step, shape_function, interpolation):
     from dic.matching import correlate
 
     return correlate(scene.reference, deformed, subset=subset, step=step, roi=scene.mask,
@@ -95,7 +95,7 @@ def _correlate(scene, deformed, subset, step, shape_function, interpolation):
                      image_noise=scene.noise)
 
 
-def _subsample(f, m):
+def subsample(f, m):
     """Every m-th point of a field: the field of an m times coarser step on the same grid."""
     from dic.field import DisplacementField
 
@@ -115,7 +115,7 @@ def _full_window(strain, window):
     return strain.valid & (strain.n_used >= window * window)
 
 
-def _wave_geometry(scene, lo, hi):
+def wave_geometry(scene, lo, hi):
     """Periods per crop column (or row, when transposed) and the zero-phase line."""
     m = scene.mask.T if scene.transposed else scene.mask
     cols = np.flatnonzero(m.any(axis=0))
@@ -125,7 +125,7 @@ def _wave_geometry(scene, lo, hi):
     return x0, x1, lo, hi, yc
 
 
-def _wave_image(scene, geometry, amplitude):
+def scene_wave_image(scene, geometry, amplitude):
     x0, x1, lo, hi, yc = geometry
     img = scene.image.T if scene.transposed else scene.image
     p = wave_periods(np.arange(img.shape[1]), x0, x1, lo, hi)
@@ -133,7 +133,7 @@ def _wave_image(scene, geometry, amplitude):
     return out.T if scene.transposed else out
 
 
-def _crossing(period, ratio, level=_LEVEL):
+def crossing(period, ratio, level=_LEVEL):
     """Period beyond which the measured transfer stays at or above ``level``.
 
     The ratios are sorted by period and smoothed by a running median of five to locate the
@@ -172,7 +172,7 @@ def _crossing(period, ratio, level=_LEVEL):
     return float(math.exp(math.log(period[i]) + t * math.log(period[i + 1] / period[i]))), ""
 
 
-def _wave_response(scene, geometry, amplitude, f, strain, window):
+def wave_response(scene, geometry, amplitude, f, strain, window):
     """Measured/commanded amplitude of the wave's displacement and strain, per grid line."""
     x0, x1, lo, hi, yc = geometry
     if scene.transposed:
@@ -425,7 +425,7 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
 
     _check_settings(subset, step, window)
     measure = canonical_measure(measure)
-    scene = _prepare(image, roi, noise, seed, max_size)
+    scene = prepare_scene(image, roi, noise, seed, max_size)
     sf = str(shape_function).lower()
 
     # 1. rigid shifts
@@ -435,7 +435,7 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     field0 = None
     for i, s in enumerate(shifts):
         dfm = scene.noisy(scene.image if s == 0 else shift_image(scene.image, s, s))
-        f = _correlate(scene, dfm, subset, step, sf, interpolation)
+        f = correlate_scene(scene, dfm, subset, step, sf, interpolation)
         ok = f.valid
         if ok.sum() < 2:
             continue
@@ -444,7 +444,7 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
         if field0 is None and s == 0:
             field0 = f
     if field0 is None:
-        field0 = _correlate(scene, scene.noisy(scene.image), subset, step, sf, interpolation)
+        field0 = correlate_scene(scene, scene.noisy(scene.image), subset, step, sf, interpolation)
     ok0 = field0.valid
     if ok0.sum() < 2:
         raise ValueError("no point could be measured on the image with these settings; check "
@@ -461,7 +461,7 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     exx, eyy = (float(a) for a in stretch)
     rows, cols = scene.image.shape
     centre = ((cols - 1) / 2.0, (rows - 1) / 2.0)
-    fs = _correlate(scene, scene.noisy(stretch_image(scene.image, exx, eyy, centre)), subset,
+    fs = correlate_scene(scene, scene.noisy(stretch_image(scene.image, exx, eyy, centre)), subset,
                     step, sf, interpolation)
     es = strain_field(fs, window=window, measure=measure)
     Fx = np.diag([1.0 + exx, 1.0 + eyy])
@@ -486,13 +486,13 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     th_e = attenuation_period(lambda p: strain_transfer(p, subset, step, window, sf))
     lo = max(_PERIOD_SPAN[0] * th_u, 2.0 * math.pi * abs(amplitude) / 0.5)
     hi = max(_PERIOD_SPAN[1] * th_e, 2.0 * lo)
-    geom = _wave_geometry(scene, lo, hi)
-    fw = _correlate(scene, scene.noisy(_wave_image(scene, geom, amplitude)), subset, step, sf,
+    geom = wave_geometry(scene, lo, hi)
+    fw = correlate_scene(scene, scene.noisy(scene_wave_image(scene, geom, amplitude)), subset, step, sf,
                     interpolation)
     ew = strain_field(fw, window=window, measure="infinitesimal")
-    periods, ru, re = _wave_response(scene, geom, amplitude, fw, ew, window)
-    res_u, flag_u = _crossing(periods, ru)
-    res_e, flag_e = _crossing(periods, re)
+    periods, ru, re = wave_response(scene, geom, amplitude, fw, ew, window)
+    res_u, flag_u = crossing(periods, ru)
+    res_e, flag_e = crossing(periods, re)
 
     n_u = math.sqrt(0.5 * (disp_noise[0] ** 2 + disp_noise[1] ** 2))
     n_e = math.sqrt(0.5 * (strain_noise["xx"] ** 2 + strain_noise["yy"] ** 2))

@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from dic.figures import plot
-from dic._version import __version__
+from dic import __version__
 from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]

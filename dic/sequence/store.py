@@ -124,7 +124,7 @@ from pathlib import Path
 
 import numpy as np
 
-from dic._version import __version__
+from dic import __version__
 from dic.field import DisplacementField, Reason
 
 __all__ = ["FORMAT", "FORMAT_VERSION", "Results", "ResultsWriter", "open_for_writing",

@@ -323,11 +323,11 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
     # the grid of points, as dic.correlate lays it out (no matching needed for that), after
     # the same checks of the options that dic.correlate makes
-    from dic.matching import _check_options, prepare_grid
+    from dic.matching import check_options, prepare_grid
 
-    _check_options(subset, step, shape_function, interpolation, search, min_zncc, 50, 3e-3,
+    check_options(subset, step, shape_function, interpolation, search, min_zncc, 50, 3e-3,
                    0.02)
-    from dic.matching._icgn import INTERPOLATIONS, edge_margin
+    from dic.matching import INTERPOLATIONS, edge_margin
 
     xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
                           edge_margin(INTERPOLATIONS[settings.interpolation]))[:2]

@@ -24,6 +24,8 @@ from typing import NamedTuple
 
 import numpy as np
 
+from dic.errors import TooFewPoints
+
 __all__ = ["displacement_gradient", "default_min_points", "GradientFit", "FITS"]
 
 #: fit names and their monomials (power of the x offset, power of the y offset)
@@ -234,7 +236,7 @@ def displacement_gradient(field, *, window: int = 9, fit: str = "plane",
     w = valid_in & np.isfinite(u) & np.isfinite(v)
     n_good = int(np.count_nonzero(w))
     if n_good < min_points:
-        raise ValueError(f"field has only {n_good} valid points, fewer than min_points="
+        raise TooFewPoints(f"field has only {n_good} valid points, fewer than min_points="
                          f"{min_points}; use a field with more measured points or a smaller "
                          "window")
     sx, sy = _grid_spacing(x, y)

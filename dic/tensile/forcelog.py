@@ -138,7 +138,7 @@ class Table:
         ok = np.ones(len(self.rows), dtype=bool)
         for r, (row, line) in enumerate(zip(self.rows, self.line_numbers)):
             text = row[index] if index < len(row) else ""
-            value = _to_float(text, self.decimal)
+            value = to_float(text, self.decimal)
             if value is None or not math.isfinite(value):
                 if skip_bad_rows:
                     ok[r] = False
@@ -155,7 +155,7 @@ def _norm(name) -> str:
     return " ".join(str(name).strip().strip('"').strip("'").split()).casefold()
 
 
-def _to_float(text, decimal):
+def to_float(text, decimal):
     t = text.strip().strip('"').strip("'")
     if decimal == ",":
         if "." in t:
@@ -267,7 +267,7 @@ def read_table(path, *, what="path", want=(), delimiter=None, decimal=None,
                          "delimiter=';' (or the file's own)")
 
     def pattern(row):
-        return tuple(f != "" and _to_float(f, decimal) is not None for f in row)
+        return tuple(f != "" and to_float(f, decimal) is not None for f in row)
 
     counts = [len(r) for r in split]
     width = max(set(counts), key=counts.count)

@@ -138,9 +138,9 @@ def read_frame_times(path, *, names=None, time_column=None, file_column=None, ti
 
 
 def _num_or_none(row, j, decimal):
-    from dic.tensile.forcelog import _to_float
+    from dic.tensile.forcelog import to_float
 
-    return j < len(row) and _to_float(row[j], decimal) is not None
+    return j < len(row) and to_float(row[j], decimal) is not None
 
 
 def _base(name) -> str:

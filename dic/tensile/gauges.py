@@ -43,6 +43,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from dic.errors import InputError, TooFewPoints
 from dic.field import DisplacementField
 from dic.tensile.histories import CAUTION, History
 
@@ -468,10 +469,8 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
                 continue
             try:
                 s = strain_field(f, window=window, measure=measure)
-            except ValueError as exc:
-                if "fewer valid points" in str(exc):
-                    continue  # too little measured in this frame: leave NaN
-                raise
+            except TooFewPoints:
+                continue  # too little measured in this frame: leave NaN
             vsg = s.vsg
             for g in areas:
                 m = area_mask[g.name] & s.valid
@@ -595,8 +594,9 @@ def axial_line(source, gauge_length, *, units="mm", axis="auto", name="axial",
     Parameters
     ----------
     source : Results, DisplacementField or list of them
-    gauge_length : float
-        In ``units``.
+    gauge_length : float or None
+        In ``units``; None takes 80 % of the length measured along the axis through the centre
+        of the region of interest.
     units : {"mm", "px"}
     axis : {"auto", "x", "y"}
         Specimen axis; ``"auto"`` takes the direction of the larger mean normal strain in the
@@ -617,8 +617,18 @@ def axial_line(source, gauge_length, *, units="mm", axis="auto", name="axial",
     src = _Frames(source, scale)
     ax = _resolve_axis(src, axis)
     x0, x1, y0, y1 = _roi_box(src)
-    half = 0.5 * _length_px(gauge_length, units, src.scale, name)
-    line = _line(0.5 * (x0 + x1), 0.5 * (y0 + y1), half, ax, units, src.scale, name)
+    cx, cy = 0.5 * (x0 + x1), 0.5 * (y0 + y1)
+    if gauge_length is None:
+        # 80 % of the length measured along the axis through the centre of the ROI
+        along, through = (cx, cy) if ax == "x" else (cy, cx)
+        lo, hi = _measured_span(src, ax, through)
+        half = 0.8 * min(along - lo, hi - along)
+        if not half > 0:
+            raise InputError(f"{name}: the region of interest is not measured around its "
+                             "centre; give the gauge length")
+    else:
+        half = 0.5 * _length_px(gauge_length, units, src.scale, name)
+    line = _line(cx, cy, half, ax, units, src.scale, name)
     _check_points(src, line.points_px(src.scale), name)
     return line
 

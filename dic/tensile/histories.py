@@ -12,7 +12,7 @@ from pathlib import Path
 
 import numpy as np
 
-from dic._version import __version__
+from dic import __version__
 
 __all__ = ["History", "CAUTION"]
 

@@ -21,7 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from dic.tensile import fits
-from dic._version import __version__
+from dic import __version__
 from dic.tensile.histories import CAUTION
 
 __all__ = ["tensile_results", "TensileResults", "Value", "engineering_stress",

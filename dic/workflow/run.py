@@ -6,47 +6,43 @@ command takes a test from images to a report.
 
 from __future__ import annotations
 
-import argparse
 import logging
 from pathlib import Path
 
-__all__ = ["finish", "tensile_namespace"]
+__all__ = ["finish", "tensile_outputs", "settings_self_check"]
 
 log = logging.getLogger(__name__)
 
 
-def tensile_namespace(t: dict, results_path, out_dir) -> argparse.Namespace:
-    """The ``dic tensile`` options from the ``[tensile]`` table of an analysis file."""
-    missing = [k for k in ("force_log", "time_column", "force_column") if k not in t]
-    if missing:
-        raise ValueError(f"[tensile] needs {', '.join(missing)} (the force log and its time "
-                         f"and force columns)")
+def tensile_outputs(results_path, setup, out_dir=None):
+    """Tensile results with their tables and the stress-strain figure.
 
-    def pair(key):
-        v = t.get(key)
-        if v is None:
-            return None
-        if len(v) != 2:
-            raise ValueError(f"tensile.{key} must be two numbers [low, high]")
-        return (float(v[0]), float(v[1]))
+    Parameters
+    ----------
+    results_path : path
+        Complete results file.
+    setup : dic.tensile.workflow.TensileSetup
+    out_dir : path, optional
+        Output folder (default: the results file's folder).
 
-    return argparse.Namespace(
-        results=Path(results_path), force_log=Path(t["force_log"]),
-        time_column=t["time_column"], force_column=t["force_column"],
-        crosshead_column=t.get("crosshead_column"), force_unit=t.get("force_unit", "N"),
-        time_unit=t.get("time_unit", "s"), crosshead_unit="mm", delimiter=None, decimal=None,
-        skip_bad_rows=False,
-        frame_times=Path(t["frame_times"]) if "frame_times" in t else None,
-        frame_interval=t.get("frame_interval"), image_metadata=False, by_index=False,
-        trigger_offset=float(t.get("trigger_offset", 0.0)),
-        width=t.get("width_mm"), thickness=t.get("thickness_mm"), area=t.get("area_mm2"),
-        gauge_length=t.get("gauge_length_mm"), transverse_length=t.get("transverse_length_mm"),
-        axis="auto", scale=None, modulus_range=pair("modulus_range_mpa"),
-        offsets=[float(v) for v in t.get("offsets_percent", [0.2])],
-        n_range=pair("n_range_percent"), out=Path(out_dir))
+    Returns
+    -------
+    dic.tensile.workflow.TensileOutcome
+        With ``files["stress_strain"]`` added.
+    """
+    from dic.figures.plot import save_figure
+    from dic.figures.tensile_plot import stress_strain_figure
+    from dic.tensile.workflow import tensile_from_results
+
+    outcome = tensile_from_results(results_path, setup, out_dir)
+    fig, _ = stress_strain_figure(outcome.results)
+    target = outcome.folder / "stress_strain.png"
+    save_figure(fig, target)
+    outcome.files["stress_strain"] = target
+    return outcome
 
 
-def _self_check(results_path, strain: dict):
+def settings_self_check(results_path, strain: dict):
     """The self-check of the analysis settings on its own reference image (None if that image
     is not among the analysed files or is no longer readable)."""
     from dic.images.io import read_image
@@ -124,11 +120,12 @@ def finish(results_path, out_dir, settings: dict) -> dict:
     written: dict = {}
     hist = tens = None
     if settings.get("tensile"):
-        from dic.cli.tensile import compute
+        from dic.tensile.workflow import TensileSetup
 
-        hist, tens, folder = compute(tensile_namespace(settings["tensile"], results_path,
-                                                       out_dir))
-        written["tensile"] = folder / "tensile.json"
+        outcome = tensile_outputs(results_path, TensileSetup.from_table(settings["tensile"]),
+                                  out_dir)
+        hist, tens = outcome.history, outcome.results
+        written["tensile"] = outcome.folder / "tensile.json"
         written["tensile_results"] = tens
     rep = settings.get("report", {})
     if rep.get("write", True):
@@ -136,7 +133,7 @@ def finish(results_path, out_dir, settings: dict) -> dict:
 
         strain = settings.get("strain") or {}
         frames = rep.get("frames")
-        check = _self_check(results_path, strain)
+        check = settings_self_check(results_path, strain)
         metrology = [m for m in (check, _noise_floor(results_path, out_dir, settings, written))
                      if m is not None]
         if check is not None:

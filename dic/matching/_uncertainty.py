@@ -174,7 +174,7 @@ def predicted_sigma(image, subset, noise, *, points=None, step=None, shape_funct
     .. [1] B. Pan, H. Xie, Z. Wang, K. Qian, Z. Wang, Opt. Express 16 (2008) 7037-7048.
     """
     from dic.images import interp
-    from dic.matching import prepare_grid
+    from dic.matching._grid import prepare_grid
     from dic.matching._icgn import INTERPOLATIONS, SHAPE_FUNCTIONS, edge_margin
 
     img = np.asarray(image, dtype=np.float64)
