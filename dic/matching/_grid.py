@@ -5,6 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from dic.errors import RegionTooSmall
+
 from dic.matching._icgn import INTERPOLATIONS, SHAPE_FUNCTIONS, edge_margin
 
 __all__ = ["check_int", "check_options", "prepare_grid"]
@@ -77,7 +79,7 @@ def prepare_grid(shape, roi, subset, step, border=0):
     xs = np.arange(x0 + half, x1 - half + 1, step, dtype=np.int64)
     ys = np.arange(y0 + half, y1 - half + 1, step, dtype=np.int64)
     if xs.size == 0 or ys.size == 0:
-        raise ValueError(f"roi is too small for subset {subset} px (its bounding box is "
+        raise RegionTooSmall(f"roi is too small for subset {subset} px (its bounding box is "
                          f"{x1 - x0 + 1} x {y1 - y0 + 1} px); enlarge the ROI or use a smaller "
                          f"subset")
     rows, cols = shape
@@ -90,6 +92,6 @@ def prepare_grid(shape, roi, subset, step, border=0):
     else:
         candidate = erode_for_subset(mask, subset)[np.ix_(ys, xs)] & in_image
     if not candidate.any():
-        raise ValueError(f"roi holds no point whose {subset} px subset fits inside it; enlarge "
+        raise RegionTooSmall(f"roi holds no point whose {subset} px subset fits inside it; enlarge "
                          f"the ROI or use a smaller subset")
     return xs, ys, candidate, mask, in_image

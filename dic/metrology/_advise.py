@@ -8,6 +8,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from dic.errors import RegionTooSmall, TooFewPoints
+
 from dic.metrology._selfcheck import (AMPLITUDE, MAX_SIZE, correlate_scene, crossing,
                                       prepare_scene, scene_wave_image, subsample,
                                       wave_geometry, wave_response)
@@ -257,7 +259,7 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
         try:
             fs0 = correlate_scene(scene, static, s, base, sf, interpolation)
             fw0 = correlate_scene(scene, wave, s, base, sf, interpolation)
-        except ValueError:
+        except RegionTooSmall:
             continue                                   # the ROI is too small for this subset
         for st in plan[s]:
             m = st // base
@@ -270,7 +272,7 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
                 try:
                     es = strain_field(fs, window=w, measure=measure)
                     ew = strain_field(fw, window=w, measure="infinitesimal")
-                except ValueError:
+                except (RegionTooSmall, TooFewPoints):
                     continue                           # too few points for this window
                 v = es.valid
                 if v.sum() < 10 or np.count_nonzero(es.n_used >= w * w) < 10:

@@ -7,6 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from dic.errors import RegionTooSmall
+
 __all__ = ["pattern_quality", "PatternQuality", "speckle_size", "mean_intensity_gradient",
            "sssig_maps", "CANDIDATE_SUBSETS"]
 
@@ -398,7 +400,7 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
                 if np.isfinite(su).any():
                     val = (float(np.sqrt(np.nanmean(su ** 2))),
                            float(np.sqrt(np.nanmean(sv ** 2))))
-            except ValueError:
+            except RegionTooSmall:
                 pass                               # the ROI is too small for this subset
         predicted[s] = val
 

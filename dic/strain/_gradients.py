@@ -24,7 +24,7 @@ from typing import NamedTuple
 
 import numpy as np
 
-from dic.errors import TooFewPoints
+from dic.errors import RegionTooSmall, TooFewPoints
 
 __all__ = ["displacement_gradient", "default_min_points", "GradientFit", "FITS"]
 
@@ -91,7 +91,7 @@ def _check_window(window, shape) -> int:
         fix = "use 3" if window < 3 else f"use {window - 1} or {window + 1}"
         raise ValueError(f"window must be an odd integer >= 3 (got {window}); {fix}")
     if window > min(shape):
-        raise ValueError(f"window={window} is larger than the grid of points {shape}; use a "
+        raise RegionTooSmall(f"window={window} is larger than the grid of points {shape}; use a "
                          f"window of at most {min(shape) - (1 - min(shape) % 2)} points")
     return window
 

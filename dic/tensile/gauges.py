@@ -373,7 +373,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
     -------
     History
         Columns ``NAME.length`` (mm, or px without a scale), ``NAME.engineering``,
-        ``NAME.true`` and ``NAME.green_lagrange`` for lines; ``NAME.COMP.mean|std|min|max``
+        ``NAME.hencky`` (true strain) and ``NAME.green-lagrange`` for lines; ``NAME.COMP.mean|std|min|max``
         and ``NAME.n`` for areas; ``NAME.COMP`` for every component in
         :data:`PROBE_COMPONENTS` for probes.
 
@@ -433,8 +433,8 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
     lscale = src.scale or 1.0
     cols, units = {}, {}
     for g in lines:
-        for q, u in (("length", length_unit), ("engineering", "mm/mm"), ("true", "mm/mm"),
-                     ("green_lagrange", "mm/mm")):
+        for q, u in (("length", length_unit), ("engineering", "mm/mm"), ("hencky", "mm/mm"),
+                     ("green-lagrange", "mm/mm")):
             cols[f"{g.name}.{q}"] = np.full(ks.size, np.nan)
             units[f"{g.name}.{q}"] = u
     for g in areas:
@@ -460,8 +460,8 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
             lam = L / L0
             cols[f"{g.name}.length"][row] = L * lscale
             cols[f"{g.name}.engineering"][row] = lam - 1.0
-            cols[f"{g.name}.true"][row] = math.log(lam) if lam > 0 else math.nan
-            cols[f"{g.name}.green_lagrange"][row] = 0.5 * (lam * lam - 1.0)
+            cols[f"{g.name}.hencky"][row] = math.log(lam) if lam > 0 else math.nan
+            cols[f"{g.name}.green-lagrange"][row] = 0.5 * (lam * lam - 1.0)
         if areas or probes:
             from dic.strain import strain_field
 
@@ -492,7 +492,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
     if lines:
         notes.append("gauge lines: end points follow the tracked displacements (bilinear blend "
                      "of the grid points' half-step Taylor expansions; exact for quadratic "
-                     "fields); engineering = L/L0 - 1, true = ln(L/L0), green_lagrange = "
+                     "fields); engineering = L/L0 - 1, hencky (true strain) = ln(L/L0), green-lagrange = "
                      "((L/L0)^2 - 1)/2")
     if areas or probes:
         from dic.strain import canonical_measure
@@ -756,16 +756,23 @@ def poisson_ratio(history: History, axial="axial", transverse="transverse",
     history : History
     axial, transverse : str
         Gauge line names.
-    quantity : {"engineering", "true", "green_lagrange"}
+    quantity : {"engineering", "hencky", "green-lagrange"}
+        A strain measure of the gauge lines (aliases such as ``"true"`` are accepted).
 
     Returns
     -------
     ndarray
         NaN where the axial strain is zero or unknown.
     """
-    if quantity not in ("engineering", "true", "green_lagrange"):
-        raise ValueError(f"quantity: use 'engineering', 'true' or 'green_lagrange', got "
-                         f"{quantity!r}")
+    from dic.strain import canonical_measure
+
+    try:
+        quantity = canonical_measure(quantity)
+    except ValueError:
+        quantity = None
+    if quantity not in ("engineering", "hencky", "green-lagrange"):
+        raise InputError("quantity: use 'engineering', 'hencky' (true strain) or "
+                         "'green-lagrange'")
     a = history[f"{axial}.{quantity}"]
     t = history[f"{transverse}.{quantity}"]
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -57,10 +57,20 @@ class History:
     def __getitem__(self, name) -> np.ndarray:
         if name in ("frame", "time", "force"):
             return getattr(self, name)
-        try:
+        if name in self.columns:
             return self.columns[name]
-        except KeyError:
-            raise KeyError(f"no column {name!r}; columns: {', '.join(self.columns)}") from None
+        # a strain measure may be named by any of its aliases ("axial.true", "axial.log")
+        head, _, measure = str(name).rpartition(".")
+        if head:
+            from dic.strain import canonical_measure
+
+            try:
+                key = f"{head}.{canonical_measure(measure)}"
+            except ValueError:
+                key = None
+            if key in self.columns:
+                return self.columns[key]
+        raise KeyError(f"no column {name!r}; columns: {', '.join(self.columns)}")
 
     @property
     def names(self) -> list[str]:
