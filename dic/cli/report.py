@@ -208,7 +208,7 @@ def run_report(args) -> int:
 
 def run_export(args) -> int:
     """Run ``dic export``: write CSV, NPZ or VTK files; returns 0."""
-    from dic.export import EXPORT_FORMATS, _check_components, export_results
+    from dic.export import EXPORT_FORMATS, check_components, export_results
     from dic.strain import canonical_measure
 
     fmt = str(args.format).strip().lower()
@@ -219,7 +219,7 @@ def run_export(args) -> int:
     window = _check_window(args.window)
     measure = canonical_measure(args.measure)
     try:
-        components = _check_components(args.components)
+        components = check_components(args.components)
     except ValueError as exc:
         raise _as_option(exc) from None
     out = Path(args.out) if args.out is not None else results.parent / _EXPORT_FOLDER

@@ -233,7 +233,7 @@ def compute(args):
     results.to_json(folder / "tensile.json")
     results.to_csv(folder / "tensile.csv")
     fig, _ = results.plot()
-    from dic.figures.plot import save_figure
+    from dic.figures import save_figure
 
     save_figure(fig, folder / "stress_strain.png")
     return hist, results, folder

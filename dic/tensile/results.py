@@ -280,7 +280,7 @@ class TensileResults:
         -------
         fig, ax
         """
-        from dic.figures.tensile_plot import stress_strain_figure
+        from dic.figures.lines import stress_strain_figure
 
         return stress_strain_figure(self, ax=ax, strain_unit=strain_unit)
 
