@@ -232,9 +232,9 @@ def compute(args):
                          f"{sync.method}; area {area:g} mm^2")
     results.to_json(folder / "tensile.json")
     results.to_csv(folder / "tensile.csv")
-    fig, _ = results.plot()
-    from dic.figures import save_figure
+    from dic.figures import save_figure, stress_strain_figure
 
+    fig, _ = stress_strain_figure(results)
     save_figure(fig, folder / "stress_strain.png")
     return hist, results, folder
 

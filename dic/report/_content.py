@@ -16,9 +16,10 @@ from dic import __version__
 from dic.figures.common import (MEASURE_TITLES, display_unit, find_image, frame_indices,
                                 limits_from_top, quantity_values, robust_top)
 from dic.figures.layers import gauge_shapes, grid_view
-from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure, valid_counts,
-                               valid_points_plot)
+from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure,
+                               stress_strain_figure, valid_counts, valid_points_plot)
 from dic.figures.maps import measure_comparison, quality_map, strain_map
+from dic.tensile.results import TensileResults
 from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
@@ -335,10 +336,7 @@ def _metrology_items(metrology):
         rows = {k: v for k, v in _flatten(mapping).items() if _is_short(v)}
         fig = getattr(obj, "figure", None)
         if callable(fig) and not isinstance(fig, Figure):
-            try:
-                fig = fig()
-            except TypeError:
-                fig = None
+            fig = fig()  # a metrology result's figure() takes no arguments
         name = type(obj).__name__
         title = "" if isinstance(obj, Mapping) else " ".join(
             re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize()
@@ -529,24 +527,32 @@ def _tensile_content(tensile):
 
 
 def _tensile_figure(tensile):
+    """The stress-strain figure of the tensile input; None when the input carries no curve.
+
+    A :class:`~dic.tensile.results.TensileResults` is drawn with
+    :func:`~dic.figures.lines.stress_strain_figure`; another object gives its ``figure``
+    (a Figure, or a method that takes no arguments and returns one); a plain mapping of values
+    has none.
+    """
     from matplotlib.figure import Figure
 
     if isinstance(tensile, Figure):
         return tensile
-    for attr in ("figure", "stress_strain_figure", "plot_stress_strain", "plot"):
-        obj = getattr(tensile, attr, None)
-        if obj is None:
-            continue
-        if callable(obj) and not isinstance(obj, Figure):
-            try:
-                obj = obj()
-            except TypeError:  # needs arguments we cannot guess
-                continue
-        if isinstance(obj, tuple) and obj and isinstance(obj[0], Figure):
-            obj = obj[0]
-        if isinstance(obj, Figure):
-            return obj
-    return None
+    if isinstance(tensile, TensileResults):
+        fig, _ = stress_strain_figure(tensile)
+        return fig
+    fig = getattr(tensile, "figure", None)
+    if fig is None:
+        return None
+    if callable(fig) and not isinstance(fig, Figure):
+        fig = fig()
+    if isinstance(fig, tuple) and fig and isinstance(fig[0], Figure):
+        fig = fig[0]
+    if not isinstance(fig, Figure):
+        raise ValueError(f"tensile: its figure is a {type(fig).__name__}, not a matplotlib "
+                         f"Figure; give a Figure (or a figure() method returning one), or "
+                         f"leave it out")
+    return fig
 
 
 def _tensile(tensile):
@@ -574,6 +580,9 @@ def _tensile(tensile):
     if fig is not None:
         blocks.append(_figure(fig, "Stress-strain curve with the fitted lines.",
                               "Stress-strain curve"))
+    else:
+        blocks.append(Paragraph("No stress-strain curve is drawn: the tensile input gives "
+                                "values only, without the measured curve.", "note"))
     return blocks
 
 
