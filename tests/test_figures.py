@@ -100,7 +100,7 @@ def test_rendered_map_shows_no_colour_where_not_measured(run, configuration):
     grey[0, 0], grey[0, 1] = 0.0, 1.0
     alpha = 0.7
     fig, ax = figures.strain_map(s, grey, component="xx", field=f, configuration=configuration,
-                              alpha=alpha, colorbar=False, title="", figsize=(8, 5))
+                                 alpha=alpha, colorbar=False, title="", figsize=(8, 5))
     fig.set_dpi(100)
     rgb = _render(fig)
     mappable = _by_gid(ax, "strain")[0]
@@ -222,8 +222,9 @@ def test_measure_comparison_of_a_uniaxial_stretch():
 def test_deformed_cells_follow_the_displacement():
     f = _stretch_field(hole=False)
     s = dic.strain_field(f, window=3)
-    fig, ax = figures.strain_map(s, component="xx", field=f, configuration="deformed",
-                              gauges=[{"points": [(20.0, 30.0), (80.0, 30.0)], "label": "L"}])
+    fig, ax = figures.strain_map(
+        s, component="xx", field=f, configuration="deformed",
+        gauges=[{"points": [(20.0, 30.0), (80.0, 30.0)], "label": "L"}])
     mesh = _by_gid(ax, "strain")[0]
     corners = mesh.get_coordinates()  # (ny + 1, nx + 1, 2)
     # interior corners sit midway between grid points (X = 15, 25, ...); a corner moves with
@@ -244,8 +245,8 @@ def test_contours_gauges_and_scale_bar(run):
     s = res.strain(len(res) - 1, window=5)
     poly = [(40, 30), (120, 30), (120, 70), (40, 70)]
     fig, ax = figures.strain_map(s, component="xx", contours=4, scale=SCALE,
-                              gauges=[([(20, 48), (140, 48)], "L0"),
-                                      {"points": poly, "label": "area"}])
+                                 gauges=[([(20, 48), (140, 48)], "L0"),
+                                         {"points": poly, "label": "area"}])
     (cs,) = _by_gid(ax, "contours")
     data = s.xx[s.valid] * 100.0
     assert all(data.min() < lev < data.max() for lev in cs.levels)
@@ -366,7 +367,7 @@ def test_gif_animation(run, tmp_path):
     res, _ = run
     force = np.array([0.0, 1.5, 3.0, np.nan])
     p = figures.animate(res, tmp_path / "xx.gif", window=5, fps=4, force=force,
-                            size=(6, 3.5), dpi=80)
+                        size=(6, 3.5), dpi=80)
     with Image.open(p) as im:  # read back with Pillow
         assert im.n_frames == len(res)
         w, h = im.size
@@ -381,8 +382,8 @@ def test_mp4_animation(run, tmp_path):
 
     res, _ = run
     p = figures.animate(res, tmp_path / "eq.mp4", component="equivalent", window=5,
-                            configuration="deformed", fps=5, size=(6, 3.5), dpi=80,
-                            frames=[1, 2, 3])
+                        configuration="deformed", fps=5, size=(6, 3.5), dpi=80,
+                        frames=[1, 2, 3])
     # decoded by the ffmpeg program itself (imageio-ffmpeg): 3 frames at 5 per second
     n, secs = imageio_ffmpeg.count_frames_and_secs(str(p))
     assert n == 3 and secs == pytest.approx(3 / 5, abs=0.05)
