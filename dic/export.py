@@ -26,9 +26,12 @@ import numpy as np
 
 from dic import __version__
 from dic.field import DisplacementField
+from dic.figures.common import (MEASURE_TITLES, STRAIN_QUANTITIES, frame_indices, open_results,
+                                quantity_values)
 
-__all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "export_results", "field_from_npz", "field_to_csv",
-           "field_to_npz", "frame_to_csv", "results_to_npz", "results_to_vtk"]
+__all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "check_components", "export_results",
+           "field_from_npz", "field_to_csv", "field_to_npz", "frame_to_csv", "out_folder",
+           "results_to_npz", "results_to_vtk"]
 
 #: column names of :func:`field_to_csv`, in order
 CSV_COLUMNS = ("x_px", "y_px", "u_px", "v_px", "dudx", "dudy", "dvdx", "dvdy", "zncc", "reason")
@@ -220,9 +223,23 @@ _TABLE_FMT = "%.9g"
 
 
 def check_components(components):
-    """Checked tuple of strain quantity names (a list or a comma-separated string)."""
-    from dic.figures.plot import STRAIN_QUANTITIES
+    """Checked tuple of strain quantity names (a list or a comma-separated string).
 
+    Parameters
+    ----------
+    components : sequence of str or str
+        Keys of :data:`dic.figures.common.STRAIN_QUANTITIES`, e.g. ``"xx,yy,xy"``.
+
+    Returns
+    -------
+    tuple of str
+        Lower case, each once, in the order given.
+
+    Raises
+    ------
+    ValueError
+        Not names, none, or an unknown one.
+    """
     if isinstance(components, str):
         components = [c for c in components.split(",")]
     try:
@@ -244,15 +261,11 @@ def _column(name):
 
 
 def _strain_columns(strain, components):
-    from dic.figures.plot import _quantity_values
-
-    return {_column(c): _quantity_values(strain, c) for c in components}
+    return {_column(c): quantity_values(strain, c) for c in components}
 
 
 def _open(results):
-    from dic.figures.animate import _open_results
-
-    res, opened = _open_results(results)
+    res, opened = open_results(results)
     if len(res) == 0:
         if opened:
             res.close()
@@ -261,8 +274,28 @@ def _open(results):
     return res, opened
 
 
-def _out_folder(out_dir, what="the exported files"):
-    """Create (if needed) and check a writable output folder; one-line errors."""
+def out_folder(out_dir, what="the exported files"):
+    """Create (if needed) and check a writable output folder; one-line errors.
+
+    Parameters
+    ----------
+    out_dir : str or os.PathLike
+    what : str, optional
+        What goes into the folder, for the error messages.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    FileExistsError
+        ``out_dir`` is a file.
+    PermissionError
+        The folder cannot be written into.
+    OSError
+        The folder cannot be created.
+    """
     p = Path(os.fspath(out_dir))
     if p.exists() and not p.is_dir():
         raise FileExistsError(f"out_dir: '{p}' is a file; give a folder for {what}")
@@ -278,10 +311,8 @@ def _out_folder(out_dir, what="the exported files"):
 
 
 def _strain_note(strain):
-    from dic.figures.plot import _MEASURE_TITLES
-
     vsg = f", VSG {strain.vsg:g} px" if np.isfinite(strain.vsg) else ""
-    return (f"{_MEASURE_TITLES.get(strain.measure, strain.measure)} strain, {strain.fit} fit, "
+    return (f"{MEASURE_TITLES.get(strain.measure, strain.measure)} strain, {strain.fit} fit, "
             f"window {strain.window} points{vsg}; xy is tensor shear (half the engineering "
             f"shear angle); strain as plain numbers (0.01 = 1 %)")
 
@@ -314,8 +345,8 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
     path : str or os.PathLike
         Output file; its folder must exist.
     components : sequence of str or str, optional
-        Strain quantities (see :data:`dic.figures.plot.STRAIN_QUANTITIES`), e.g. ``("xx", "yy", "xy")``
-        or ``"xx,yy,xy"``.
+        Strain quantities (see :data:`dic.figures.common.STRAIN_QUANTITIES`), e.g.
+        ``("xx", "yy", "xy")`` or ``"xx,yy,xy"``.
     window, measure : optional
         As for :func:`dic.strain_field`.
 
@@ -426,11 +457,9 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
     if not p.parent.is_dir():
         raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
                                 f"writing '{p.name}'")
-    from dic.figures.plot import _frame_indices
-
     res, opened = _open(results)
     try:
-        order = _frame_indices(frames, len(res))
+        order = frame_indices(frames, len(res))
         F, (ny, nx) = len(order), res.shape
         try:
             tmp = Path(tempfile.mkdtemp(prefix=".partial-npz-", dir=p.parent))
@@ -557,15 +586,13 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
     .. [1] Kitware, VTK File Formats (VTK User's Guide, "XML File Formats": StructuredGrid,
        Collection), https://docs.vtk.org/en/latest/design_documents/VTKFileFormats.html
     """
-    from dic.figures.plot import _frame_indices
-
     comps = check_components(components)
     if not isinstance(name, str) or not name or any(c in name for c in "/\\\0"):
         raise ValueError(f"name: {name!r} is not a plain file stem; use e.g. 'results'")
     res, opened = _open(results)
     try:
-        order = _frame_indices(frames, len(res))
-        out = _out_folder(out_dir)
+        order = frame_indices(frames, len(res))
+        out = out_folder(out_dir)
         ny, nx = res.shape
         scale = res.scale
         unit = "mm" if scale is not None else "px"
@@ -653,7 +680,6 @@ def export_results(results, out_dir, *, format="csv", frames=None,
     OSError
         Unreadable results file or an output folder that cannot be written.
     """
-    from dic.figures.plot import _frame_indices
     from dic.strain import canonical_measure
 
     fmt = format.strip().lower() if isinstance(format, str) else None
@@ -663,8 +689,8 @@ def export_results(results, out_dir, *, format="csv", frames=None,
     measure = canonical_measure(measure)
     res, opened = _open(results)
     try:
-        order = _frame_indices(frames, len(res))
-        out = _out_folder(out_dir)
+        order = frame_indices(frames, len(res))
+        out = out_folder(out_dir)
         if fmt == "csv":
             return [frame_to_csv(res, k, out / f"frame_{k:04d}.csv", components=comps,
                                  window=window, measure=measure) for k in order]

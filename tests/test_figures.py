@@ -1,4 +1,4 @@
-"""Strain maps, the measure comparison, line plots and animations (dic.figures.plot, dic.figures.animate).
+"""Strain maps, the measure comparison, line plots and animations (dic.figures).
 
 Two kinds of data: a homogeneous stretch built by hand (every strain value known in closed
 form), and a small sequence tracked by dic.track on exact synthetic speckle images with a hole
@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 
 import dic
-import dic.figures.animate
-from dic.figures import plot
+import dic.figures.common
+from dic import figures
 from dic.images import synth
 from dic.field import DisplacementField, Reason
 
@@ -99,13 +99,13 @@ def test_rendered_map_shows_no_colour_where_not_measured(run, configuration):
     grey = np.full(SHAPE, 0.5)
     grey[0, 0], grey[0, 1] = 0.0, 1.0
     alpha = 0.7
-    fig, ax = plot.strain_map(s, grey, component="xx", field=f, configuration=configuration,
-                              alpha=alpha, colorbar=False, title="", figsize=(8, 5))
+    fig, ax = figures.strain_map(s, grey, component="xx", field=f, configuration=configuration,
+                                 alpha=alpha, colorbar=False, title="", figsize=(8, 5))
     fig.set_dpi(100)
     rgb = _render(fig)
     mappable = _by_gid(ax, "strain")[0]
     cmap, norm = mappable.get_cmap(), mappable.norm
-    background = np.array(plot._colormap("gray", False)(0.5)[:3]) * 255
+    background = np.array(dic.figures.common.colormap("gray", False)(0.5)[:3]) * 255
     u = np.where(np.isfinite(f.u), f.u, 0.0) if configuration == "deformed" else 0.0 * f.u
     v = np.where(np.isfinite(f.v), f.v, 0.0) if configuration == "deformed" else 0.0 * f.v
     values = s.xx * 100.0  # shown in % (limits reach 1 %)
@@ -135,7 +135,7 @@ def test_rendered_map_shows_no_colour_where_not_measured(run, configuration):
 def test_unmeasured_points_are_masked_and_transparent(run):
     res, _ = run
     s = res.strain(len(res) - 1, window=5)
-    fig, ax = plot.strain_map(s, component="equivalent")
+    fig, ax = figures.strain_map(s, component="equivalent")
     im = _by_gid(ax, "strain")[0]
     np.testing.assert_array_equal(np.ma.getmaskarray(im.get_array()), ~s.valid)
     # the 'bad' colour is fully transparent (alpha 0), whatever the map's opacity
@@ -149,13 +149,13 @@ def test_signed_components_diverge_about_zero_and_magnitudes_are_uniform(run):
     res, _ = run
     s = res.strain(len(res) - 1, window=5)
     for comp in ("xx", "yy", "xy", "major", "minor", "rotation"):
-        _, ax = plot.strain_map(s, component=comp)
+        _, ax = figures.strain_map(s, component=comp)
         im = _by_gid(ax, "strain")[0]
         # diverging map centred on zero for signed quantities (project rule, DESIGN.md 5)
         assert im.get_cmap().name.startswith("RdBu_r")
         assert im.norm.vmin == -im.norm.vmax
     for comp in ("equivalent", "max_shear", "nonlinear_share"):
-        _, ax = plot.strain_map(s, component=comp)
+        _, ax = figures.strain_map(s, component=comp)
         im = _by_gid(ax, "strain")[0]
         assert im.get_cmap().name.startswith("cividis")
         assert im.norm.vmin == 0.0
@@ -164,13 +164,13 @@ def test_signed_components_diverge_about_zero_and_magnitudes_are_uniform(run):
 def test_units_labels_and_the_tensor_shear_note(run):
     res, _ = run
     s = res.strain(len(res) - 1, window=5)
-    fig, ax = plot.strain_map(s, component="xy", units="microstrain")
+    fig, ax = figures.strain_map(s, component="xy", units="microstrain")
     im = _by_gid(ax, "strain")[0]
     # 1 microstrain = 1e-6 (SI prefix micro, BIPM SI Brochure 9th ed.)
     np.testing.assert_allclose(im.get_array()[s.valid], s.xy[s.valid] * 1e6, rtol=1e-12)
     label = im.colorbar.ax.get_xlabel() + im.colorbar.ax.get_ylabel()
     assert "\u00b5\u03b5" in label and "tensor shear" in label and "Green-Lagrange" in label
-    _, ax = plot.strain_map(s, component="xx", units="%")
+    _, ax = figures.strain_map(s, component="xx", units="%")
     im = _by_gid(ax, "strain")[0]
     np.testing.assert_allclose(im.get_array()[s.valid], s.xx[s.valid] * 100.0, rtol=1e-12)
     assert "(%)" in im.colorbar.ax.get_xlabel() + im.colorbar.ax.get_ylabel()
@@ -178,18 +178,18 @@ def test_units_labels_and_the_tensor_shear_note(run):
 
 def test_strain_limits_are_the_largest_frame_percentile(run):
     res, _ = run
-    lo, hi = plot.strain_limits(res, "xx", window=5)
+    lo, hi = figures.strain_limits(res, "xx", window=5)
     # definition: largest over frames of the 99.5th percentile of |xx| (numpy.percentile)
     want = max(np.percentile(np.abs(res.strain(k, window=5).xx[res.strain(k, window=5).valid]),
                              99.5) for k in range(len(res)))
     assert hi == pytest.approx(want, rel=1e-12) and lo == -hi
-    lo, hi = plot.strain_limits(res, "equivalent", window=5, frames=[1, 2])
+    lo, hi = figures.strain_limits(res, "equivalent", window=5, frames=[1, 2])
     assert lo == 0.0 and hi > 0.0
     # the same from strain fields already computed
     fields = [res.strain(k, window=5) for k in range(len(res))]
-    assert plot.strain_limits(fields, "xx")[1] == pytest.approx(want, rel=1e-12)
+    assert figures.strain_limits(fields, "xx")[1] == pytest.approx(want, rel=1e-12)
     # fixed limits reach the map unchanged (in the display units)
-    _, ax = plot.strain_map(fields[-1], limits=(-0.05, 0.05), units="%")
+    _, ax = figures.strain_map(fields[-1], limits=(-0.05, 0.05), units="%")
     im = _by_gid(ax, "strain")[0]
     assert (im.norm.vmin, im.norm.vmax) == pytest.approx((-5.0, 5.0))
 
@@ -200,7 +200,7 @@ def test_strain_limits_are_the_largest_frame_percentile(run):
 def test_measure_comparison_of_a_uniaxial_stretch():
     f = _stretch_field(hole=False)
     s = dic.strain_field(f, window=3)
-    fig = plot.measure_comparison(s, component="xx")
+    fig = figures.measure_comparison(s, component="xx")
     maps = [m for ax in fig.get_axes() for m in _by_gid(ax, "strain")]
     assert len(maps) == 4
     gl, inf, hen, share = maps
@@ -222,8 +222,9 @@ def test_measure_comparison_of_a_uniaxial_stretch():
 def test_deformed_cells_follow_the_displacement():
     f = _stretch_field(hole=False)
     s = dic.strain_field(f, window=3)
-    fig, ax = plot.strain_map(s, component="xx", field=f, configuration="deformed",
-                              gauges=[{"points": [(20.0, 30.0), (80.0, 30.0)], "label": "L"}])
+    fig, ax = figures.strain_map(
+        s, component="xx", field=f, configuration="deformed",
+        gauges=[{"points": [(20.0, 30.0), (80.0, 30.0)], "label": "L"}])
     mesh = _by_gid(ax, "strain")[0]
     corners = mesh.get_coordinates()  # (ny + 1, nx + 1, 2)
     # interior corners sit midway between grid points (X = 15, 25, ...); a corner moves with
@@ -243,9 +244,9 @@ def test_contours_gauges_and_scale_bar(run):
     res, _ = run
     s = res.strain(len(res) - 1, window=5)
     poly = [(40, 30), (120, 30), (120, 70), (40, 70)]
-    fig, ax = plot.strain_map(s, component="xx", contours=4, scale=SCALE,
-                              gauges=[([(20, 48), (140, 48)], "L0"),
-                                      {"points": poly, "label": "area"}])
+    fig, ax = figures.strain_map(s, component="xx", contours=4, scale=SCALE,
+                                 gauges=[([(20, 48), (140, 48)], "L0"),
+                                         {"points": poly, "label": "area"}])
     (cs,) = _by_gid(ax, "contours")
     data = s.xx[s.valid] * 100.0
     assert all(data.min() < lev < data.max() for lev in cs.levels)
@@ -262,7 +263,7 @@ def test_contours_gauges_and_scale_bar(run):
     rect = [r for r in bar.findobj(lambda a: type(a).__name__ == "Rectangle")
             if r.get_width() > 1][0]
     assert rect.get_width() == pytest.approx(1.0 / SCALE)
-    _, ax = plot.strain_map(s, component="xx")
+    _, ax = figures.strain_map(s, component="xx")
     assert not _by_gid(ax, "scale_bar")
 
 
@@ -272,29 +273,29 @@ def test_contours_gauges_and_scale_bar(run):
 def test_quality_map_and_valid_point_counts(run):
     res, paths = run
     f = res.field(len(res) - 1)
-    fig, ax = plot.quality_map(f, dic.images.io.read_image(paths[0]), scale=SCALE)
+    fig, ax = figures.quality_map(f, dic.images.io.read_image(paths[0]), scale=SCALE)
     (im,) = _by_gid(ax, "zncc")
     np.testing.assert_array_equal(np.ma.getmaskarray(im.get_array()), ~f.valid)
     assert im.get_cmap().name.startswith("cividis") and im.norm.vmax == 1.0
-    counts, total, median = plot.valid_counts(res)
+    counts, total, median = figures.valid_counts(res)
     for k in range(len(res)):
         fk = res.field(k)
         # counted independently: reason code 0 means measured (dic.field.Reason)
         assert counts[k] == np.count_nonzero(fk.reason == 0)
         assert median[k] == pytest.approx(np.median(fk.zncc[fk.reason == 0]))
     assert total == np.count_nonzero(res.field(0).reason != Reason.OUTSIDE_ROI)
-    fig = plot.valid_points_plot(res)
+    fig = figures.valid_points_plot(res)
     ax = fig.get_axes()[0]
     np.testing.assert_array_equal(ax.get_lines()[0].get_ydata(), counts)
 
 
-def test_gauge_histories_and_stress_strain_plot():
+def test_history_figure_and_curve_figure():
     n = 6
     g1 = SimpleNamespace(name="L0", frames=np.arange(n), values=np.linspace(0, 0.05, n),
                          unit="strain")
     g2 = SimpleNamespace(name="force", frames=np.arange(n), values=np.linspace(0, 9, n),
                          unit="kN")
-    fig = plot.gauge_histories([g1, g2], times=2.0 * np.arange(n))
+    fig = figures.history_figure([g1, g2], times=2.0 * np.arange(n))
     axes = fig.get_axes()
     assert len(axes) == 2  # one panel per unit
     # plain strain numbers shown in % (x 100), x axis the image times
@@ -302,12 +303,12 @@ def test_gauge_histories_and_stress_strain_plot():
     np.testing.assert_allclose(axes[0].get_lines()[0].get_xdata(), 2.0 * np.arange(n))
     assert axes[0].get_ylabel() == "strain (%)" and axes[1].get_ylabel() == "kN"
     with pytest.raises(ValueError, match="one value per frame"):
-        plot.gauge_histories([SimpleNamespace(name="x", frames=[0, 1], values=[0.0])])
+        figures.history_figure([SimpleNamespace(name="x", frames=[0, 1], values=[0.0])])
     with pytest.raises(ValueError, match="none given"):
-        plot.gauge_histories([])
+        figures.history_figure([])
     e = np.linspace(0, 0.1, 20)
-    fig = plot.stress_strain_plot(e, 300 * np.sqrt(e), lines=[("E", [0, 0.005], [0, 340])],
-                                  points=[("Rm", 0.1, 95.0)])
+    fig = figures.curve_figure(e, 300 * np.sqrt(e), lines=[("E", [0, 0.005], [0, 340])],
+                               points=[("Rm", 0.1, 95.0)])
     ax = fig.get_axes()[0]
     np.testing.assert_allclose(ax.get_lines()[0].get_xdata(), 100 * e)  # strain in %
     assert ax.get_xlabel() == "strain (%)" and ax.get_ylabel() == "stress (MPa)"
@@ -315,18 +316,18 @@ def test_gauge_histories_and_stress_strain_plot():
 
 def test_save_figure_sizes_and_formats(run, tmp_path):
     res, _ = run
-    fig, _ = plot.strain_map(res.strain(1, window=5))
-    png = plot.save_figure(fig, tmp_path / "m.png", dpi=50, size=(4, 3))
+    fig, _ = figures.strain_map(res.strain(1, window=5))
+    png = figures.save_figure(fig, tmp_path / "m.png", dpi=50, size=(4, 3))
     from PIL import Image
 
     with Image.open(png) as im:  # Pillow reads the PNG header: 4 x 3 in at 50 dpi
         assert im.size == (200, 150)
-    svg = plot.save_figure(fig, tmp_path / "m.svg")
+    svg = figures.save_figure(fig, tmp_path / "m.svg")
     assert ET.parse(svg).getroot().tag.endswith("svg")  # well-formed XML (W3C SVG)
-    pdf = plot.save_figure(fig, tmp_path / "m.pdf")
+    pdf = figures.save_figure(fig, tmp_path / "m.pdf")
     assert pdf.read_bytes()[:5] == b"%PDF-"  # ISO 32000 file header
     with pytest.raises(ValueError, match="size"):
-        plot.save_figure(fig, tmp_path / "m.png", size=(0, 3))
+        figures.save_figure(fig, tmp_path / "m.png", size=(0, 3))
 
 
 @pytest.mark.parametrize("kwargs, words", [
@@ -344,17 +345,17 @@ def test_strain_map_bad_input(run, kwargs, words):
     res, _ = run
     s = res.strain(1, window=5)
     with pytest.raises(ValueError, match=words):
-        plot.strain_map(s, **kwargs)
+        figures.strain_map(s, **kwargs)
 
 
 def test_zz_needs_an_estimate_and_strain_must_be_a_strain_field(run):
     res, _ = run
     with pytest.raises(ValueError, match="out_of_plane"):
-        plot.strain_map(res.strain(1, window=5), component="zz")
+        figures.strain_map(res.strain(1, window=5), component="zz")
     with pytest.raises(ValueError, match="StrainField"):
-        plot.strain_map(res.field(1))
+        figures.strain_map(res.field(1))
     with pytest.raises(ValueError, match="frame 9 does not exist"):
-        plot.strain_limits(res, frames=[9])
+        figures.strain_limits(res, frames=[9])
 
 
 # --------------------------------------------------------------------------------------------
@@ -365,8 +366,8 @@ def test_gif_animation(run, tmp_path):
 
     res, _ = run
     force = np.array([0.0, 1.5, 3.0, np.nan])
-    p = dic.figures.animate.animate(res, tmp_path / "xx.gif", window=5, fps=4, force=force,
-                            size=(6, 3.5), dpi=80)
+    p = figures.animate(res, tmp_path / "xx.gif", window=5, fps=4, force=force,
+                        size=(6, 3.5), dpi=80)
     with Image.open(p) as im:  # read back with Pillow
         assert im.n_frames == len(res)
         w, h = im.size
@@ -380,9 +381,9 @@ def test_mp4_animation(run, tmp_path):
     import imageio_ffmpeg
 
     res, _ = run
-    p = dic.figures.animate.animate(res, tmp_path / "eq.mp4", component="equivalent", window=5,
-                            configuration="deformed", fps=5, size=(6, 3.5), dpi=80,
-                            frames=[1, 2, 3])
+    p = figures.animate(res, tmp_path / "eq.mp4", component="equivalent", window=5,
+                        configuration="deformed", fps=5, size=(6, 3.5), dpi=80,
+                        frames=[1, 2, 3])
     # decoded by the ffmpeg program itself (imageio-ffmpeg): 3 frames at 5 per second
     n, secs = imageio_ffmpeg.count_frames_and_secs(str(p))
     assert n == 3 and secs == pytest.approx(3 / 5, abs=0.05)
@@ -396,6 +397,6 @@ def test_mp4_animation(run, tmp_path):
     assert meta["codec"] == "h264" and meta["fps"] == pytest.approx(5.0)
     assert w % 16 == 0 and h % 16 == 0 and len(first) == w * h * 3
     with pytest.raises(OSError, match="unsupported animation type"):
-        dic.figures.animate.animate(res, tmp_path / "x.avi")
+        figures.animate(res, tmp_path / "x.avi")
     with pytest.raises(ValueError, match="one value per frame"):
-        dic.figures.animate.animate(res, tmp_path / "x.gif", force=[1.0, 2.0])
+        figures.animate(res, tmp_path / "x.gif", force=[1.0, 2.0])

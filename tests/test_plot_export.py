@@ -1,4 +1,4 @@
-"""Displacement maps (dic.figures.plot) and table/archive export (dic.export).
+"""Displacement maps (dic.figures.maps) and table/archive export (dic.export).
 
 Fields here are built by hand, so every expected value is known without running the matcher.
 """
@@ -11,7 +11,7 @@ import pytest
 from dic.export import CSV_COLUMNS, field_from_npz, field_to_csv, field_to_npz
 from dic.field import DisplacementField, Reason
 from dic.images.io import read_image
-from dic.figures.plot import ROBUST_PERCENTILE, displacement_map, save_figure
+from dic.figures import ROBUST_PERCENTILE, displacement_map, save_figure
 
 IMAGE_SHAPE = (120, 160)  # rows, cols
 STEP = 10

@@ -204,7 +204,7 @@ def test_outputs_carry_standards_ranges_and_the_caution(tmp_path):
     keys = [r[0] for r in rows[1:]]
     assert keys == ["E", "nu", "Rp0.2", "Rm", "Ag", "Agt", "n", "r"]
     assert float(rows[1][2]) == res["E"].value  # repr round-trips float64
-    fig, ax = res.plot()
+    fig, ax = dic.figures.stress_strain_figure(res)
     assert ax.get_xlabel() == "Strain (%)" and ax.get_ylabel() == "Stress (MPa)"
     labels = [ln.get_label() for ln in ax.get_lines()]
     assert any(lb.startswith("modulus line") for lb in labels)

@@ -391,7 +391,7 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out):
     """
     from dic.export import field_to_csv
     from dic.images.io import read_image
-    from dic.figures.plot import displacement_map, save_figure
+    from dic.figures import displacement_map, save_figure
 
     st = results.settings
     frames, ref = st.get("frames", list(range(results.n_frames))), st.get("reference", 0)

@@ -18,6 +18,8 @@ from pathlib import Path
 
 import numpy as np
 
+from dic.errors import ImageError
+
 __all__ = [
     "IMAGE_EXTENSIONS",
     "MIN_IMAGE_SIZE",
@@ -136,7 +138,7 @@ def image_info(path):
     except OSError:
         raise
     except Exception as exc:  # a header parser met a malformed file
-        raise OSError(
+        raise ImageError(
             f"path: cannot read the header of '{p}' ({_one_line(exc)}); check that it is an intact "
             f"{fmt.upper()} file"
         ) from None
@@ -173,7 +175,7 @@ def _check_file(p, name):
     fmt = _format_of(p)
     if fmt is None:
         shown = p.suffix or "(no extension)"
-        raise OSError(
+        raise ImageError(
             f"{name}: cannot read '{p}': unsupported file type {shown}; convert it to PNG or "
             f"TIFF (accepted: {', '.join(IMAGE_EXTENSIONS)})"
         )
@@ -200,12 +202,12 @@ def _read_file(p, name):
     try:
         data = np.fromfile(p, dtype=np.uint8)  # via numpy: safe for non-ASCII paths
     except OSError as exc:
-        raise OSError(
+        raise ImageError(
             f"{name}: cannot read '{p}' ({exc.strerror or exc}); check the file permissions"
         ) from None
     raw = cv2.imdecode(data, cv2.IMREAD_UNCHANGED) if data.size else None
     if raw is None:
-        raise OSError(
+        raise ImageError(
             f"{name}: cannot decode '{p}' as {fmt.upper()} (damaged, truncated or not really "
             f"{fmt.upper()}); re-export or re-copy the image"
         )
@@ -221,7 +223,7 @@ def _read_file(p, name):
 def _tiff_layout(tif, p, name):
     """Rows, cols, channels of the one image in a TIFF, or OSError if it holds several."""
     if len(tif.series) > 1:
-        raise OSError(
+        raise ImageError(
             f"{name}: '{p}' holds more than one frame ({len(tif.series)} images); save one "
             f"frame per file"
         )
@@ -230,7 +232,7 @@ def _tiff_layout(tif, p, name):
     axes = series.axes
     extra = [(a, s) for a, s in zip(axes, shape) if a not in "YXS" and s > 1]
     if extra or "Y" not in axes or "X" not in axes:
-        raise OSError(
+        raise ImageError(
             f"{name}: '{p}' holds more than one frame (axes {axes}, shape {shape}); save one "
             f"frame per file"
         )
@@ -248,12 +250,12 @@ def _read_tiff(p, name):
             series = tif.series[0]
             raw = series.asarray()
             axes = series.axes
+    except ImageError:
+        raise
     except OSError as exc:
-        if exc.args and str(exc.args[0]).startswith(f"{name}:"):
-            raise
-        raise OSError(f"{name}: cannot read TIFF '{p}' ({_one_line(exc)}); check the file") from None
+        raise ImageError(f"{name}: cannot read TIFF '{p}' ({_one_line(exc)}); check the file") from None
     except Exception as exc:  # tifffile raises ValueError subclasses for damaged files
-        raise OSError(
+        raise ImageError(
             f"{name}: cannot decode '{p}' as TIFF ({_one_line(exc)}); the file is damaged, truncated or "
             f"not a TIFF: re-export or re-copy it"
         ) from None
@@ -274,12 +276,12 @@ def _tiff_info(p):
             series = tif.series[0]
             dtype = np.dtype(series.dtype)
             bits = int(tif.pages[0].bitspersample)
+    except ImageError:
+        raise
     except OSError as exc:
-        if exc.args and str(exc.args[0]).startswith("path:"):
-            raise
-        raise OSError(f"path: cannot read TIFF '{p}' ({_one_line(exc)}); check the file") from None
+        raise ImageError(f"path: cannot read TIFF '{p}' ({_one_line(exc)}); check the file") from None
     except Exception as exc:
-        raise OSError(
+        raise ImageError(
             f"path: cannot read the header of '{p}' as TIFF ({_one_line(exc)}); check that it is an "
             f"intact TIFF file"
         ) from None
@@ -297,13 +299,13 @@ def _png_info(p):
     with open(p, "rb") as f:
         head = f.read(33)
     if len(head) < 33 or head[:8] != _PNG_SIGNATURE or head[12:16] != b"IHDR":
-        raise OSError(
+        raise ImageError(
             f"path: '{p}' does not start with a PNG header; check that it is an intact PNG file"
         )
     width, height, depth, colour = struct.unpack(">IIBB", head[16:26])
     channels = {0: 1, 2: 3, 3: 3, 4: 2, 6: 4}.get(colour)
     if channels is None:
-        raise OSError(f"path: '{p}' has an unknown PNG colour type {colour}; re-export it")
+        raise ImageError(f"path: '{p}' has an unknown PNG colour type {colour}; re-export it")
     return {
         "path": p,
         "format": "png",
@@ -322,21 +324,21 @@ def _jpeg_info(p):
     """Parse the JPEG frame header; None when it is not a plain 8-bit grey or colour JPEG."""
     with open(p, "rb") as f:
         if f.read(2) != b"\xff\xd8":
-            raise OSError(
+            raise ImageError(
                 f"path: '{p}' does not start with a JPEG marker; check that it is an intact "
                 f"JPEG file"
             )
         while True:
             b = f.read(1)
             if not b:
-                raise OSError(f"path: '{p}' ends before its JPEG frame header; re-copy it")
+                raise ImageError(f"path: '{p}' ends before its JPEG frame header; re-copy it")
             if b != b"\xff":
                 continue
             marker = f.read(1)
             while marker == b"\xff":  # fill bytes
                 marker = f.read(1)
             if not marker:
-                raise OSError(f"path: '{p}' ends before its JPEG frame header; re-copy it")
+                raise ImageError(f"path: '{p}' ends before its JPEG frame header; re-copy it")
             m = marker[0]
             if m == 0x01 or 0xD0 <= m <= 0xD8:  # markers without a length
                 continue
@@ -344,12 +346,12 @@ def _jpeg_info(p):
                 return None
             seg = f.read(2)
             if len(seg) < 2:
-                raise OSError(f"path: '{p}' ends before its JPEG frame header; re-copy it")
+                raise ImageError(f"path: '{p}' ends before its JPEG frame header; re-copy it")
             (length,) = struct.unpack(">H", seg)
             if m in _JPEG_SOF:
                 body = f.read(6)
                 if len(body) < 6:
-                    raise OSError(f"path: '{p}' ends inside its JPEG frame header; re-copy it")
+                    raise ImageError(f"path: '{p}' ends inside its JPEG frame header; re-copy it")
                 precision, height, width, ncomp = struct.unpack(">BHHB", body)
                 if precision != 8 or ncomp not in (1, 3) or height == 0:
                     return None
@@ -373,7 +375,7 @@ def _file_channels_to_rgb(raw, where):
         return raw[:, :, 0]
     if c in (3, 4):
         return raw
-    raise OSError(
+    raise ImageError(
         f"{where} has {c} samples per pixel; save it as grey, RGB or RGBA (1, 3 or 4 samples)"
     )
 
@@ -488,7 +490,7 @@ def write_image(path, array, *, bits=8):
         raise ValueError(f"bits must be 8 or 16, got {bits!r}; pass bits=8 or bits=16")
     ext = p.suffix.lower()
     if ext not in (".png",) + _TIFF_EXTENSIONS:
-        raise OSError(
+        raise ImageError(
             f"path: cannot write '{p}': unsupported file type {ext or '(no extension)'}; use "
             f".png, .tif or .tiff"
         )
@@ -520,14 +522,14 @@ def write_image(path, array, *, bits=8):
             bgr = data[:, :, ::-1] if data.ndim == 3 else data
             ok, buf = cv2.imencode(".png", np.ascontiguousarray(bgr))
             if not ok:
-                raise OSError("OpenCV could not encode the PNG")
+                raise ImageError("OpenCV could not encode the PNG")
             buf.tofile(p)
         else:
             import tifffile
 
             tifffile.imwrite(p, data, photometric="rgb" if data.ndim == 3 else "minisblack")
     except OSError as exc:
-        raise OSError(
+        raise ImageError(
             f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder permissions "
             f"and free space"
         ) from None

@@ -16,18 +16,13 @@ from __future__ import annotations
 
 import os
 
+from dic.export import out_folder
 from dic.report._content import CAUTIONS, SECTION_TITLES, build_document
 
 __all__ = ["CAUTIONS", "REPORT_NAMES", "SECTION_TITLES", "write_report"]
 
 #: file names written into the output folder
 REPORT_NAMES = ("report.html", "report.pdf")
-
-
-def _out_folder(out_dir):
-    from dic.export import _out_folder as make_folder
-
-    return make_folder(out_dir, "the report")
 
 
 def _replace(target, write):
@@ -70,14 +65,15 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
         Strain measure of the maps (see :func:`dic.strain.canonical_measure`).
     gauges : sequence, optional
         Gauge histories, each with ``name``, ``frames``, ``values`` and ``unit`` (see
-        :func:`dic.figures.plot.gauge_histories`); those that also carry their geometry (``points``,
-        or ``p0`` and ``p1``) are drawn on the maps.
+        :func:`dic.figures.lines.history_figure`); those that also carry their geometry
+        (``points``, or ``p0`` and ``p1``) are drawn on the maps.
     tensile : object, optional
         Tensile results: an object with ``to_dict()`` (or ``rows``, a sequence of
         ``(quantity, value[, standard])``), or a mapping; values may be plain numbers (units
         read from key endings such as ``_mpa``, ``_gpa``, ``_percent``) or mappings with
-        ``value``, ``unit``, ``label`` and ``standard``. A stress-strain figure is taken from
-        its ``figure`` attribute or method when it has one.
+        ``value``, ``unit``, ``label`` and ``standard``. The stress-strain figure of a
+        :class:`dic.tensile.results.TensileResults` is drawn; another object gives its
+        ``figure`` (a Figure, or a method without arguments that returns one) when it has one.
     metrology : object, optional
         Self-check and noise results with ``to_dict()`` (or a mapping); shown in full, and
         noise floors and spatial resolution are picked out by their key names for the
@@ -112,7 +108,7 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
         if len(res) == 0:
             raise ValueError(f"results: '{res.path}' holds no completed frames; track images "
                              f"into it first")
-        out = _out_folder(out_dir)
+        out = out_folder(out_dir, "the report")
         doc = build_document(res, frames=frames, window=window, measure=measure,
                              gauges=gauges, tensile=tensile, metrology=metrology, title=title)
     finally:

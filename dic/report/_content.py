@@ -12,8 +12,14 @@ from pathlib import Path
 
 import numpy as np
 
-from dic.figures import plot
 from dic import __version__
+from dic.figures.common import (MEASURE_TITLES, display_unit, find_image, frame_indices,
+                                limits_from_top, quantity_values, robust_top)
+from dic.figures.layers import gauge_shapes, grid_view
+from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure,
+                               stress_strain_figure, valid_counts, valid_points_plot)
+from dic.figures.maps import measure_comparison, quality_map, strain_map
+from dic.tensile.results import TensileResults
 from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
@@ -205,7 +211,7 @@ def _overview(res, info):
                  "not known: lengths are in pixels"))
     for comp in MAP_COMPONENTS:
         lo, hi = info["limits"][comp]
-        factor, symbol, _ = plot._unit(info["units"][comp], "strain", max(abs(lo), abs(hi)))
+        factor, symbol, _ = display_unit(info["units"][comp], "strain", max(abs(lo), abs(hi)))
         rows.append((f"Strain {comp}, range shown",
                      f"\u00b1{hi * factor:.3g} {symbol} (99.5th percentile of |{comp}| over "
                      f"the frames analysed)"))
@@ -330,10 +336,7 @@ def _metrology_items(metrology):
         rows = {k: v for k, v in _flatten(mapping).items() if _is_short(v)}
         fig = getattr(obj, "figure", None)
         if callable(fig) and not isinstance(fig, Figure):
-            try:
-                fig = fig()
-            except TypeError:
-                fig = None
+            fig = fig()  # a metrology result's figure() takes no arguments
         name = type(obj).__name__
         title = "" if isinstance(obj, Mapping) else " ".join(
             re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize()
@@ -388,15 +391,15 @@ def _maps(res, info, chosen, shapes):
         f"(the 99.5th percentile of its absolute value over all frames analysed); values "
         f"beyond it take the end colours. Red is extension, blue contraction. Areas left "
         f"blank were not measured.")]
-    ref_image = plot._find_image(res, None)
+    ref_image = find_image(res, None)
     for k in chosen:
         s = res.strain(k, window=info["window"], measure=info["measure"])
-        img = plot._find_image(res, k)
+        img = find_image(res, k)
         config = "deformed" if img is not None else "reference"
         if img is None:
             img = ref_image
         field = res.field(k)
-        view = plot._grid_view(res.grid_x, res.grid_y, res.settings.get("step") or 1)
+        view = grid_view(res.grid_x, res.grid_y, res.settings.get("step") or 1)
         w, h = abs(view[1] - view[0]), abs(view[2] - view[3])
         wide = w >= 1.6 * h
         if wide:
@@ -408,10 +411,10 @@ def _maps(res, info, chosen, shapes):
         FigureCanvasAgg(fig)
         axes = fig.subplots(3, 1) if wide else fig.subplots(1, 3)
         for ax, comp in zip(axes, MAP_COMPONENTS):
-            plot.strain_map(s, img, component=comp, field=field, configuration=config, ax=ax,
-                            limits=info["limits"][comp], units=info["units"][comp],
-                            scale=res.scale, gauges=shapes, crop=True,
-                            title=f"{comp}" + (" (tensor shear)" if comp == "xy" else ""))
+            strain_map(s, img, component=comp, field=field, configuration=config, ax=ax,
+                       limits=info["limits"][comp], units=info["units"][comp],
+                       scale=res.scale, gauges=shapes, crop=True,
+                       title=f"{comp}" + (" (tensor shear)" if comp == "xy" else ""))
         fig.suptitle(f"{info['measure_title']} strain, {_frame_label(res, k)}", fontsize=11)
         where = ("drawn on the frame's own image, following the specimen (deformed "
                  "configuration)" if config == "deformed" else
@@ -426,15 +429,15 @@ def _maps(res, info, chosen, shapes):
 
 def _measures(res, info, k):
     s = res.strain(k, window=info["window"], measure=info["measure"])
-    tops = {c: plot._robust_top(plot._quantity_values(s, c)) for c in ("xx", "yy")}
+    tops = {c: robust_top(quantity_values(s, c)) for c in ("xx", "yy")}
     comp = max(tops, key=tops.get)
-    img = plot._find_image(res, k)
+    img = find_image(res, k)
     config = "deformed" if img is not None else "reference"
     if img is None:
-        img = plot._find_image(res, None)
-    fig = plot.measure_comparison(s, img, component=comp, field=res.field(k),
-                                  configuration=config, scale=res.scale, crop=True)
-    share = plot._quantity_values(s, "nonlinear_share")
+        img = find_image(res, None)
+    fig = measure_comparison(s, img, component=comp, field=res.field(k),
+                             configuration=config, scale=res.scale, crop=True)
+    share = quantity_values(s, "nonlinear_share")
     share = share[np.isfinite(share)]
     text = (f"Strain {comp} (the larger normal component) at {_frame_label(res, k)} as "
             f"Green-Lagrange, infinitesimal and Hencky strain from the same deformation "
@@ -449,13 +452,13 @@ def _measures(res, info, k):
 
 
 def _gauges(res, gauges):
-    fig = plot.gauge_histories(gauges, times=np.asarray(res.image_times[:len(res)]))
+    fig = history_figure(gauges, times=np.asarray(res.image_times[:len(res)]))
     rows = []
     for g in gauges:
         values = np.asarray(g.values, dtype=np.float64).ravel()
         frames = np.asarray(g.frames).ravel()
         unit = str(getattr(g, "unit", "") or "").strip()
-        plain = unit.lower() in plot._PLAIN_STRAIN_UNITS
+        plain = unit.lower() in PLAIN_STRAIN_UNITS
         f, u = (100.0, "%") if plain else (1.0, unit)
         ok = np.isfinite(values)
         last = _with_unit(values[ok][-1] * f, u) if ok.any() else "no reading"
@@ -524,24 +527,32 @@ def _tensile_content(tensile):
 
 
 def _tensile_figure(tensile):
+    """The stress-strain figure of the tensile input; None when the input carries no curve.
+
+    A :class:`~dic.tensile.results.TensileResults` is drawn with
+    :func:`~dic.figures.lines.stress_strain_figure`; another object gives its ``figure``
+    (a Figure, or a method that takes no arguments and returns one); a plain mapping of values
+    has none.
+    """
     from matplotlib.figure import Figure
 
     if isinstance(tensile, Figure):
         return tensile
-    for attr in ("figure", "stress_strain_figure", "plot_stress_strain", "plot"):
-        obj = getattr(tensile, attr, None)
-        if obj is None:
-            continue
-        if callable(obj) and not isinstance(obj, Figure):
-            try:
-                obj = obj()
-            except TypeError:  # needs arguments we cannot guess
-                continue
-        if isinstance(obj, tuple) and obj and isinstance(obj[0], Figure):
-            obj = obj[0]
-        if isinstance(obj, Figure):
-            return obj
-    return None
+    if isinstance(tensile, TensileResults):
+        fig, _ = stress_strain_figure(tensile)
+        return fig
+    fig = getattr(tensile, "figure", None)
+    if fig is None:
+        return None
+    if callable(fig) and not isinstance(fig, Figure):
+        fig = fig()
+    if isinstance(fig, tuple) and fig and isinstance(fig[0], Figure):
+        fig = fig[0]
+    if not isinstance(fig, Figure):
+        raise ValueError(f"tensile: its figure is a {type(fig).__name__}, not a matplotlib "
+                         f"Figure; give a Figure (or a figure() method returning one), or "
+                         f"leave it out")
+    return fig
 
 
 def _tensile(tensile):
@@ -569,15 +580,18 @@ def _tensile(tensile):
     if fig is not None:
         blocks.append(_figure(fig, "Stress-strain curve with the fitted lines.",
                               "Stress-strain curve"))
+    else:
+        blocks.append(Paragraph("No stress-strain curve is drawn: the tensile input gives "
+                                "values only, without the measured curve.", "note"))
     return blocks
 
 
 def _quality(res, info, k_last):
-    counts, total, median = plot.valid_counts(res)
+    counts, total, median = valid_counts(res)
     n = len(res)
     times = np.asarray(res.image_times[:n], dtype=np.float64)
-    fig = plot.valid_points_plot(counts, total=total, reference_updates=info["updates"],
-                                 times=times)
+    fig = valid_points_plot(counts, total=total, reference_updates=info["updates"],
+                            times=times)
     share = 100.0 * counts / total
     worst = int(np.argmin(counts))
     blocks = [Paragraph(
@@ -589,8 +603,7 @@ def _quality(res, info, k_last):
         _figure(fig, "Measured points per frame; dotted lines mark a change of reference "
                      "image.", "Measured points per frame")]
     field = res.field(k_last)
-    fig_q, _ = plot.quality_map(field, plot._find_image(res, None), scale=res.scale,
-                                crop=True)
+    fig_q, _ = quality_map(field, find_image(res, None), scale=res.scale, crop=True)
     blocks.append(_figure(fig_q, f"ZNCC of every match at {_frame_label(res, k_last)}, on "
                                  f"the reference grid.", f"ZNCC map at frame {k_last}"))
     reasons = {k: v for k, v in field.reason_counts().items() if k not in ("measured",
@@ -634,7 +647,7 @@ def _gauge_geometry(gauges):
     for g in gauges or ():
         try:
             shapes.extend({"points": pts, "label": label, "closed": closed}
-                          for pts, label, closed in plot._gauge_shapes([g]))
+                          for pts, label, closed in gauge_shapes([g]))
         except ValueError:
             continue  # a point probe or a gauge without a drawable geometry
     return shapes
@@ -657,8 +670,8 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
             or window % 2 == 0:
         raise ValueError(f"window: {window!r} is not an odd whole number of at least 3; use "
                          f"e.g. window=9")
-    chosen = plot._frame_indices(_default_frames(n) if frames is None else frames, n)
-    gauges = plot._gauge_items(gauges) if gauges is not None else None
+    chosen = frame_indices(_default_frames(n) if frames is None else frames, n)
+    gauges = gauge_items(gauges) if gauges is not None else None
     metro = _metrology_items(metrology) if metrology is not None else []
 
     # one pass over the frames: colour limits of every map component
@@ -668,9 +681,9 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
         s = res.strain(k, window=int(window), measure=measure)
         fit = s.fit
         for c in MAP_COMPONENTS:
-            tops[c] = max(tops[c], plot._robust_top(plot._quantity_values(s, c)))
-    limits = {c: plot._limits_from_top(t, True) for c, t in tops.items()}
-    units = {c: plot._unit("auto", "strain", limits[c][1])[2] for c in MAP_COMPONENTS}
+            tops[c] = max(tops[c], robust_top(quantity_values(s, c)))
+    limits = {c: limits_from_top(t, True) for c, t in tops.items()}
+    units = {c: display_unit("auto", "strain", limits[c][1])[2] for c in MAP_COMPONENTS}
     s_settings = res.settings
     subset, step = s_settings.get("subset"), s_settings.get("step")
     vsg = vsg_size(int(window), float(step), float(subset)) if subset and step else float("nan")
@@ -679,7 +692,7 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
     ref_name = (res.image_names[settings_frames.index(ref)] if ref in settings_frames
                 and settings_frames.index(ref) < len(res.image_names) else "")
     info = dict(window=int(window), measure=measure,
-                measure_title=plot._MEASURE_TITLES[measure], limits=limits, units=units,
+                measure_title=MEASURE_TITLES[measure], limits=limits, units=units,
                 vsg=vsg, fit=fit, updates=np.asarray(res.reference_updates, dtype=np.int64),
                 reference_name=ref_name)
     shapes = _gauge_geometry(gauges)

@@ -24,6 +24,7 @@ from dic.strain._measures import (MEASURES, area_change, canonical_measure, engi
                         nonlinear_share, out_of_plane, polar_decomposition, principal_strains,
                         rotation_angle, strain_tensor)
 from dic.strain._result import COMPONENTS, LineProfile, StrainField
+from dic.strain._sample import bilinear
 
 __all__ = [
     "strain_field", "StrainField", "LineProfile", "COMPONENTS", "vsg_size",
@@ -32,4 +33,5 @@ __all__ = [
     "euler_almansi", "hencky", "engineering", "polar_decomposition", "rotation_angle",
     "area_change", "principal_strains", "max_shear", "equivalent_strain", "out_of_plane",
     "nonlinear_part", "nonlinear_share", "nonlinear_mask", "measure_difference",
+    "bilinear",
 ]

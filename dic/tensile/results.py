@@ -20,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from dic import __version__
 from dic.tensile import fits
 from dic import __version__
 from dic.tensile.histories import CAUTION
@@ -272,17 +273,6 @@ class TensileResults:
                      v.range_unit, str(int(v.points)), _g(v.r2), v.method, v.note]
             lines.append(",".join(_csv_cell(c) for c in cells))
         return _write(path, "\n".join(lines) + "\n")
-
-    def plot(self, ax=None, *, strain_unit="%"):
-        """Stress-strain curve with the modulus line and the offset line(s).
-
-        Returns
-        -------
-        fig, ax
-        """
-        from dic.figures.tensile_plot import stress_strain_figure
-
-        return stress_strain_figure(self, ax=ax, strain_unit=strain_unit)
 
 
 def _g(v) -> str:

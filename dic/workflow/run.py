@@ -30,8 +30,8 @@ def tensile_outputs(results_path, setup, out_dir=None):
     dic.tensile.workflow.TensileOutcome
         With ``files["stress_strain"]`` added.
     """
-    from dic.figures.plot import save_figure
-    from dic.figures.tensile_plot import stress_strain_figure
+    from dic.figures.common import save_figure
+    from dic.figures.lines import stress_strain_figure
     from dic.tensile.workflow import tensile_from_results
 
     outcome = tensile_from_results(results_path, setup, out_dir)

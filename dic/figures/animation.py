@@ -1,9 +1,9 @@
 """Animations of a strain component through a sequence: GIF and MP4 through imageio.
 
-Every frame is drawn with :func:`dic.figures.plot.strain_map` into one figure whose layout is fixed
-after the first frame, with colour limits fixed for the whole sequence (given, or from
-:func:`dic.figures.plot.strain_limits`), so a colour means the same strain in every frame. A caption
-gives the frame number, the image, its time and, if given, the force. GIF is written with
+Every frame is drawn with :func:`dic.figures.maps.strain_map` into one figure whose layout is
+fixed after the first frame, with colour limits fixed for the whole sequence (given, or from
+:func:`dic.figures.common.strain_limits`), so a colour means the same strain in every frame. A
+caption gives the frame number, the image, its time and, if given, the force. GIF is written with
 Pillow, MP4 (H.264) with the ffmpeg program that the ``imageio-ffmpeg`` package ships.
 """
 
@@ -15,7 +15,12 @@ from pathlib import Path
 
 import numpy as np
 
-from dic.figures import plot as _plot
+from dic.figures.common import (STRAIN_QUANTITIES, check_alpha, check_configuration,
+                                check_limits, check_size, colormap, display_unit, find_image,
+                                frame_indices, open_results, quantity_label, quantity_name,
+                                strain_limits)
+from dic.figures.layers import draw_colorbar
+from dic.figures.maps import strain_map
 
 __all__ = ["ANIMATION_FORMATS", "animate"]
 
@@ -23,18 +28,6 @@ __all__ = ["ANIMATION_FORMATS", "animate"]
 ANIMATION_FORMATS = (".gif", ".mp4")
 # H.264 in the common yuv420p pixel format needs even sizes; 16 keeps every encoder happy
 _BLOCK = 16
-
-
-def _open_results(results):
-    """``(Results, opened_here)`` from a Results object or a path."""
-    if _plot._is_results(results):
-        return results, False
-    from dic.sequence.store import Results
-
-    if not isinstance(results, (str, os.PathLike)):
-        raise ValueError(f"results must be a results file path or dic.sequence.store.Results; got "
-                         f"{type(results).__name__}")
-    return Results.open(results), True
 
 
 def _per_frame(values, n, name):
@@ -81,14 +74,14 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
     path : str or os.PathLike
         Output file ending in ``.gif`` or ``.mp4``; its folder must exist.
     component : str, optional
-        One of :data:`dic.figures.plot.STRAIN_QUANTITIES` (``xy`` is tensor shear).
+        One of :data:`dic.figures.common.STRAIN_QUANTITIES` (``xy`` is tensor shear).
     window, measure : optional
         Strain window and measure, as for :func:`dic.strain_field`.
     frames : sequence of int or slice, optional
         Frames to show (default all completed frames).
     limits : (float, float), optional
         Colour limits for every frame (plain strain numbers); by default
-        :func:`dic.figures.plot.strain_limits` over the frames shown.
+        :func:`dic.figures.common.strain_limits` over the frames shown.
     units : {'auto', 'microstrain', '%'}, optional
     configuration : {'reference', 'deformed'}, optional
         Draw on the reference grid over the reference image, or following the specimen over
@@ -138,13 +131,13 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
     if not p.parent.is_dir():
         raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
                                 f"writing '{p.name}'")
-    name = _plot._quantity_name(component)
+    name = quantity_name(component)
     from dic.strain import canonical_measure
 
     measure = canonical_measure(measure)
-    config = _plot._configuration(configuration)
-    _plot._check_alpha(alpha)
-    width, height = _plot._check_size(size, "size")
+    config = check_configuration(configuration)
+    check_alpha(alpha)
+    width, height = check_size(size, "size")
     try:
         fps, dpi = float(fps), float(dpi)
     except (TypeError, ValueError):
@@ -153,10 +146,10 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
         raise ValueError(f"fps and dpi must be positive numbers, got fps={fps!r}, dpi={dpi!r}; "
                          f"e.g. fps=4, dpi=100")
 
-    res, opened = _open_results(results)
+    res, opened = open_results(results)
     try:
         n = len(res)
-        order = _plot._frame_indices(frames, n)
+        order = frame_indices(frames, n)
         if images is not None and images is not False:
             images = list(images)
             if len(images) != n:
@@ -167,23 +160,22 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
         t_all = _per_frame(times, n, "times")
         f_all = _per_frame(force, n, "force")
         if limits is None:
-            lo, hi = _plot.strain_limits(res, name, frames=order, window=window,
-                                         measure=measure)
+            lo, hi = strain_limits(res, name, frames=order, window=window, measure=measure)
         else:
-            lo, hi = _plot._check_limits(limits)
-        kind = _plot.STRAIN_QUANTITIES[name][2]
-        factor, symbol, unit_name = _plot._unit(units, kind, max(abs(lo), abs(hi)))
-        signed = _plot.STRAIN_QUANTITIES[name][1]
+            lo, hi = check_limits(limits)
+        kind = STRAIN_QUANTITIES[name][2]
+        factor, symbol, unit_name = display_unit(units, kind, max(abs(lo), abs(hi)))
+        signed = STRAIN_QUANTITIES[name][1]
         scale = getattr(res, "scale", None)
         reference_image = None
         if config == "reference" and images is None:
-            reference_image = _plot._find_image(res, None)
+            reference_image = find_image(res, None)
 
         fig = Figure(figsize=(width, height), dpi=dpi, layout="constrained")
         FigureCanvasAgg(fig)
         ax = fig.add_subplot()
         key = ScalarMappable(norm=Normalize(lo * factor, hi * factor),
-                             cmap=_plot._colormap(None, signed))
+                             cmap=colormap(None, signed))
         writer, gif_frames = None, []
         try:
             if ext == ".mp4":
@@ -201,23 +193,22 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
                 elif images is not None:
                     img = images[k]
                 elif config == "deformed":
-                    img = _plot._find_image(res, k)
+                    img = find_image(res, k)
                 else:
                     img = reference_image
                 ax.clear()
-                _plot.strain_map(s, img, component=name, field=fld, configuration=config,
-                                 ax=ax, alpha=alpha, limits=(lo, hi), units=unit_name,
-                                 scale=scale, colorbar=False,
-                                 title=_plot._label(name, measure, symbol))
+                strain_map(s, img, component=name, field=fld, configuration=config, ax=ax,
+                           alpha=alpha, limits=(lo, hi), units=unit_name, scale=scale,
+                           colorbar=False, title=quantity_label(name, measure, symbol))
                 cap = _caption(k, n, res.image_names[k] if hasattr(res, "image_names") else "",
                                None if t_all is None else float(t_all[k]),
                                None if f_all is None else float(f_all[k]), force_unit)
                 if first:
                     horizontal = width >= 1.3 * height
-                    _plot._colorbar(fig, key, ax, _plot._label(name, measure, symbol),
-                                    np.array([lo * factor - 1, hi * factor + 1] if signed
-                                             else [hi * factor + 1]),
-                                    lo * factor, hi * factor, horizontal)
+                    draw_colorbar(fig, key, ax, quantity_label(name, measure, symbol),
+                                  np.array([lo * factor - 1, hi * factor + 1] if signed
+                                           else [hi * factor + 1]),
+                                  lo * factor, hi * factor, horizontal)
                     caption = fig.text(0.01, 0.005, cap, fontsize=9, ha="left", va="bottom")
                     fig.get_layout_engine().set(h_pad=0.25)
                     fig.canvas.draw()
