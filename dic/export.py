@@ -308,7 +308,7 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     k : int
         Completed frame (negative counts from the end).
     path : str or os.PathLike
@@ -393,7 +393,7 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     path : str or os.PathLike
         Output archive (``.npz`` is added if missing); its folder must exist.
     frames : sequence of int or slice, optional
@@ -529,7 +529,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     out_dir : str or os.PathLike
         Folder for the files (created if missing).
     frames, components, window, measure : optional
@@ -626,7 +626,7 @@ def export_results(results, out_dir, *, format="csv", frames=None,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     out_dir : str or os.PathLike
         Folder for the files (created if missing).
     format : {'csv', 'npz', 'vtk'}, optional

@@ -21,7 +21,7 @@ import dic
 from dic import export
 from dic.images import synth
 from dic.cli.report import register
-from dic.sequence.store import open_for_writing
+from dic.sequence import open_for_writing
 
 SHAPE = (80, 128)
 SCALE = 0.04

@@ -472,7 +472,7 @@ def _write_line(text, out):
 
 def _frames_done(path):
     """Completed frames in a results file, or None if there is no readable one."""
-    from dic.sequence.store import Results
+    from dic.sequence import Results
 
     try:
         with Results.open(path) as r:
@@ -482,8 +482,8 @@ def _frames_done(path):
 
 
 def _run(args, out=None):
-    from dic.sequence.store import _FIX_IMAGES, _FIX_SETTINGS
-    from dic.sequence.track import track
+    from dic.errors import ResultsMismatch
+    from dic.sequence.tracker import track
 
     out = sys.stdout if out is None else out
 
@@ -511,14 +511,13 @@ def _run(args, out=None):
     t0 = time.perf_counter()
     try:
         try:
-            from dic.sequence.track import stop_on_interrupt
+            from dic.sequence.tracker import stop_on_interrupt
 
             with stop_on_interrupt():
                 results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
-        except ValueError as exc:
-            if str(exc).endswith((_FIX_SETTINGS, _FIX_IMAGES)):  # another analysis's file
-                raise ValueError(f"{exc}, or add --overwrite to replace it") from None
-            raise
+        except ResultsMismatch as exc:  # another analysis's file: --overwrite replaces it
+            raise ResultsMismatch(f"{exc}, or add --overwrite to replace it",
+                                  fix=f"{exc.fix}, or add --overwrite to replace it") from None
     except KeyboardInterrupt:
         done = _frames_done(h5)
         kept = (f"{done[0]} of {done[1]} frames are saved in '{h5}'; run the same command "
@@ -607,7 +606,7 @@ def _measured_share(path):
 
 
 def _info(args, out=None):
-    from dic.sequence.store import results_info
+    from dic.sequence import results_info
 
     out = sys.stdout if out is None else out
 

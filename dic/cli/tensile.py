@@ -159,7 +159,7 @@ def compute(args):
     from dic.tensile.forcelog import read_force_log
     from dic.tensile.forcesync import image_times_from_files, read_frame_times, synchronise
     from dic.tensile.results import engineering_stress, tensile_results
-    from dic.sequence.track import load_results
+    from dic.sequence.tracker import load_results
 
     _check_early(args)
     folder = args.out if args.out is not None else Path(args.results).resolve().parent

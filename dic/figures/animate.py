@@ -29,7 +29,7 @@ def _open_results(results):
     """``(Results, opened_here)`` from a Results object or a path."""
     if _plot._is_results(results):
         return results, False
-    from dic.sequence.store import Results
+    from dic.sequence import Results
 
     if not isinstance(results, (str, os.PathLike)):
         raise ValueError(f"results must be a results file path or dic.sequence.store.Results; got "

@@ -61,6 +61,11 @@ def _check_options(subset, step, shape_function, interpolation, search, min_zncc
             float(min_zncc), max_iterations, float(tolerance), float(min_texture))
 
 
+#: the checks of :func:`correlate`'s options, public for drivers that lay out the grid of
+#: points themselves (:func:`dic.sequence.track`); returns the checked values
+check_options = _check_options
+
+
 def prepare_grid(shape, roi, subset, step, border=0):
     """Point grid over the ROI and the points whose whole subset lies inside it.
 

@@ -103,7 +103,7 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (reporting of analysis settings,
        VSG, noise floor, spatial resolution).
     """
-    from dic.sequence.store import Results
+    from dic.sequence import Results
     from dic.report._html import render_html
     from dic.report._pdf import render_pdf
 

@@ -179,7 +179,7 @@ class FrameMatcher:
 
     def __post_init__(self):
         from dic.images import interp
-        from dic.matching._icgn import INTERPOLATIONS
+        from dic.matching import INTERPOLATIONS
 
         order = INTERPOLATIONS[self.settings.interpolation]
         self._grads = interp.reference_gradients(interp.prefilter(self.reference, order))

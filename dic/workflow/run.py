@@ -51,7 +51,7 @@ def _self_check(results_path, strain: dict):
     is not among the analysed files or is no longer readable)."""
     from dic.images.io import read_image
     from dic.metrology import self_check
-    from dic.sequence.track import load_results
+    from dic.sequence.tracker import load_results
 
     with load_results(results_path) as res:
         st = res.settings
@@ -82,7 +82,7 @@ def _noise_floor(results_path, out_dir, settings, written):
 
     from dic.images.io import list_images
     from dic.metrology import noise_floor
-    from dic.sequence.track import load_results, resolve_images
+    from dic.sequence.tracker import load_results, resolve_images
 
     imgs = settings["noise"]["images"]
     paths = resolve_images(imgs) if not isinstance(imgs, str) else list_images(imgs)
