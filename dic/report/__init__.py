@@ -14,7 +14,6 @@ write_report
 
 from __future__ import annotations
 
-import os
 
 from dic.report._content import CAUTIONS, SECTION_TITLES, build_document
 
@@ -31,15 +30,12 @@ def _out_folder(out_dir):
 
 
 def _replace(target, write):
-    tmp = target.with_name(f".partial-{os.getpid()}-{target.name}")
+    from dic.files import atomic_write
+
     try:
-        write(tmp)
-        os.replace(tmp, target)
+        with atomic_write(target, None) as tmp:
+            write(tmp)
     except OSError as exc:
-        try:
-            tmp.unlink()
-        except OSError:
-            pass
         raise OSError(f"out_dir: cannot write '{target}' ({exc.strerror or exc}); check the "
                       f"folder permissions and free space") from None
     return target

@@ -10,6 +10,8 @@ import argparse
 import logging
 from pathlib import Path
 
+from dic.files import atomic_write
+
 __all__ = ["finish", "tensile_namespace"]
 
 log = logging.getLogger(__name__)
@@ -95,7 +97,9 @@ def _noise_floor(results_path, out_dir, settings, written):
                         shape_function=st.get("shape_function", "affine"),
                         interpolation=st.get("interpolation", "quintic"))
     target = Path(out_dir) / "noise_floor.json"
-    target.write_text(json.dumps(floor.as_dict(), indent=2, default=str), encoding="utf-8")
+    text = json.dumps(floor.as_dict(), indent=2, default=str)
+    with atomic_write(target, encoding="utf-8") as fh:
+        fh.write(text)
     written["noise_floor"] = target
     return floor
 
