@@ -27,6 +27,7 @@ import pytest
 import _store_writer as sw
 from dic.field import DisplacementField
 import dic.sequence.layout as layout
+from dic.errors import ResultsMismatch
 from dic.sequence import (FORMAT, FORMAT_VERSION, Results, ResultsWriter, open_for_writing,
                           results_info)
 
@@ -820,6 +821,9 @@ def test_open_for_writing_creates_resumes_and_checks(tmp_path):
         with pytest.raises(ValueError, match=msg) as e:
             open_for_writing(path, **{**kw, **change})
         assert "use a new --out file or the same settings" in str(e.value)
+        # a typed error carrying its advice, so that callers never match message text
+        assert isinstance(e.value, ResultsMismatch)
+        assert e.value.fix == "use a new --out file or the same settings"
     assert path.read_bytes() == before
     with open_for_writing(path, **{**kw, "overwrite": True}) as w:
         assert w.n_done == 0  # a new file replaced the old one
