@@ -28,8 +28,8 @@ _LAZY = {
     "make_roi": "dic.images.roi",
     "strain_field": "dic.strain",
     "StrainField": "dic.strain",
-    "track": "dic.sequence.track",
-    "load_results": "dic.sequence.track",
+    "track": "dic.sequence.tracker",
+    "load_results": "dic.sequence.tracker",
     "tensile_results": "dic.tensile.results",
     "gauge_histories": "dic.tensile.gauges",
 }

@@ -28,6 +28,7 @@ from dic import __version__
 from dic.field import DisplacementField
 from dic.figures.common import (MEASURE_TITLES, STRAIN_QUANTITIES, frame_indices, open_results,
                                 quantity_values)
+from dic.files import atomic_write
 
 __all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "check_components", "export_results",
            "field_from_npz", "field_to_csv", "field_to_npz", "frame_to_csv", "out_folder",
@@ -101,7 +102,7 @@ def field_to_csv(field, path):
         raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
                                 f"writing '{p.name}'")
     try:
-        with open(p, "w", encoding="utf-8", newline="\n") as fh:
+        with atomic_write(p, encoding="utf-8", newline="\n") as fh:
             fh.write(head + "\n" + note + "\n")
             for row, r in zip(data, reason):
                 fh.write(",".join(_FLOAT_FMT % v for v in row) + f",{r}\n")
@@ -153,7 +154,8 @@ def field_to_npz(field, path):
     arrays["settings"] = np.array(json.dumps(field.settings, default=_jsonable))
     arrays["format_version"] = np.array(1)
     try:
-        np.savez_compressed(p, **arrays)
+        with atomic_write(p, "wb") as fh:
+            np.savez_compressed(fh, **arrays)
     except OSError as exc:
         raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
                       f"permissions and free space") from None
@@ -318,16 +320,10 @@ def _strain_note(strain):
 
 
 def _write_text(p, text_writer):
-    tmp = p.with_name(f".partial-{os.getpid()}-{p.name}")
     try:
-        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
+        with atomic_write(p, encoding="utf-8", newline="\n") as fh:
             text_writer(fh)
-        os.replace(tmp, p)
     except OSError as exc:
-        try:
-            tmp.unlink()
-        except OSError:
-            pass
         raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
                       f"permissions and free space") from None
     return p
@@ -339,7 +335,7 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     k : int
         Completed frame (negative counts from the end).
     path : str or os.PathLike
@@ -424,7 +420,7 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     path : str or os.PathLike
         Output archive (``.npz`` is added if missing); its folder must exist.
     frames : sequence of int or slice, optional
@@ -500,15 +496,14 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
                 "strain_settings": np.array(json.dumps(strain_info, default=_jsonable)),
                 "format_version": np.array(1),
             }
-            part = tmp / "archive.npz"
-            with zipfile.ZipFile(part, "w", compression=zipfile.ZIP_DEFLATED,
-                                 allowZip64=True) as z:
+            with atomic_write(p, "wb") as out, \
+                    zipfile.ZipFile(out, "w", compression=zipfile.ZIP_DEFLATED,
+                                    allowZip64=True) as z:
                 for nm, arr in small.items():
                     with z.open(f"{nm}.npy", "w", force_zip64=True) as fh:
                         np.lib.format.write_array(fh, np.asanyarray(arr), allow_pickle=False)
                 for nm in [*names, "reason"]:
                     z.write(tmp / f"{nm}.npy", arcname=f"{nm}.npy")
-            os.replace(part, p)
         except OSError as exc:
             raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
                           f"permissions and free space") from None
@@ -558,7 +553,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     out_dir : str or os.PathLike
         Folder for the files (created if missing).
     frames, components, window, measure : optional
@@ -653,7 +648,7 @@ def export_results(results, out_dir, *, format="csv", frames=None,
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
     out_dir : str or os.PathLike
         Folder for the files (created if missing).
     format : {'csv', 'npz', 'vtk'}, optional

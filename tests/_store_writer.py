@@ -101,7 +101,7 @@ def install_kill_hook(die_at, counter=None):
 
 def open_writer(path, n, ny, nx, fsync=True):
     """Resume ``path`` if it exists, else create it, with the sequence's settings and images."""
-    from dic.sequence.store import ResultsWriter
+    from dic.sequence import ResultsWriter
 
     names, digests = images(n)
     if Path(path).exists():

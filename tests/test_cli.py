@@ -19,7 +19,7 @@ import dic
 from dic.cli import main
 from dic.export import CSV_COLUMNS
 from dic.images.io import image_info, read_image, write_image
-from dic.sequence.store import Results
+from dic.sequence import Results
 
 SHIFT = (1.5, -0.75)
 SIZE = (200, 200)

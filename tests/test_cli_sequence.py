@@ -26,7 +26,7 @@ import pytest
 import dic
 from dic.images import synth
 from dic.cli import main
-from dic.sequence.store import Results
+from dic.sequence import Results
 
 ROOT = Path(__file__).resolve().parent.parent
 SHAPE = (160, 240)                     # rows, cols
@@ -299,11 +299,11 @@ def test_output_folder_gets_results_file_tables_and_maps(frames, tmp_path, capsy
 # --------------------------------------------------------------------------------------------
 def test_interrupted_run_survives_failing_resumes(frames, reference_run, tmp_path, capsys,
                                                   monkeypatch):
-    from dic.sequence import store
+    from dic.sequence import ResultsWriter
 
     out = tmp_path / "part.h5"
     cmd = ["run", str(frames), "--out", str(out), "--shape-function", "quadratic", "-q"]
-    real = store.ResultsWriter.write_frame
+    real = ResultsWriter.write_frame
     calls = {"n": 0}
 
     def interrupted(self, k, field, **kw):  # Ctrl-C arrives after 3 written frames
@@ -312,11 +312,11 @@ def test_interrupted_run_survives_failing_resumes(frames, reference_run, tmp_pat
         calls["n"] += 1
         return real(self, k, field, **kw)
 
-    monkeypatch.setattr(store.ResultsWriter, "write_frame", interrupted)
+    monkeypatch.setattr(ResultsWriter, "write_frame", interrupted)
     assert main(cmd) == 130
     err = capsys.readouterr().err
     assert "interrupted" in err and f"3 of {N_FRAMES} frames" in err
-    monkeypatch.setattr(store.ResultsWriter, "write_frame", real)
+    monkeypatch.setattr(ResultsWriter, "write_frame", real)
     assert _n_done(out) == 3
 
     # other settings: one line naming the file and the setting, the 3 frames untouched

@@ -21,7 +21,7 @@ import dic
 from dic import export
 from dic.images import synth
 from dic.cli.report import register
-from dic.sequence.store import open_for_writing
+from dic.sequence import open_for_writing
 
 SHAPE = (80, 128)
 SCALE = 0.04
@@ -125,7 +125,7 @@ def test_npz_stacks_every_frame(run, tmp_path):
         # VSG = (window - 1) * step + subset (iDICs Good Practices Guide 2018)
         assert info["vsg_px"] == (5 - 1) * STEP + 15
         assert json.loads(str(z["settings"]))["subset"] == 15
-    assert not list(tmp_path.glob(".partial*"))  # temporary files cleaned up
+    assert not [q for q in tmp_path.iterdir() if "partial" in q.name]  # temporaries removed
 
 
 # --------------------------------------------------------------------------------------------

@@ -22,7 +22,7 @@ import dic
 from dic.images import synth
 from dic.cli.report import register
 from dic.report import CAUTIONS, write_report
-from dic.sequence.store import open_for_writing
+from dic.sequence import open_for_writing
 
 SHAPE = (96, 176)
 SCALE = 0.05

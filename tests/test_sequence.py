@@ -112,13 +112,13 @@ def test_resume_after_interruption_equals_uninterrupted(sequence, tmp_path, monk
     # Stop a run part-way (an exception after 5 written frames, as Ctrl-C would), run the same
     # call again: it continues after the last completed frame, and the file equals an
     # uninterrupted run.
-    from dic.sequence import store
+    from dic.sequence import Results, ResultsWriter
 
     folder, mask = sequence
     kw = dict(roi=mask, block=3, update_zncc=0.9999)
     full = dic.track(folder, tmp_path / "full.h5", **kw)
 
-    real = store.ResultsWriter.write_frame
+    real = ResultsWriter.write_frame
     calls = {"n": 0}
 
     def flaky(self, k, field, **kwargs):
@@ -127,11 +127,11 @@ def test_resume_after_interruption_equals_uninterrupted(sequence, tmp_path, monk
         calls["n"] += 1
         return real(self, k, field, **kwargs)
 
-    monkeypatch.setattr(store.ResultsWriter, "write_frame", flaky)
+    monkeypatch.setattr(ResultsWriter, "write_frame", flaky)
     with pytest.raises(KeyboardInterrupt):
         dic.track(folder, tmp_path / "part.h5", **kw)
-    monkeypatch.setattr(store.ResultsWriter, "write_frame", real)
-    assert len(store.Results.open(tmp_path / "part.h5")) == 5
+    monkeypatch.setattr(ResultsWriter, "write_frame", real)
+    assert len(Results.open(tmp_path / "part.h5")) == 5
     again = dic.track(folder, tmp_path / "part.h5", **kw)
     assert len(again) == N_FRAMES
     for k in range(N_FRAMES):

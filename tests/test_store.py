@@ -1,4 +1,4 @@
-"""Tests of dic.sequence.store: the results file, its layout, resume checks and crash safety.
+"""Tests of the results file (dic.sequence layout, writer, reader): resume checks, crash safety.
 
 Oracles: the deterministic frame generator in tests/_store_writer.py (what every stored frame
 must hold), plain h5py as an independent reader of the layout, an uninterrupted run for the
@@ -26,8 +26,10 @@ import pytest
 
 import _store_writer as sw
 from dic.field import DisplacementField
-from dic.sequence.store import FORMAT, FORMAT_VERSION, Results, ResultsWriter, results_info
-import dic.sequence.store as store
+import dic.sequence.layout as layout
+from dic.errors import ResultsMismatch
+from dic.sequence import (FORMAT, FORMAT_VERSION, Results, ResultsWriter, open_for_writing,
+                          results_info)
 
 HELPER = Path(__file__).with_name("_store_writer.py")
 N = 40  # frames in the subprocess runs
@@ -189,7 +191,7 @@ def test_every_stored_name_is_documented(tmp_path):
         w.write_frame(0, f, reference_index=0)
         w.write_strain("green_lagrange", 5, {c: np.zeros((4, 5)) for c in ("xx", "yy", "xy")},
                        attrs={"vsg": 61})
-    doc = store.__doc__
+    doc = layout.__doc__
     names = []
     with h5py.File(path, "r") as h:
         h.visit(names.append)
@@ -484,7 +486,7 @@ def test_sigkill_while_creating_leaves_no_file_or_a_whole_one(tmp_path):
             absent += 1
     assert absent >= 1  # kills before the rename leave no file at all (os.replace is atomic)
     debris = [q.name for q in tmp_path.iterdir()]
-    assert all(q.endswith(".partial") for q in debris)
+    assert all(q.startswith(".partial-") for q in debris)
     with sw.open_writer(path, 5, 4, 5, fsync=False) as w:  # a new create clears the debris
         sw.write_frames(w, 4, 5)
     assert sorted(q.name for q in tmp_path.iterdir()) == ["run.h5"]
@@ -681,7 +683,7 @@ def test_real_write_failures_keep_the_existing_file(tmp_path):
 import resource, signal, sys
 sys.path.insert(0, {str(HELPER.parent)!r})
 import numpy as np, _store_writer as sw
-from dic.sequence.store import ResultsWriter
+from dic.sequence import ResultsWriter
 signal.signal(signal.SIGXFSZ, signal.SIG_IGN)   # make write() fail with EFBIG instead
 resource.setrlimit(resource.RLIMIT_FSIZE, ({limit}, {limit}))
 x, y = sw.grid(60, 80); names, digests = sw.images(40)
@@ -796,13 +798,13 @@ def test_open_for_writing_creates_resumes_and_checks(tmp_path):
     mask = np.ones((60, 70), bool)
     kw = dict(settings=sw.SETTINGS, grid_x=x, grid_y=y, n_frames=4, image_names=names,
               image_sha256=digests, roi_mask=mask, scale_mm_per_px=0.02, fsync=False)
-    with store.open_for_writing(path, **kw) as w:
+    with open_for_writing(path, **kw) as w:
         assert w.n_done == 0
         for k in range(2):
             if k == 1:
                 w.add_reference_update(1)
             w.write_frame(k, sw.frame(k, 4, 5), reference_index=0)
-    with store.open_for_writing(path, **kw) as w:  # the same analysis: resumed
+    with open_for_writing(path, **kw) as w:  # the same analysis: resumed
         assert w.n_done == 2
         np.testing.assert_array_equal(w.reference_updates, [1])
         np.testing.assert_array_equal(w.read_field(1).u, sw.frame(1, 4, 5).u)
@@ -817,10 +819,13 @@ def test_open_for_writing_creates_resumes_and_checks(tmp_path):
                         ({"scale_mm_per_px": 0.03}, "scale_mm_per_px: 0.02 in file, 0.03 now"),
                         ({"settings": {**sw.SETTINGS, "step": 5}}, "step: 10 in file, 5 now")]:
         with pytest.raises(ValueError, match=msg) as e:
-            store.open_for_writing(path, **{**kw, **change})
+            open_for_writing(path, **{**kw, **change})
         assert "use a new --out file or the same settings" in str(e.value)
+        # a typed error carrying its advice, so that callers never match message text
+        assert isinstance(e.value, ResultsMismatch)
+        assert e.value.fix == "use a new --out file or the same settings"
     assert path.read_bytes() == before
-    with store.open_for_writing(path, **{**kw, "overwrite": True}) as w:
+    with open_for_writing(path, **{**kw, "overwrite": True}) as w:
         assert w.n_done == 0  # a new file replaced the old one
 
 

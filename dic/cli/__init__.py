@@ -28,7 +28,6 @@ from __future__ import annotations
 import argparse
 import glob
 import logging
-import os
 import sys
 import time
 from pathlib import Path
@@ -369,21 +368,6 @@ def _export_names(folder, image):
     return folder / f"displacements_{stem}.csv", folder / f"displacements_{stem}.png"
 
 
-def _replace_atomically(write, target):
-    """Write through ``write(temporary path)`` and rename over ``target``: never half a file."""
-    tmp = target.with_name(f".partial-{os.getpid()}-{target.name}")
-    try:
-        write(tmp)
-        os.replace(tmp, target)
-    except BaseException:
-        try:
-            tmp.unlink()
-        except OSError:
-            pass
-        raise
-    return target
-
-
 def _export(results, folder, reference_path, *, redo, bar, verbose, out):
     """Displacement table and map of every completed frame that lacks them.
 
@@ -392,6 +376,7 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out):
     from dic.export import field_to_csv
     from dic.images.io import read_image
     from dic.figures import displacement_map, save_figure
+    from dic.files import atomic_write
 
     st = results.settings
     frames, ref = st.get("frames", list(range(results.n_frames))), st.get("reference", 0)
@@ -426,14 +411,15 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out):
                 note["scale_mm_per_px"] = results.scale
             field.settings = note
             csv, png = _export_names(folder, names[k])
-            _replace_atomically(lambda p: field_to_csv(field, p), csv)
+            field_to_csv(field, csv)  # written atomically: never half a file
             n, nv = field.n_points, field.n_valid
             fig, _ = displacement_map(
                 field, reference_image, component="magnitude",
                 title=f"Displacement magnitude (px), {name} against "
                       f"{ref_name}\n{nv} of {n} points measured "
                       f"({100.0 * nv / max(n, 1):.1f} %)")
-            _replace_atomically(lambda p: save_figure(fig, p), png)
+            with atomic_write(png, None) as tmp:  # never half a file
+                save_figure(fig, tmp)
             written += 2
             if verbose:
                 _write_line(f"frame {k} ({name}): {field.summary()}", out)
@@ -472,7 +458,7 @@ def _write_line(text, out):
 
 def _frames_done(path):
     """Completed frames in a results file, or None if there is no readable one."""
-    from dic.sequence.store import Results
+    from dic.sequence import Results
 
     try:
         with Results.open(path) as r:
@@ -482,8 +468,8 @@ def _frames_done(path):
 
 
 def _run(args, out=None):
-    from dic.sequence.store import _FIX_IMAGES, _FIX_SETTINGS
-    from dic.sequence.track import track
+    from dic.errors import ResultsMismatch
+    from dic.sequence.tracker import track
 
     out = sys.stdout if out is None else out
 
@@ -511,14 +497,13 @@ def _run(args, out=None):
     t0 = time.perf_counter()
     try:
         try:
-            from dic.sequence.track import stop_on_interrupt
+            from dic.sequence.tracker import stop_on_interrupt
 
             with stop_on_interrupt():
                 results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
-        except ValueError as exc:
-            if str(exc).endswith((_FIX_SETTINGS, _FIX_IMAGES)):  # another analysis's file
-                raise ValueError(f"{exc}, or add --overwrite to replace it") from None
-            raise
+        except ResultsMismatch as exc:  # another analysis's file: --overwrite replaces it
+            raise ResultsMismatch(f"{exc}, or add --overwrite to replace it",
+                                  fix=f"{exc.fix}, or add --overwrite to replace it") from None
     except KeyboardInterrupt:
         done = _frames_done(h5)
         kept = (f"{done[0]} of {done[1]} frames are saved in '{h5}'; run the same command "
@@ -607,7 +592,7 @@ def _measured_share(path):
 
 
 def _info(args, out=None):
-    from dic.sequence.store import results_info
+    from dic.sequence import results_info
 
     out = sys.stdout if out is None else out
 

@@ -15,6 +15,7 @@ import sys
 from pathlib import Path
 
 from dic.cli.types import positive_float, positive_int, rectangle
+from dic.files import atomic_write
 
 __all__ = ["register", "run_pattern", "run_noise", "run_advise"]
 
@@ -66,7 +67,9 @@ def _write_json(path, data):
 
     p = Path(path)
     try:
-        p.write_text(json.dumps(clean(data), indent=2) + "\n", encoding="utf-8")
+        text = json.dumps(clean(data), indent=2) + "\n"
+        with atomic_write(p, encoding="utf-8") as fh:
+            fh.write(text)
     except OSError as exc:
         raise OSError(f"--json: cannot write '{p}' ({exc.strerror or exc}); check the folder")
 
@@ -76,7 +79,8 @@ def _save_figure(fig, path):
     if p.suffix.lower() not in (".png", ".svg", ".pdf"):
         raise ValueError(f"--figure: '{p}' must end in .png, .svg or .pdf")
     try:
-        fig.savefig(p, dpi=150)
+        with atomic_write(p, None) as tmp:
+            fig.savefig(tmp, dpi=150, format=p.suffix.lower()[1:])
     except OSError as exc:
         raise OSError(f"--figure: cannot write '{p}' ({exc.strerror or exc}); check the folder")
 

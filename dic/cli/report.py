@@ -165,7 +165,7 @@ def _as_option(exc):
 
 
 def _count(path):
-    from dic.sequence.store import Results
+    from dic.sequence import Results
 
     with Results.open(path) as r:
         return len(r)

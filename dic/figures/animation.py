@@ -69,7 +69,7 @@ def animate(results, path, *, component="xx", window=9, measure="green-lagrange"
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
         The results file.
     path : str or os.PathLike
         Output file ending in ``.gif`` or ``.mp4``; its folder must exist.

@@ -301,7 +301,7 @@ def find_image(results, k):
 
     Parameters
     ----------
-    results : dic.sequence.store.Results
+    results : dic.sequence.Results
     k : int or None
 
     Returns
@@ -350,11 +350,11 @@ def open_results(results):
 
     Parameters
     ----------
-    results : str, os.PathLike or dic.sequence.store.Results
+    results : str, os.PathLike or dic.sequence.Results
 
     Returns
     -------
-    res : dic.sequence.store.Results
+    res : dic.sequence.Results
     opened_here : bool
         True when ``res`` was opened from a path: the caller closes it.
 
@@ -367,10 +367,10 @@ def open_results(results):
     """
     if is_results(results):
         return results, False
-    from dic.sequence.store import Results
+    from dic.sequence import Results
 
     if not isinstance(results, (str, os.PathLike)):
-        raise ValueError(f"results must be a results file path or dic.sequence.store.Results; got "
+        raise ValueError(f"results must be a results file path or dic.sequence.Results; got "
                          f"{type(results).__name__}")
     return Results.open(results), True
 
@@ -385,7 +385,7 @@ def strain_limits(source, component="xx", *, frames=None, window=9, measure="gre
 
     Parameters
     ----------
-    source : dic.sequence.store.Results or iterable of dic.strain.StrainField
+    source : dic.sequence.Results or iterable of dic.strain.StrainField
         A results file opened with :func:`dic.load_results` (strain is computed frame by frame
         with ``window`` and ``measure``), or strain fields already computed.
     component : str, optional

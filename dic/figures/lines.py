@@ -194,7 +194,7 @@ def valid_counts(results):
 
     Parameters
     ----------
-    results : dic.sequence.store.Results
+    results : dic.sequence.Results
 
     Returns
     -------
@@ -229,7 +229,7 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
 
     Parameters
     ----------
-    source : dic.sequence.store.Results or array_like of int
+    source : dic.sequence.Results or array_like of int
         A results file, or the counts themselves (one per frame, from frame 0).
     total : int, optional
         Points that could have been measured (inside the region of interest); taken from the

@@ -224,7 +224,7 @@ def strain_map(strain, image=None, *, component="xx", field=None, configuration=
     Parameters
     ----------
     strain : dic.strain.StrainField
-        From :func:`dic.strain_field` or :meth:`dic.sequence.store.Results.strain`.
+        From :func:`dic.strain_field` or :meth:`dic.sequence.Results.strain`.
     image : array_like or path, optional
         Drawn in grey underneath: the reference image for ``configuration="reference"``, the
         frame's own (deformed) image for ``"deformed"``.

@@ -515,6 +515,8 @@ def write_image(path, array, *, bits=8):
         raise FileNotFoundError(
             f"path: folder '{p.parent}' does not exist; create it before writing '{p.name}'"
         )
+    from dic.files import atomic_write
+
     try:
         if ext == ".png":
             import cv2
@@ -523,11 +525,14 @@ def write_image(path, array, *, bits=8):
             ok, buf = cv2.imencode(".png", np.ascontiguousarray(bgr))
             if not ok:
                 raise ImageError("OpenCV could not encode the PNG")
-            buf.tofile(p)
+            with atomic_write(p, "wb") as fh:  # never half an image
+                fh.write(buf.tobytes())
         else:
             import tifffile
 
-            tifffile.imwrite(p, data, photometric="rgb" if data.ndim == 3 else "minisblack")
+            with atomic_write(p, "wb") as fh:
+                tifffile.imwrite(fh, data,
+                                 photometric="rgb" if data.ndim == 3 else "minisblack")
     except OSError as exc:
         raise ImageError(
             f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder permissions "

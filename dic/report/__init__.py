@@ -14,7 +14,6 @@ write_report
 
 from __future__ import annotations
 
-import os
 
 from dic.export import out_folder
 from dic.report._content import CAUTIONS, SECTION_TITLES, build_document
@@ -26,15 +25,12 @@ REPORT_NAMES = ("report.html", "report.pdf")
 
 
 def _replace(target, write):
-    tmp = target.with_name(f".partial-{os.getpid()}-{target.name}")
+    from dic.files import atomic_write
+
     try:
-        write(tmp)
-        os.replace(tmp, target)
+        with atomic_write(target, None) as tmp:
+            write(tmp)
     except OSError as exc:
-        try:
-            tmp.unlink()
-        except OSError:
-            pass
         raise OSError(f"out_dir: cannot write '{target}' ({exc.strerror or exc}); check the "
                       f"folder permissions and free space") from None
     return target
@@ -99,7 +95,7 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1 (reporting of analysis settings,
        VSG, noise floor, spatial resolution).
     """
-    from dic.sequence.store import Results
+    from dic.sequence import Results
     from dic.report._html import render_html
     from dic.report._pdf import render_pdf
 

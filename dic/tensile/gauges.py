@@ -354,7 +354,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
 
     Parameters
     ----------
-    source : dic.sequence.store.Results, DisplacementField or list of DisplacementField
+    source : dic.sequence.Results, DisplacementField or list of DisplacementField
         Tracked results (Lagrangian: every frame on the reference grid).
     gauges : GaugeLine, AreaGauge, PointProbe or a list of them
         Names must be distinct.

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from dic import __version__
+from dic.files import atomic_write
 
 __all__ = ["History", "CAUTION"]
 
@@ -142,7 +143,8 @@ class History:
         for i, k in enumerate(self.frame):
             lines.append(",".join([str(int(k))] + [_num(c[i]) for c in cols]))
         try:
-            p.write_text("\n".join(lines) + "\n", encoding="utf-8")
+            with atomic_write(p, encoding="utf-8") as fh:
+                fh.write("\n".join(lines) + "\n")
         except OSError as exc:
             raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
                           "and permissions") from None

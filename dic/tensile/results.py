@@ -21,6 +21,7 @@ from pathlib import Path
 import numpy as np
 
 from dic import __version__
+from dic.files import atomic_write
 from dic.tensile import fits
 from dic import __version__
 from dic.tensile.histories import CAUTION
@@ -290,7 +291,8 @@ def _csv_cell(text) -> str:
 def _write(path, text) -> Path:
     p = Path(os.fspath(path))
     try:
-        p.write_text(text, encoding="utf-8")
+        with atomic_write(p, encoding="utf-8") as fh:
+            fh.write(text)
     except OSError as exc:
         raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder and "
                       "permissions") from None

@@ -203,7 +203,7 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
     ISO 6892-1 (proof strength, Rm, Ag), ASTM E111 (modulus), ASTM E132 (Poisson's ratio),
     ISO 10275 (n), ISO 10113 (r): see :func:`dic.tensile.results.tensile_results`.
     """
-    from dic.sequence.track import load_results
+    from dic.sequence.tracker import load_results
     from dic.tensile import gauges as G
     from dic.tensile.forcelog import read_force_log
     from dic.tensile.forcesync import image_times_from_files, read_frame_times, synchronise

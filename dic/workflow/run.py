@@ -9,6 +9,8 @@ from __future__ import annotations
 import logging
 from pathlib import Path
 
+from dic.files import atomic_write
+
 __all__ = ["finish", "tensile_outputs", "settings_self_check"]
 
 log = logging.getLogger(__name__)
@@ -47,7 +49,7 @@ def settings_self_check(results_path, strain: dict):
     is not among the analysed files or is no longer readable)."""
     from dic.images.io import read_image
     from dic.metrology import self_check
-    from dic.sequence.track import load_results
+    from dic.sequence.tracker import load_results
 
     with load_results(results_path) as res:
         st = res.settings
@@ -78,7 +80,7 @@ def _noise_floor(results_path, out_dir, settings, written):
 
     from dic.images.io import list_images
     from dic.metrology import noise_floor
-    from dic.sequence.track import load_results, resolve_images
+    from dic.sequence.tracker import load_results, resolve_images
 
     imgs = settings["noise"]["images"]
     paths = resolve_images(imgs) if not isinstance(imgs, str) else list_images(imgs)
@@ -91,7 +93,9 @@ def _noise_floor(results_path, out_dir, settings, written):
                         shape_function=st.get("shape_function", "affine"),
                         interpolation=st.get("interpolation", "quintic"))
     target = Path(out_dir) / "noise_floor.json"
-    target.write_text(json.dumps(floor.as_dict(), indent=2, default=str), encoding="utf-8")
+    text = json.dumps(floor.as_dict(), indent=2, default=str)
+    with atomic_write(target, encoding="utf-8") as fh:
+        fh.write(text)
     written["noise_floor"] = target
     return floor
 

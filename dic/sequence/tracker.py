@@ -286,7 +286,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
     Returns
     -------
-    dic.sequence.store.Results
+    dic.sequence.Results
         The results, read back from the file.
 
     References
@@ -294,8 +294,9 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     .. [1] B. Pan, "Reliability-guided digital image correlation for image deformation
        measurement", Applied Optics 48 (2009) 1535-1542.
     """
-    from dic.sequence import store
     from dic.images.roi import make_roi
+    from dic.sequence.reader import Results
+    from dic.sequence.writer import open_for_writing
 
     items = resolve_images(images)
     n_img = len(items)
@@ -323,11 +324,10 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
     # the grid of points, as dic.correlate lays it out (no matching needed for that), after
     # the same checks of the options that dic.correlate makes
-    from dic.matching import check_options, prepare_grid
+    from dic.matching import INTERPOLATIONS, check_options, edge_margin, prepare_grid
 
     check_options(subset, step, shape_function, interpolation, search, min_zncc, 50, 3e-3,
-                   0.02)
-    from dic.matching import INTERPOLATIONS, edge_margin
+                  0.02)
 
     xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
                           edge_margin(INTERPOLATIONS[settings.interpolation]))[:2]
@@ -340,7 +340,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     _WORKER_CACHE[("stage", reference)] = matcher0
     del matcher0, ref_img
 
-    writer = store.open_for_writing(
+    writer = open_for_writing(
         out, settings=record, grid_x=grid_x, grid_y=grid_y, n_frames=len(order),
         image_names=names, image_sha256=shas, roi_mask=mask, scale_mm_per_px=scale,
         overwrite=overwrite)
@@ -361,12 +361,12 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
             bar.close()
         executor.shutdown(cancel_futures=stopped)  # on Ctrl-C or an error: no waiting work
         writer.close()
-    return store.Results.open(out)
+    return Results.open(out)
 
 
 def load_results(path):
-    """Open a results file written by :func:`track` (see :class:`dic.sequence.store.Results`)."""
-    from dic.sequence.store import Results
+    """Open a results file written by :func:`track` (see :class:`dic.sequence.Results`)."""
+    from dic.sequence.reader import Results
 
     return Results.open(path)
 

@@ -1,0 +1,301 @@
+"""Safe writing of files: never half a file, never a stale temporary.
+
+Every writer of an output file goes through :func:`atomic_write`: the content goes into a
+temporary file beside the target (same folder, so the same file system), which is flushed,
+synced to disk and renamed over the target with ``os.replace`` (atomic on POSIX and Windows).
+A failed or interrupted write removes the temporary and leaves the target as it was.
+
+The other helpers are the pieces the results file (:mod:`dic.sequence.writer`) builds on:
+temporary names (:func:`partial_name`) and the removal of those a killed writer left
+(:func:`remove_stale_partials`), syncing files and folders, the writer's exclusive lock, and
+the check that the target's folder exists.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import errno
+import os
+import re
+from pathlib import Path
+
+from dic.errors import FileProblem
+
+__all__ = ["PARTIAL_PREFIX", "atomic_write", "check_folder", "fsync_file", "fsync_folder",
+           "is_disk_full", "lock_file", "partial_name", "remove_stale_partials", "sparse_copy",
+           "unlock_file"]
+
+#: temporary files are named ``.partial-<process id>-<target name>`` (the target's extension
+#: stays last, so writers that choose a format by the extension still work)
+PARTIAL_PREFIX = ".partial-"
+
+
+def partial_name(path) -> Path:
+    """The temporary file of this process for ``path``, in the same folder.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file.
+
+    Returns
+    -------
+    pathlib.Path
+        ``<folder>/.partial-<pid>-<name>``.
+    """
+    p = Path(os.fspath(path))
+    return p.with_name(f"{PARTIAL_PREFIX}{os.getpid()}-{p.name}")
+
+
+def fsync_file(path) -> None:
+    """Flush a closed file's data to the disk (``os.fsync``).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+    """
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        os.fsync(fd)
+    finally:
+        os.close(fd)
+
+
+def fsync_folder(folder) -> None:
+    """Make a rename inside ``folder`` durable; silently does nothing where that is impossible.
+
+    Parameters
+    ----------
+    folder : str or os.PathLike
+    """
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
+
+
+def remove_stale_partials(path) -> None:
+    """Remove temporary files for ``path`` that writers no longer running left behind.
+
+    Temporaries of processes still alive are kept.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file whose temporaries to look for.
+    """
+    p = Path(os.fspath(path))
+    pattern = re.compile("^" + re.escape(PARTIAL_PREFIX) + r"(\d+)-" + re.escape(p.name) + "$")
+    try:
+        entries = list(p.parent.iterdir())
+    except OSError:
+        return
+    for entry in entries:
+        m = pattern.match(entry.name)
+        if not m:
+            continue
+        pid = int(m.group(1))
+        if pid != os.getpid():
+            try:
+                os.kill(pid, 0)
+                continue  # that process still lives: leave its file alone
+            except ProcessLookupError:
+                pass
+            except PermissionError:
+                continue
+        try:
+            entry.unlink()
+        except OSError:
+            pass
+
+
+def check_folder(path, action: str) -> None:
+    """Check that the folder of ``path`` exists and is a folder.
+
+    Parameters
+    ----------
+    path : pathlib.Path
+        The file about to be written.
+    action : str
+        What is being done, for the message, e.g. ``"create results file"``.
+
+    Raises
+    ------
+    FileNotFoundError
+        The folder does not exist.
+    NotADirectoryError
+        It is not a folder.
+    """
+    p = Path(os.fspath(path))
+    folder = p.parent
+    if not folder.exists():
+        raise FileNotFoundError(f"cannot {action} '{p}': folder '{folder}' does not exist; "
+                                "create it or choose another --out")
+    if not folder.is_dir():
+        raise NotADirectoryError(f"cannot {action} '{p}': '{folder}' is not a folder; choose "
+                                 "another --out")
+
+
+def is_disk_full(exc: BaseException) -> bool:
+    """True if ``exc`` reports a full disk (``ENOSPC``, also inside HDF5's error text)."""
+    if isinstance(exc, OSError) and exc.errno == errno.ENOSPC:
+        return True
+    text = str(exc)
+    return f"errno = {errno.ENOSPC}," in text or os.strerror(errno.ENOSPC) in text
+
+
+def lock_file(path, label: str = "file"):
+    """Take an exclusive advisory lock (``flock``) on an existing file.
+
+    A second writer fails at once; the kernel drops the lock when the process ends, however it
+    ends.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file to lock.
+    label : str, optional
+        What the file is, for messages (``"results file"``).
+
+    Returns
+    -------
+    int or None
+        The descriptor holding the lock (give it to :func:`unlock_file`), or None where the
+        system has no such locks.
+
+    Raises
+    ------
+    FileNotFoundError
+        The file does not exist.
+    dic.errors.FileProblem
+        Another process holds the lock, or the file cannot be opened.
+    """
+    try:
+        import fcntl  # noqa: PLC0415 -- POSIX only
+    except ImportError:
+        return None
+    p = Path(os.fspath(path))
+    try:
+        fd = os.open(p, os.O_RDONLY)
+    except FileNotFoundError:
+        raise FileNotFoundError(f"cannot open {label} '{p}': no such file; check the "
+                                "path") from None
+    except OSError as exc:
+        raise FileProblem(f"cannot open {label} '{p}' ({' '.join(str(exc).split())}); check "
+                          "the path") from None
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+    except BlockingIOError:
+        os.close(fd)
+        raise FileProblem(f"cannot open {label} '{p}' for writing: another process has it "
+                          "open; wait for it to finish or stop it") from None
+    except OSError:
+        return fd  # the file system has no locks: carry on without
+    return fd
+
+
+def unlock_file(fd) -> None:
+    """Release a lock from :func:`lock_file` (closing its descriptor); None is ignored."""
+    if fd is not None:
+        os.close(fd)
+
+
+def sparse_copy(src, dst) -> None:
+    """Copy a file, skipping holes where the system can find them (unused space stays unused).
+
+    Parameters
+    ----------
+    src, dst : pathlib.Path
+        Source and destination (``dst`` is overwritten).
+    """
+    size = os.stat(src).st_size
+    with open(src, "rb") as fi, open(dst, "wb") as fo:
+        fdi = fi.fileno()
+        pos = 0
+        while pos < size:
+            try:
+                start = os.lseek(fdi, pos, os.SEEK_DATA)
+                end = os.lseek(fdi, start, os.SEEK_HOLE)
+            except (AttributeError, OSError) as exc:  # no hole finding, or no data left
+                if isinstance(exc, OSError) and exc.errno == errno.ENXIO:  # only a hole left
+                    break
+                start, end = pos, size
+            fi.seek(start)
+            fo.seek(start)
+            left = end - start
+            while left > 0:
+                block = fi.read(min(left, 1 << 22))
+                if not block:
+                    break
+                fo.write(block)
+                left -= len(block)
+            pos = end
+        fo.truncate(size)
+
+
+@contextlib.contextmanager
+def atomic_write(path, mode="w", *, encoding="utf-8", newline=None, fsync=True):
+    """Write a file through a temporary beside it that replaces it only when complete.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file; its folder must exist.
+    mode : {"w", "wb", None}, optional
+        ``"w"`` (text, default) or ``"wb"`` (binary): the block gets an open file object.
+        None: the block gets the temporary's path, for writers that need a file name (HDF5,
+        matplotlib); they must have closed it when the block ends. The temporary keeps the
+        target's extension.
+    encoding : str, optional
+        Text mode only; default UTF-8.
+    newline : str, optional
+        Text mode only; as for :func:`open`.
+    fsync : bool, optional
+        Sync the temporary and the folder to disk (default True), so that a power cut leaves
+        the old file or the new one.
+
+    Yields
+    ------
+    file object or pathlib.Path
+
+    Raises
+    ------
+    OSError
+        As raised by the writing; the temporary is removed and the target is unchanged.
+
+    Examples
+    --------
+    >>> with atomic_write(folder / "table.csv", newline="\\n") as fh:  # doctest: +SKIP
+    ...     fh.write("x,y\\n")
+    """
+    if mode not in ("w", "wb", None):
+        raise ValueError(f"mode: {mode!r} is not 'w', 'wb' or None; pick one")
+    p = Path(os.fspath(path))
+    tmp = partial_name(p)
+    try:
+        if mode is None:
+            yield tmp
+            if fsync:
+                fsync_file(tmp)  # after the writer closed it: its last records are in
+        else:
+            kw = dict(encoding=encoding, newline=newline) if mode == "w" else {}
+            with open(tmp, mode, **kw) as fh:
+                yield fh
+                fh.flush()
+                if fsync:
+                    os.fsync(fh.fileno())
+        os.replace(tmp, p)
+    except BaseException:
+        try:
+            tmp.unlink()
+        except OSError:
+            pass
+        raise
+    if fsync:
+        fsync_folder(p.parent)
