@@ -265,9 +265,9 @@ title = "test"
 # output folder, progress bar
 # --------------------------------------------------------------------------------------------
 def test_output_folder_gets_results_file_tables_and_maps(frames, tmp_path, capsys, monkeypatch):
-    import dic.cli
+    import dic.cli.run
 
-    monkeypatch.setattr(dic.cli, "_terminal", lambda: True)  # draw the bars as on a terminal
+    monkeypatch.setattr(dic.cli.run, "_terminal", lambda: True)  # draw the bars as on a terminal
     out = tmp_path / "results"
     assert main(["run", str(frames), "--out", str(out), "--frames", "0:4"]) == 0
     captured = capsys.readouterr()

@@ -189,7 +189,7 @@ def run_advise(args, out=None) -> int:
     """``dic advise``: print the proposed settings; 0 on success (also when no setting
     reaches the target: the advice then says so and shows the best reachable)."""
     from dic.metrology import advise
-    from dic.metrology._advise import SUBSETS, WINDOWS
+    from dic.metrology import ADVICE_SUBSETS as SUBSETS, ADVICE_WINDOWS as WINDOWS
 
     out = sys.stdout if out is None else out
     if args.target_noise is None and args.target_resolution is None:

@@ -7,7 +7,7 @@ import numpy as np
 
 from dic.errors import RegionTooSmall
 
-from dic.matching._icgn import INTERPOLATIONS, SHAPE_FUNCTIONS, edge_margin
+from dic.matching._icgn import INTERPOLATIONS, SHAPE_FUNCTIONS
 
 __all__ = ["check_int", "check_options", "prepare_grid"]
 

@@ -29,6 +29,8 @@ from __future__ import annotations
 from dic.matching import (gradient_noise_gain, image_noise, pair_noise, point_sigma,
                           predicted_sigma)
 
+from dic.metrology._advise import SUBSETS as ADVICE_SUBSETS
+from dic.metrology._advise import WINDOWS as ADVICE_WINDOWS
 from dic.metrology._advise import Advice, advise
 from dic.metrology._floor import NoiseFloor, noise_floor
 from dic.metrology._pattern import (PatternQuality, mean_intensity_gradient, pattern_quality, speckle_size,
@@ -39,6 +41,7 @@ from dic.metrology._transfer import attenuation_period, displacement_transfer, s
 __all__ = [
     "pattern_quality", "PatternQuality", "mean_intensity_gradient", "sssig_maps", "speckle_size",
     "image_noise", "pair_noise", "noise_floor", "NoiseFloor", "point_sigma", "predicted_sigma",
-    "gradient_noise_gain", "self_check", "SelfCheck", "advise", "Advice",
+    "gradient_noise_gain", "self_check", "SelfCheck", "advise", "Advice", "ADVICE_SUBSETS",
+    "ADVICE_WINDOWS",
     "displacement_transfer", "strain_transfer", "attenuation_period",
 ]

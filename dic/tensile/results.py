@@ -23,7 +23,6 @@ import numpy as np
 from dic import __version__
 from dic.files import atomic_write
 from dic.tensile import fits
-from dic import __version__
 from dic.tensile.histories import CAUTION
 
 __all__ = ["tensile_results", "TensileResults", "Value", "engineering_stress",

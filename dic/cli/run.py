@@ -1,0 +1,580 @@
+"""The ``dic run`` and ``dic info`` commands: an image sequence into a results file, and a
+summary of one.
+
+``register(subparsers)`` adds both commands; with ``--config`` and an output folder, ``dic run``
+goes on to what the analysis file's ``[tensile]`` and ``[report]`` tables ask for
+(:func:`dic.workflow.run.finish`).
+"""
+
+from __future__ import annotations
+
+import argparse
+import glob
+import logging
+import sys
+import time
+from pathlib import Path
+
+from dic.cli.types import numbers, positive_float, positive_int, rectangle
+
+__all__ = ["register", "RESULTS_NAME"]
+
+EXIT_OK, EXIT_INTERRUPTED = 0, 130
+
+log = logging.getLogger("dic.cli")
+
+#: name of the results file inside an output folder
+RESULTS_NAME = "results.h5"
+_RESULTS_SUFFIXES = (".h5", ".hdf5")
+
+# defaults of dic.track, shown in --help and used when neither option nor analysis file sets one
+_DEFAULTS = dict(subset=21, step=10, shape_function="affine", interpolation="quintic",
+                 min_zncc=0.9, search=60, block=8, reference=0)
+_STRAIN_DEFAULTS = dict(window=9, measure="green-lagrange")
+
+
+# --------------------------------------------------------------------------------------------
+# argument parsing
+# --------------------------------------------------------------------------------------------
+
+
+def register(subparsers):
+    """Add the ``run`` and ``info`` commands to an argparse sub-parsers object."""
+    _add_run(subparsers)
+    _add_info(subparsers)
+
+
+def _scale_line(text):
+    values = numbers(text, 5, "X0,Y0,X1,Y1,MM", "69.5,120,569.5,120,40", unit="px and mm")
+    from dic.workflow.config import scale_from_line
+
+    try:
+        return scale_from_line(values[:4], values[4])
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def _frame_range(text):
+    """``START:STOP:STRIDE`` (any part may be empty, as in a Python slice) -> slice."""
+    parts = str(text).split(":")
+    try:
+        if not 1 <= len(parts) <= 3 or (len(parts) == 1 and not parts[0].strip()):
+            raise ValueError
+        values = [int(p) if p.strip() else None for p in parts]
+    except ValueError:
+        raise argparse.ArgumentTypeError(
+            f"expected START:STOP:STRIDE (image positions from 0, STOP not included; parts may "
+            f"be left out, e.g. 0:40, 10:, ::2); got {text!r}") from None
+    if len(values) == 1:  # one number: that image only
+        return slice(values[0], None if values[0] == -1 else values[0] + 1, None)
+    values += [None] * (3 - len(values))
+    if values[2] is not None and values[2] < 1:
+        raise argparse.ArgumentTypeError(f"STRIDE must be at least 1; got {text!r}")
+    return slice(*values)
+
+
+def _measure(text):
+    from dic.strain import canonical_measure
+
+    try:
+        return canonical_measure(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+
+
+def _add_run(commands):
+    d = _DEFAULTS
+    run = commands.add_parser(
+        "run", help="track an image sequence into a results file",
+        description="Track a sequence of images: every image is matched against the reference "
+                    "image (the first one, or --reference), each starting from the previous "
+                    "image's result; when the match degrades the reference moves on and the "
+                    "displacements are carried back to the first reference (Lagrangian). The "
+                    "results go into one HDF5 results file, frame by frame: a run that is "
+                    "stopped (Ctrl-C, a crash, a full disk) keeps every completed frame, and "
+                    "the same command run again carries on after the last one.",
+        epilog="Folders and quoted patterns ('frames/*.tif') are listed in natural order "
+               "(img2 before img10); separate arguments keep the order given. Points are in "
+               "reference-image pixels: x is the column, y the row (downwards). Options "
+               "override the analysis file (--config). Exit codes: 0 done, 2 bad input, "
+               "130 interrupted.")
+    run.add_argument("images", nargs="*", metavar="IMAGES",
+                     help="image files, folders or glob patterns (PNG, TIFF, BMP, JPEG); "
+                          "default: 'images' of the analysis file")
+    run.add_argument("--config", metavar="TOML", type=Path,
+                     help="analysis file with the settings (TOML; see the README)")
+    run.add_argument("--out", metavar="PATH",
+                     help="results file if it ends in .h5, else an output folder that receives "
+                          f"{RESULTS_NAME} plus a displacement table (CSV) and map (PNG) per "
+                          "image (created if missing); default: 'out' of the analysis file")
+    run.add_argument("--reference", type=int, metavar="N",
+                     help="position of the reference image in the image list, from 0 "
+                          f"(default: {d['reference']}, the first)")
+    run.add_argument("--frames", type=_frame_range, metavar="START:STOP:STRIDE",
+                     help="analyse only these image positions, as a Python slice (STOP not "
+                          "included), e.g. 0:100:2 (default: all)")
+    m = run.add_argument_group("matching")
+    m.add_argument("--subset", type=int, metavar="PX",
+                   help=f"subset size in px, odd, at least 7 (default: {d['subset']})")
+    m.add_argument("--step", type=int, metavar="PX",
+                   help=f"grid spacing in px (default: {d['step']})")
+    where = m.add_mutually_exclusive_group()
+    where.add_argument("--roi", type=rectangle, metavar="X0,Y0,X1,Y1",
+                       help="measure inside this rectangle only (px, corners included)")
+    where.add_argument("--roi-mask", metavar="PATH",
+                       help="measure where this mask image (same size) is non-zero")
+    m.add_argument("--shape-function", choices=("affine", "quadratic"),
+                   help=f"subset shape function (default: {d['shape_function']})")
+    m.add_argument("--interpolation", choices=("quintic", "cubic"),
+                   help=f"B-spline interpolation of the deformed image (default: "
+                        f"{d['interpolation']})")
+    m.add_argument("--min-zncc", type=float, metavar="Z",
+                   help=f"reject matches with a lower ZNCC (default: {d['min_zncc']})")
+    m.add_argument("--search", type=int, metavar="PX",
+                   help=f"seed search radius in px for the first image (default: {d['search']})")
+    m.add_argument("--block", type=positive_int, metavar="N",
+                   help=f"images per block of parallel work; part of the settings, since it "
+                        f"fixes which image each one starts from (default: {d['block']})")
+    s = run.add_argument_group("scale and strain")
+    scale = s.add_mutually_exclusive_group()
+    scale.add_argument("--scale", type=positive_float, metavar="MM_PER_PX",
+                       help="image scale in mm per pixel, stored with the results")
+    scale.add_argument("--scale-line", type=_scale_line, metavar="X0,Y0,X1,Y1,MM",
+                       help="image scale from two points (px) a known distance (mm) apart")
+    s.add_argument("--strain-window", type=int, metavar="N",
+                   help="also compute and store strain for every frame, over a window of N x N "
+                        f"grid points (odd, at least 3; default with --strain-measure: "
+                        f"{_STRAIN_DEFAULTS['window']})")
+    s.add_argument("--strain-measure", type=_measure, metavar="NAME",
+                   help="strain measure to store: green-lagrange, infinitesimal, "
+                        "euler-almansi, hencky or engineering (default with --strain-window: "
+                        f"{_STRAIN_DEFAULTS['measure']})")
+    p = run.add_argument_group("where to run")
+    here = p.add_mutually_exclusive_group()
+    here.add_argument("--workers", type=positive_int, metavar="N",
+                      help="N single-threaded worker processes, each on blocks of images "
+                           "(default: this process, the matching on all cores)")
+    here.add_argument("--cluster", metavar="ADDRESS",
+                      help="run blocks of images on this Dask scheduler, e.g. "
+                           "tcp://10.0.0.5:8786 (needs dask.distributed)")
+    run.add_argument("--overwrite", action="store_true",
+                     help="replace an existing results file instead of resuming it")
+    talk = run.add_mutually_exclusive_group()
+    talk.add_argument("--quiet", "-q", action="store_true",
+                      help="no progress bar, print errors and warnings only")
+    talk.add_argument("--verbose", "-v", action="store_true",
+                      help="print more detail (one line per frame, reference changes)")
+    run.set_defaults(func=_run)
+
+
+def _add_info(commands):
+    info = commands.add_parser(
+        "info", help="summarise a results file",
+        description="Print a summary of a results file: frames done and planned, point grid, "
+                    "settings, reference changes, scale, stored strain, and the share of "
+                    "measured points per frame.")
+    info.add_argument("results", metavar="RESULTS",
+                      help=f"results file, or an output folder holding {RESULTS_NAME}")
+    info.set_defaults(func=_info)
+
+
+# --------------------------------------------------------------------------------------------
+# the run command: settings
+# --------------------------------------------------------------------------------------------
+def _collect_images(arguments):
+    """Image paths from files, folders and patterns: argument order, natural order within each.
+
+    Paths are made absolute, so that the same images give the same results file (and resume)
+    whether named on the command line or in an analysis file.
+    """
+    from dic.images.io import list_images
+
+    found, seen = [], set()
+    for arg in arguments:
+        p = Path(arg)
+        if p.is_file():
+            paths = [p]
+        elif p.is_dir() or glob.has_magic(str(arg)):
+            try:
+                paths = list_images(arg)
+            except FileNotFoundError as exc:
+                raise FileNotFoundError(
+                    "images: " + str(exc).removeprefix("pattern_or_folder: ")) from None
+        else:
+            raise FileNotFoundError(f"images: no such file or folder '{arg}'; check the path")
+        for q in paths:
+            key = q.resolve()
+            if key not in seen:
+                seen.add(key)
+                found.append(key)
+    return found
+
+
+def _analysis(args):
+    """Merged settings: analysis file first, then the options given on the command line.
+
+    Returns ``(images, out, kwargs, after)``: ``kwargs`` for :func:`dic.track`, ``after`` the
+    analysis file's ``tensile`` and ``report`` tables (for :func:`dic.workflow.run.finish`).
+    """
+    from dic.workflow.config import load_analysis
+
+    conf = load_analysis(args.config) if args.config is not None else {}
+    source = f"the analysis file '{args.config}'" if args.config is not None else None
+
+    if args.images:
+        images = list(args.images)
+    elif "images" in conf:
+        images = [conf["images"]] if isinstance(conf["images"], str) else list(conf["images"])
+    else:
+        raise ValueError("images: none given; name image files, a folder or a pattern, or set "
+                         "images = \"frames/*.tif\" in the analysis file (--config)")
+    out = args.out if args.out is not None else conf.get("out")
+    if out is None:
+        raise ValueError("--out: not given; pass --out run.h5 (results file) or --out FOLDER, "
+                         "or set out = \"run.h5\" in the analysis file (--config)")
+
+    kw = {}
+    for key in ("reference", "frames", "subset", "step", "shape_function", "interpolation",
+                "min_zncc", "search", "block", "roi", "scale", "workers", "cluster"):
+        if key in conf:
+            kw[key] = conf[key]
+    given = dict(reference=args.reference, frames=args.frames, subset=args.subset,
+                 step=args.step, shape_function=args.shape_function,
+                 interpolation=args.interpolation, min_zncc=args.min_zncc, search=args.search,
+                 block=args.block, workers=args.workers, cluster=args.cluster)
+    if args.roi is not None or args.roi_mask is not None:
+        given["roi"] = args.roi if args.roi is not None else args.roi_mask
+    if args.scale is not None or args.scale_line is not None:
+        given["scale"] = args.scale if args.scale is not None else args.scale_line
+    if args.workers is not None:  # one place to run: the command line's choice wins
+        kw.pop("cluster", None)
+    if args.cluster is not None:
+        kw.pop("workers", None)
+    kw.update({k: v for k, v in given.items() if v is not None})
+
+    strain = dict(conf.get("strain", {}))
+    if args.strain_window is not None:
+        strain["window"] = args.strain_window
+    if args.strain_measure is not None:
+        strain["measure"] = args.strain_measure
+    if strain:
+        # every key spelled out, so that the stored settings (compared on resume) are the
+        # same however they were given
+        strain = {**_STRAIN_DEFAULTS, **strain}
+        strain["measure"] = _checked_measure(strain["measure"], source)
+        w = strain["window"]
+        if isinstance(w, bool) or not isinstance(w, int) or w < 3 or w % 2 == 0:
+            raise ValueError(f"strain window: {w!r} is not an odd whole number of at least 3; "
+                             f"use e.g. --strain-window 9")
+        kw["strain"] = strain
+    after = {k: conf[k] for k in ("tensile", "report") if k in conf}
+    if after:
+        after["strain"] = kw.get("strain", {})
+    return images, out, kw, after
+
+
+def _checked_measure(name, source):
+    from dic.strain import canonical_measure
+
+    try:
+        return canonical_measure(name)
+    except ValueError as exc:
+        where = f" (in {source})" if source else ""
+        raise ValueError(f"strain measure{where}: {exc}") from None
+
+
+def _outputs(out):
+    """(results file, output folder or None) for ``--out``."""
+    p = Path(out)
+    if p.suffix.lower() in _RESULTS_SUFFIXES:
+        if p.is_dir():
+            raise ValueError(f"--out: '{p}' is a folder; give a results file name ending in "
+                             f".h5 or a folder name without that ending")
+        return p, None
+    if p.exists() and not p.is_dir():
+        raise ValueError(f"--out: '{p}' is a file but not a results file (.h5); give a "
+                         f"folder, or a results file name ending in .h5")
+    return p / RESULTS_NAME, p
+
+
+def _check_plan(images, kw, folder):
+    """Checks that are cheap and must come before anything is written."""
+    n = len(images)
+    if n < 2:
+        raise ValueError(f"images: found {n} image; give a reference image and at least one "
+                         f"image to compare with it")
+    ref = kw.get("reference", 0)
+    if isinstance(ref, bool) or not isinstance(ref, int) or not 0 <= ref < n:
+        raise ValueError(f"--reference: {ref!r} is not a position in the list of {n} images; "
+                         f"use 0 to {n - 1}")
+    frames = kw.get("frames")
+    if frames is not None and not list(range(n))[frames]:
+        raise ValueError(f"--frames: {frames.start}:{frames.stop}:{frames.step} selects none "
+                         f"of the {n} images; use positions from 0 to {n - 1}")
+    if folder is not None:
+        chosen = [images[k] for k in (range(n) if frames is None else range(n)[frames])
+                  if k != ref]
+        stems = {}
+        for p in chosen:
+            if p.stem in stems:
+                raise ValueError(f"images: '{stems[p.stem]}' and '{p}' share the name "
+                                 f"'{p.stem}', so their tables and maps would overwrite each "
+                                 f"other; rename one, or give --out a results file (.h5)")
+            stems[p.stem] = p
+
+
+# --------------------------------------------------------------------------------------------
+# the run command: per-frame exports into the output folder
+# --------------------------------------------------------------------------------------------
+def _export_names(folder, image):
+    stem = Path(image).stem
+    return folder / f"displacements_{stem}.csv", folder / f"displacements_{stem}.png"
+
+
+def _export(results, folder, reference_path, *, redo, bar, verbose, out):
+    """Displacement table and map of every completed frame that lacks them.
+
+    Returns the number of files written.
+    """
+    from dic.export import field_to_csv
+    from dic.images.io import read_image
+    from dic.figures import displacement_map, save_figure
+    from dic.files import atomic_write
+
+    st = results.settings
+    frames, ref = st.get("frames", list(range(results.n_frames))), st.get("reference", 0)
+    names = results.image_names
+    ref_name = Path(reference_path).name
+    todo = []
+    for k in range(len(results)):
+        if frames[k] == ref:
+            continue
+        csv, png = _export_names(folder, names[k])
+        if redo or not (csv.is_file() and png.is_file()):
+            todo.append(k)
+    if not todo:
+        return 0
+    reference_image = None
+    written = 0
+    refs = results.reference_indices
+    progress = _bar(total=len(todo), desc="exporting", enabled=bar)
+    try:
+        for k in todo:
+            field = results.field(k)
+            if reference_image is None:
+                reference_image = read_image(reference_path, name="reference image")
+            name = Path(names[k]).name
+            against = int(refs[k])
+            note = dict(image=name, reference_image=ref_name)
+            if against != ref:
+                note["matched_against"] = f"image {against}"
+            note.update({key: st[key] for key in ("subset", "step", "shape_function",
+                                                  "interpolation", "min_zncc") if key in st})
+            if results.scale is not None:
+                note["scale_mm_per_px"] = results.scale
+            field.settings = note
+            csv, png = _export_names(folder, names[k])
+            field_to_csv(field, csv)  # written atomically: never half a file
+            n, nv = field.n_points, field.n_valid
+            fig, _ = displacement_map(
+                field, reference_image, component="magnitude",
+                title=f"Displacement magnitude (px), {name} against "
+                      f"{ref_name}\n{nv} of {n} points measured "
+                      f"({100.0 * nv / max(n, 1):.1f} %)")
+            with atomic_write(png, None) as tmp:  # never half a file
+                save_figure(fig, tmp)
+            written += 2
+            if verbose:
+                _write_line(f"frame {k} ({name}): {field.summary()}", out)
+            if progress is not None:
+                progress.update(1)
+    finally:
+        if progress is not None:
+            progress.close()
+    return written
+
+
+# --------------------------------------------------------------------------------------------
+# the run command
+# --------------------------------------------------------------------------------------------
+def _terminal():
+    """True when stderr is a terminal (the progress bars are drawn only there)."""
+    try:
+        return sys.stderr.isatty()
+    except (AttributeError, ValueError):
+        return False
+
+
+def _bar(*, total, desc, enabled):
+    if not enabled:
+        return None
+    from tqdm import tqdm
+
+    return tqdm(total=total, desc=desc, unit="frame", file=sys.stderr, dynamic_ncols=True)
+
+
+def _write_line(text, out):
+    from tqdm import tqdm
+
+    tqdm.write(text, file=out)
+
+
+def _frames_done(path):
+    """Completed frames in a results file, or None if there is no readable one."""
+    from dic.sequence import Results
+
+    try:
+        with Results.open(path) as r:
+            return len(r), r.n_frames
+    except (OSError, ValueError, KeyError):
+        return None
+
+
+def _run(args, out=None):
+    from dic.errors import ResultsMismatch
+    from dic.sequence.tracker import track
+
+    out = sys.stdout if out is None else out
+
+    images, target, kw, after = _analysis(args)
+    h5, folder = _outputs(target)
+    paths = _collect_images(images)
+    _check_plan(paths, kw, folder)
+    show = not args.quiet
+    bar = show and _terminal()
+
+    made_folder = None
+    if folder is not None and not folder.is_dir():
+        try:
+            folder.mkdir(parents=True)
+        except OSError as exc:
+            raise OSError(f"--out: cannot create folder '{folder}' ({exc.strerror or exc}); "
+                          f"choose another folder") from None
+        made_folder = folder
+    before = None if args.overwrite else _frames_done(h5) if h5.exists() else None
+    if before is not None and before[0]:
+        log.info("%s holds %d of %d frames; carrying on after frame %d", h5, before[0],
+                 before[1], before[0] - 1)
+    log.info("%d images, results file %s, settings %s", len(paths), h5,
+             {k: v for k, v in kw.items() if k not in ("roi",)})
+    t0 = time.perf_counter()
+    try:
+        try:
+            from dic.sequence.tracker import stop_on_interrupt
+
+            with stop_on_interrupt():
+                results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
+        except ResultsMismatch as exc:  # another analysis's file: --overwrite replaces it
+            raise ResultsMismatch(f"{exc}, or add --overwrite to replace it",
+                                  fix=f"{exc.fix}, or add --overwrite to replace it") from None
+    except KeyboardInterrupt:
+        done = _frames_done(h5)
+        kept = (f"{done[0]} of {done[1]} frames are saved in '{h5}'; run the same command "
+                f"again to carry on" if done else "nothing was saved")
+        print(f"dic: interrupted; {kept}", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    except BaseException:
+        if made_folder is not None:
+            try:
+                made_folder.rmdir()  # only if still empty: leave no empty folder behind
+            except OSError:
+                pass
+        raise
+    elapsed = time.perf_counter() - t0
+    try:
+        n, nf = len(results), results.n_frames
+        new = n - (before[0] if before else 0)
+        updates = [int(u) for u in results.reference_updates]
+        written = 0
+        if folder is not None:
+            written = _export(results, folder, paths[kw.get("reference", 0)],
+                              redo=before is None, bar=bar,
+                              verbose=args.verbose and show, out=out)
+        elif args.verbose and show:
+            for k in range(n):
+                _write_line(f"frame {k} ({Path(results.image_names[k]).name}): "
+                            f"{results.field(k).summary()}", out)
+        if show:
+            rate = f", {new / elapsed:.2f} frames/s" if new and elapsed > 0 else ""
+            kept = f" ({n - new} were already done)" if n - new else ""
+            print(f"tracked {new} frame(s) in {elapsed:.1f} s{rate}{kept}: {n} of {nf} frames "
+                  f"in '{h5}'", file=out)
+            if updates:
+                print("reference image changed at frames " + ", ".join(map(str, updates)),
+                      file=out)
+            if n:
+                print(f"last frame ({Path(results.image_names[n - 1]).name}): "
+                      f"{results.field(n - 1).summary()}", file=out)
+            if folder is not None:
+                print(f"wrote {written} files (displacement tables as CSV and maps as PNG) to "
+                      f"'{folder}'" if written else
+                      f"displacement tables and maps in '{folder}' were already up to date",
+                      file=out)
+    except KeyboardInterrupt:
+        print(f"dic: interrupted while writing tables and maps; all {len(results)} frames are "
+              f"saved in '{h5}'; run the same command again to finish them", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    finally:
+        results.close()
+    if folder is not None and after and n == nf:
+        # the analysis file asks for more: tensile results and the report, into the folder
+        from dic.workflow.run import finish
+
+        try:
+            done = finish(h5, folder, after)
+        except KeyboardInterrupt:
+            print(f"dic: interrupted while writing the tensile results and report; all {n} "
+                  f"frames are saved in '{h5}'", file=sys.stderr)
+            return EXIT_INTERRUPTED
+        if show:
+            for name in ("tensile", "report_html", "report_pdf"):
+                if name in done:
+                    print(f"wrote {done[name]}", file=out)
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------------------------
+# the info command
+# --------------------------------------------------------------------------------------------
+def _measured_share(path):
+    """One line: share of measured points per frame (min, median, max), read frame by frame."""
+    import h5py
+    import numpy as np
+
+    with h5py.File(path, "r", locking=False) as f:
+        n = int(f["n_done"][()])
+        if not n:
+            return None
+        reason = f["frames/reason"]
+        total = int(np.prod(reason.shape[1:]))
+        share = np.array([np.count_nonzero(reason[k] == 0) / total for k in range(n)])
+    lo, hi = int(np.argmin(share)), int(np.argmax(share))
+    return (f"measured points per frame (of {total}): lowest {100 * share[lo]:.1f} % "
+            f"(frame {lo}), median {100 * np.median(share):.1f} %, highest "
+            f"{100 * share[hi]:.1f} % (frame {hi})")
+
+
+def _info(args, out=None):
+    from dic.sequence import results_info
+
+    out = sys.stdout if out is None else out
+
+    p = Path(args.results)
+    if p.is_dir():
+        if not (p / RESULTS_NAME).is_file():
+            raise FileNotFoundError(f"RESULTS: folder '{p}' holds no {RESULTS_NAME}; give a "
+                                    f"results file or the --out folder of a run")
+        p = p / RESULTS_NAME
+    elif not p.exists():
+        raise FileNotFoundError(f"RESULTS: no such file '{p}'; check the path")
+    text = results_info(p)
+    print(text, file=out)
+    share = _measured_share(p)
+    if share:
+        print(share, file=out)
+    return EXIT_OK
+
+
+# --------------------------------------------------------------------------------------------
+# entry point
+# --------------------------------------------------------------------------------------------
