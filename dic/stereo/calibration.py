@@ -190,20 +190,21 @@ def _view_rms(obj, img, rvec, tvec, K, dist):
     return float(np.sqrt(np.mean(np.sum((p.reshape(-1, 2) - img) ** 2, axis=1))))
 
 
-def _calibrate_one(obj, pts, idx, size):
+def _calibrate_one(obj, pts, idx, size, flags):
     import cv2
 
     K0 = np.eye(3)
     rms, K, dist, rvecs, tvecs = cv2.calibrateCamera(
         [o.astype(np.float32) for o in obj], [p.astype(np.float32) for p in pts], size, K0,
-        np.zeros(5), criteria=(cv2.TERM_CRITERIA_COUNT + cv2.TERM_CRITERIA_EPS, 200, 1e-12))
+        np.zeros(5), flags=flags,
+        criteria=(cv2.TERM_CRITERIA_COUNT + cv2.TERM_CRITERIA_EPS, 200, 1e-12))
     per = {i: _view_rms(o, p, r, t, K, dist) for i, o, p, r, t in zip(idx, obj, pts, rvecs,
                                                                         tvecs)}
     return float(rms), K, dist.ravel(), per
 
 
 def calibrate(left_images, right_images=None, *, target="chessboard", inner_corners,
-              square_mm, max_error=0.5, names=None):
+              square_mm, fit_k3=False, max_error=0.5, names=None):
     """Calibrate one camera, or two cameras and their relative pose, from target photographs.
 
     Parameters
@@ -218,6 +219,11 @@ def calibrate(left_images, right_images=None, *, target="chessboard", inner_corn
         ``(cols, rows)`` of inner corners of the chessboard (squares minus one each way).
     square_mm : float
         Side of one square, mm.
+    fit_k3 : bool, optional
+        Also fit the sixth-order radial term ``k3``. Off by default (``k3 = 0``): ordinary lenses
+        need only ``k1, k2``, and a free ``k3`` fitted to targets that do not reach the image
+        corners extrapolates badly there (OpenCV's documentation advises the same for
+        non-fish-eye lenses). Turn it on for wide-angle lenses with targets filling the corners.
     max_error : float, optional
         A view whose reprojection RMS (px) exceeds both this and three times the median of the
         views fits badly: the worst such view is left out, listed in ``rejected``, and the
@@ -266,6 +272,7 @@ def calibrate(left_images, right_images=None, *, target="chessboard", inner_corn
                  for i, im in enumerate(left)]
     names = tuple(str(n) for n in names)
     obj = chessboard_corners((cols, rows), float(square_mm))
+    flags = 0 if fit_k3 else cv2.CALIB_FIX_K3
     cams = [left] if right is None else [left, right]
     corners = [[None] * len(left) for _ in cams]
     sizes = [None] * len(cams)
@@ -292,7 +299,8 @@ def calibrate(left_images, right_images=None, *, target="chessboard", inner_corn
         if len(use) < _MIN_VIEWS:
             raise TooFewPoints(f"only {len(use)} usable calibration views (at least "
                                f"{_MIN_VIEWS} needed); photograph the target in more poses")
-        fits = [_calibrate_one([obj] * len(use), [corners[c][i] for i in use], use, sizes[c])
+        fits = [_calibrate_one([obj] * len(use), [corners[c][i] for i in use], use, sizes[c],
+                              flags)
                 for c in range(len(cams))]
         # one bad view inflates the others' errors too: leave out the worst one, then refit
         worst, err = max(((i, max(f[3][i] for f in fits)) for i in use), key=lambda t: t[1])
