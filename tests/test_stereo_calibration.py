@@ -15,7 +15,7 @@ cv2 = pytest.importorskip("cv2")
 from dic.errors import InputError, TooFewPoints  # noqa: E402
 from dic.stereo import calibrate, find_corners, load_calibration, save_calibration  # noqa: E402
 from dic.stereo.camera import Camera, rotation_matrix  # noqa: E402
-from dic.stereo.render import chessboard_corners, render_chessboard  # noqa: E402
+from dic.stereo.render import chessboard_corners, render_chessboard, target_poses  # noqa: E402
 
 IC = (9, 6)
 SQ = 10.0
@@ -35,24 +35,10 @@ def rig():
     return left, right
 
 
-def poses(n=9, seed=1):
-    """Target poses spread over the common field of view (tilts up to 26 degrees)."""
-    rng = np.random.default_rng(seed)
-    ctr = np.array([4 * SQ, 2.5 * SQ, 0.0])
-    out = []
-    for k in range(n):
-        rv = rng.uniform(-0.45, 0.45, 3)
-        rv[2] *= 0.5
-        Rb = rotation_matrix(rv)
-        P = np.array([rng.uniform(-12, 12), rng.uniform(-9.6, 9.6), rng.uniform(270, 330)])
-        out.append((Rb, P - Rb @ ctr))
-    return out
-
-
 @pytest.fixture(scope="module")
 def views():
     left, right = rig()
-    ps = poses()
+    ps = target_poses(12, IC, SQ, lateral=25.0, seed=1)
     L = [render_chessboard(left, p, IC, SQ) for p in ps]
     R = [render_chessboard(right, p, IC, SQ) for p in ps]
     return left, right, ps, L, R

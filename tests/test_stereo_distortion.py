@@ -18,7 +18,8 @@ import dic  # noqa: E402
 from dic.errors import InputError  # noqa: E402
 from dic.stereo import calibrate, undistort_displacements, undistort_points  # noqa: E402
 from dic.stereo.camera import Camera, rotation_matrix  # noqa: E402
-from dic.stereo.render import Plate, render_chessboard, render_surface, surface_speckle  # noqa: E402
+from dic.stereo.render import (Plate, render_chessboard, render_surface,  # noqa: E402
+                               surface_speckle, target_poses)
 
 K = np.array([[700.0, 0, 203.0], [0, 702.0, 151.0], [0, 0, 1]])
 # barrel distortion: about -3 % at the image corners
@@ -44,22 +45,6 @@ def local_strain(X, Y, U, V, w=7):
     return np.array(out)
 
 
-def target_poses(n=12, seed=1, lateral=35.0):
-    """Target poses over all four quadrants of the view, so the fit reaches the corners."""
-    rng = np.random.default_rng(seed)
-    ctr = np.array([4 * SQ, 2.5 * SQ, 0.0])
-    out = []
-    for k in range(n):
-        rv = rng.uniform(-0.45, 0.45, 3)
-        rv[2] *= 0.5
-        Rb = rotation_matrix(rv)
-        sx, sy = [(1, 1), (-1, 1), (1, -1), (-1, -1)][k % 4]
-        P = np.array([sx * rng.uniform(0.4, 1.0) * lateral,
-                      sy * rng.uniform(0.3, 0.75) * lateral, rng.uniform(270, 330)])
-        out.append((Rb, P - Rb @ ctr))
-    return out
-
-
 def test_undistort_points_inverts_the_camera_model():
     rng = np.random.default_rng(0)
     P = np.column_stack([rng.uniform(-80, 80, 300), rng.uniform(-60, 60, 300),
@@ -83,7 +68,8 @@ def test_distortion_correction_removes_false_strain():
     assert np.isfinite(f.u).mean() > 0.8
     X, Y = f.x.astype(float), f.y.astype(float)
 
-    cal = calibrate([render_chessboard(CAM, p, IC, SQ) for p in target_poses()],
+    poses = target_poses(12, IC, SQ, lateral=35.0, seed=1)
+    cal = calibrate([render_chessboard(CAM, p, IC, SQ) for p in poses],
                     inner_corners=IC, square_mm=SQ)
     assert cal.rejected == () and cal.rms <= 0.1
 

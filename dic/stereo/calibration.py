@@ -2,7 +2,7 @@
 
 One camera: intrinsics and lens distortion (Zhang's method, ``cv2.calibrateCamera``). Two cameras
 photographed together: each camera on its own first, then the pose of the right camera relative
-to the left (``cv2.stereoCalibrate`` with the intrinsics held). Views where the target is not
+to the left refined together with both cameras' intrinsics (``cv2.stereoCalibrate``). Views where the target is not
 found, or whose corners fit the model badly, are left out and listed with the reason.
 
 References
@@ -204,7 +204,7 @@ def _calibrate_one(obj, pts, idx, size, flags):
 
 
 def calibrate(left_images, right_images=None, *, target="chessboard", inner_corners,
-              square_mm, fit_k3=False, max_error=0.5, names=None):
+              square_mm, fit_k3=False, jointly=True, max_error=0.5, names=None):
     """Calibrate one camera, or two cameras and their relative pose, from target photographs.
 
     Parameters
@@ -224,6 +224,10 @@ def calibrate(left_images, right_images=None, *, target="chessboard", inner_corn
         need only ``k1, k2``, and a free ``k3`` fitted to targets that do not reach the image
         corners extrapolates badly there (OpenCV's documentation advises the same for
         non-fish-eye lenses). Turn it on for wide-angle lenses with targets filling the corners.
+    jointly : bool, optional
+        Two cameras: refine both cameras' intrinsics and distortion together with their
+        relative pose (``cv2.stereoCalibrate`` started from the single-camera fits), so that
+        every view constrains both cameras. With False the single-camera intrinsics are held.
     max_error : float, optional
         A view whose reprojection RMS (px) exceeds both this and three times the median of the
         views fits badly: the worst such view is left out, listed in ``rejected``, and the
@@ -325,10 +329,15 @@ def calibrate(left_images, right_images=None, *, target="chessboard", inner_corn
     l32 = [corners[0][i].astype(np.float32) for i in use]
     r32 = [corners[1][i].astype(np.float32) for i in use]
     crit = (cv2.TERM_CRITERIA_COUNT + cv2.TERM_CRITERIA_EPS, 200, 1e-12)
-    out = cv2.stereoCalibrate(o32, l32, r32, cam_fits[0].matrix, cam_fits[0].distortion,
-                              cam_fits[1].matrix, cam_fits[1].distortion, sizes[0],
-                              flags=cv2.CALIB_FIX_INTRINSIC, criteria=crit)
+    sflags = cv2.CALIB_USE_INTRINSIC_GUESS | flags if jointly else cv2.CALIB_FIX_INTRINSIC
+    out = cv2.stereoCalibrate(o32, l32, r32, cam_fits[0].matrix.copy(),
+                              cam_fits[0].distortion.copy(), cam_fits[1].matrix.copy(),
+                              cam_fits[1].distortion.copy(), sizes[0], flags=sflags,
+                              criteria=crit)
     rms, R, T = float(out[0]), out[5], out[6].ravel()
+    if jointly:
+        cam_fits = tuple(CameraFit(out[1 + 2 * c], out[2 + 2 * c].ravel(), f.size, f.rms,
+                                   f.view_rms) for c, f in enumerate(cam_fits))
     view = {}
     for i in use:
         ok, rv, tv = cv2.solvePnP(obj, corners[0][i], cam_fits[0].matrix, cam_fits[0].distortion)

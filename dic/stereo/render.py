@@ -34,7 +34,7 @@ from dic.errors import InputError
 from dic.stereo.camera import Camera
 
 __all__ = ["Plate", "Cylinder", "SurfaceSpeckle", "surface_speckle", "render_surface",
-           "render_chessboard", "chessboard_corners"]
+           "render_chessboard", "chessboard_corners", "target_poses"]
 
 
 def _rot(R):
@@ -315,3 +315,36 @@ def render_chessboard(camera: Camera, pose, inner_corners, square_mm, *, supersa
         sy = iy[a:a + chunk, None] + oy.ravel()[None, :]
         img[iy[a:a + chunk], ix[a:a + chunk]] = value(sx, sy).mean(axis=1)
     return img
+
+
+def target_poses(n, inner_corners, square_mm, *, distance=300.0, lateral=25.0, tilt=0.45,
+                 seed=0):
+    """Poses of a calibration target spread over the four quadrants of the view.
+
+    The target's centre sits at ``(x, y, z)`` in the world (mm) with ``z`` within 10 % of
+    ``distance``, and ``x``, ``y`` in the quadrants in turn, up to ``lateral`` (``0.75 lateral``
+    for ``y``) from the axis, so the fit reaches the image corners where distortion is largest;
+    the target is tilted by a random rotation vector with components up to ``tilt`` rad (half
+    that about its normal).
+
+    Returns
+    -------
+    list of (rotation, translation)
+        For :func:`render_chessboard`.
+    """
+    from dic.stereo.camera import rotation_matrix
+
+    cols, rows = inner_corners
+    rng = np.random.default_rng(seed)
+    ctr = np.array([(cols - 1) * square_mm / 2, (rows - 1) * square_mm / 2, 0.0])
+    out = []
+    for k in range(n):
+        rv = rng.uniform(-tilt, tilt, 3)
+        rv[2] *= 0.5
+        Rb = rotation_matrix(rv)
+        sx, sy = [(1, 1), (-1, 1), (1, -1), (-1, -1)][k % 4]
+        P = np.array([sx * rng.uniform(0.4, 1.0) * lateral,
+                      sy * rng.uniform(0.3, 0.75) * lateral,
+                      distance * rng.uniform(0.9, 1.1)])
+        out.append((Rb, P - Rb @ ctr))
+    return out
