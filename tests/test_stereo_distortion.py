@@ -78,7 +78,8 @@ def test_distortion_correction_removes_false_strain():
     exact = local_strain(*undistort_displacements(X, Y, f.u, f.v, CAM))
     for name, e in (("no correction", raw), ("calibrated", fixed), ("true lens", exact)):
         print(f"{name:14s} false strain rms {np.sqrt(np.mean(e**2)) * 1e6:8.1f} µε, "
-              f"95 % {np.percentile(np.abs(e), 95) * 1e6:8.1f} µε, max {np.abs(e).max() * 1e6:8.1f}")
+              f"95 % {np.percentile(np.abs(e), 95) * 1e6:8.1f} µε, "
+              f"max {np.abs(e).max() * 1e6:8.1f}")
     # bar of the issue: false strain of a rigid in-plane motion below 50 µε with the
     # calibration (zero strain of a rigid motion: common practice, no source)
     assert np.sqrt(np.mean(fixed**2)) < 50e-6

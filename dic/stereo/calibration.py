@@ -2,8 +2,9 @@
 
 One camera: intrinsics and lens distortion (Zhang's method, ``cv2.calibrateCamera``). Two cameras
 photographed together: each camera on its own first, then the pose of the right camera relative
-to the left refined together with both cameras' intrinsics (``cv2.stereoCalibrate``). Views where the target is not
-found, or whose corners fit the model badly, are left out and listed with the reason.
+to the left refined together with both cameras' intrinsics (``cv2.stereoCalibrate``). Views
+where the target is not found, or whose corners fit the model badly, are left out and listed
+with the reason.
 
 References
 ----------
