@@ -15,32 +15,13 @@ cv2 = pytest.importorskip("cv2")
 from dic.errors import InputError, TooFewPoints  # noqa: E402
 from dic.stereo import calibrate, find_corners, load_calibration, save_calibration  # noqa: E402
 from dic.stereo.camera import Camera, rotation_matrix  # noqa: E402
-from dic.stereo.render import chessboard_corners, render_chessboard, target_poses  # noqa: E402
-
-IC = (9, 6)
-SQ = 10.0
-KL = np.array([[700.0, 0, 205.0], [0, 703.0, 148.0], [0, 0, 1]])
-KR = np.array([[690.0, 0, 196.0], [0, 694.0, 153.0], [0, 0, 1]])
-DL = [-0.12, 0.05, 0.001, -0.0005, 0.0]
-DR = [-0.08, 0.03, -0.0007, 0.0004, 0.0]
-BASELINE = 100.0
-
-
-def rig():
-    """Left camera at the world origin; right camera 100 mm to its right, aimed at 300 mm."""
-    phi = np.arctan2(-BASELINE, 300.0)
-    R = rotation_matrix([0.0, -phi, 0.0])
-    left = Camera(KL, DL, (400, 300))
-    right = Camera(KR, DR, (400, 300), R, -R @ np.array([BASELINE, 0.0, 0.0]))
-    return left, right
-
+from dic.stereo.render import chessboard_corners  # noqa: E402
+from stereo_rig import BASELINE, DL, IC, KL, KR, SQ, rig, target_views  # noqa: E402
 
 @pytest.fixture(scope="module")
 def views():
     left, right = rig()
-    ps = target_poses(12, IC, SQ, lateral=25.0, seed=1)
-    L = [render_chessboard(left, p, IC, SQ) for p in ps]
-    R = [render_chessboard(right, p, IC, SQ) for p in ps]
+    ps, L, R = target_views()
     return left, right, ps, L, R
 
 

@@ -1,4 +1,4 @@
-"""3-D stage: camera calibration, lens-distortion correction and (later) stereo matching.
+"""3-D stage: camera calibration, lens-distortion correction, stereo matching, surface strain.
 
 Modules
 -------
@@ -11,6 +11,13 @@ calfile
     :func:`load_calibration`.
 undistort
     Measured points and displacements corrected for lens distortion.
+match
+    The left reference grid matched into the right image (epipolar starting guess) and into a
+    deformed pair.
+triangulation
+    3-D positions in the left camera's frame, with the gap between the two rays.
+surface
+    Surface strain: the deformation gradient in the local tangent plane.
 render
     Exact images of speckled surfaces and chessboard targets through posed cameras (tests,
     the sample).
@@ -31,8 +38,15 @@ _LAZY = {
     "load_calibration": "dic.stereo.calfile",
     "undistort_points": "dic.stereo.undistort",
     "undistort_displacements": "dic.stereo.undistort",
+    "match_cameras": "dic.stereo.match",
+    "match_frame": "dic.stereo.match",
+    "triangulate": "dic.stereo.triangulation",
+    "grid_points": "dic.stereo.triangulation",
+    "surface_strain": "dic.stereo.surface",
+    "surface_gradient": "dic.stereo.surface",
 }
-_MODULES = ("camera", "calibration", "calfile", "undistort", "render")
+_MODULES = ("camera", "calibration", "calfile", "undistort", "render", "match", "triangulation",
+            "surface")
 
 __all__ = list(_LAZY)
 
