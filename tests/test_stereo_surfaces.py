@@ -12,6 +12,8 @@ and 2 % along its axis checks the surface strain on a curved surface.
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 
@@ -19,8 +21,8 @@ cv2 = pytest.importorskip("cv2")
 
 import dic  # noqa: E402
 from dic.errors import InputError  # noqa: E402
-from dic.stereo import (calibrate, grid_points, match_cameras, match_frame,  # noqa: E402
-                        surface_strain, triangulate)
+from dic.stereo import (StereoReason, calibrate, grid_points, match_cameras,  # noqa: E402
+                        match_frame, surface_strain, triangulate)
 from dic.stereo.calibration import Calibration, CameraFit  # noqa: E402
 from dic.stereo.camera import rotation_matrix  # noqa: E402
 from dic.stereo.render import Cylinder, Plate, render_surface, surface_speckle  # noqa: E402
@@ -66,13 +68,14 @@ def measured(cal):
     Ld, Rd = render_surface(left, DEF, sp), render_surface(right, DEF, sp)
     stereo = match_cameras(Lr, Rr, cal, subset=SUBSET, step=STEP)
     fl, fr = match_frame(Lr, Ld, Rd, stereo, subset=SUBSET, step=STEP)
-    P0, gap0 = grid_points(cal, stereo)
-    P1, gap1 = grid_points(cal, fr, fl)
+    P0, gap0, why0 = grid_points(cal, stereo)
+    P1, gap1, why1 = grid_points(cal, fr, fl)
     # truth: the material point each left reference pixel sees
     X, Y = stereo.x.astype(float), stereo.y.astype(float)
     o, d = left.rays(X, Y)
     s1, s2, _ = REF.intersect(o, d)
     return dict(cal=cal, stereo=stereo, left=fl, P0=P0, P1=P1, gap=np.fmax(gap0, gap1),
+                why=(why0, why1),
                 T0=REF.position(s1, s2), T1=DEF.position(s1, s2))
 
 
@@ -133,6 +136,22 @@ def test_shape_and_displacement(measured):
     assert w_err <= 0.01
     # the rays of a true match meet: the gap is far below the grid spacing (~4 mm)
     assert np.nanmax(m["gap"]) < 0.05
+    # every point without a position says why; here only points one camera missed
+    for why, P in zip(m["why"], (m["P0"], m["P1"])):
+        lost = ~np.all(np.isfinite(P), -1)
+        assert np.all((why == StereoReason.MEASURED) == ~lost)
+        assert set(np.unique(why[lost])) <= {StereoReason.LEFT_ONLY, StereoReason.RIGHT_ONLY,
+                                             StereoReason.NEITHER}
+
+
+def test_false_matches_are_marked(measured):
+    m = measured
+    stereo = m["stereo"]
+    v = stereo.v.copy()
+    v[2, 3] += 2.0                 # 2 px off the epipolar line: about 0.9 mm between the rays
+    P, gap, why = grid_points(m["cal"], dataclasses.replace(stereo, v=v))
+    assert why[2, 3] == StereoReason.RAYS_APART and np.all(np.isnan(P[2, 3]))
+    assert np.sum(why == StereoReason.RAYS_APART) == 1
 
 
 def test_surface_strain_against_two_d(measured):

@@ -42,6 +42,7 @@ _LAZY = {
     "match_frame": "dic.stereo.match",
     "triangulate": "dic.stereo.triangulation",
     "grid_points": "dic.stereo.triangulation",
+    "StereoReason": "dic.stereo.triangulation",
     "surface_strain": "dic.stereo.surface",
     "surface_gradient": "dic.stereo.surface",
 }

@@ -14,11 +14,13 @@ References
 
 from __future__ import annotations
 
+import enum
+
 import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["triangulate", "ray_gap", "grid_points"]
+__all__ = ["triangulate", "ray_gap", "grid_points", "StereoReason"]
 
 
 def _normalised(x, y, fit):
@@ -103,7 +105,17 @@ def triangulate(calibration, xl, yl, xr, yr):
     return pts.reshape(shape + (3,)), gap.reshape(shape)
 
 
-def grid_points(calibration, right, left=None):
+class StereoReason(enum.IntEnum):
+    """Why a grid point has no 3-D position (to join :class:`dic.field.Reason` later)."""
+
+    MEASURED = 0
+    LEFT_ONLY = 1          # matched in the left image but not in the right one
+    RIGHT_ONLY = 2         # matched in the right image but not in the left one
+    NEITHER = 3            # matched in neither image
+    RAYS_APART = 4         # the two rays pass further apart than max_gap_px allows
+
+
+def grid_points(calibration, right, left=None, *, max_gap_px=0.5):
     """3-D positions of a grid of points from their matches in the two cameras.
 
     Parameters
@@ -117,16 +129,34 @@ def grid_points(calibration, right, left=None):
     left : DisplacementField, optional
         Positions in the left image of the deformed state; None for the reference state (the
         grid itself).
+    max_gap_px : float, optional
+        Points whose two rays pass further apart than this many pixels of the left camera at
+        the point's depth (``gap * f / Z``) are poorly triangulated -- a false match, or a
+        calibration that no longer fits -- and get no position. A true match with a good
+        calibration leaves a few hundredths of a pixel.
 
     Returns
     -------
     points : ndarray, shape (ny, nx, 3)
-        ``X, Y, Z`` in the left camera's frame, mm; NaN where either camera has no match.
+        ``X, Y, Z`` in the left camera's frame, mm; NaN where not measured.
     gap : ndarray, shape (ny, nx)
-        Distance between the two rays, mm: large values mean a false match or a poor
-        calibration.
+        Distance between the two rays, mm (NaN where a camera has no match).
+    reason : ndarray of int8, shape (ny, nx)
+        A :class:`StereoReason` for every point.
     """
     x = right.x.astype(np.float64)
     y = right.y.astype(np.float64)
     xl, yl = (x, y) if left is None else (x + left.u, y + left.v)
-    return triangulate(calibration, xl, yl, x + right.u, y + right.v)
+    xr, yr = x + right.u, y + right.v
+    pts, gap = triangulate(calibration, xl, yl, xr, yr)
+    in_l = np.isfinite(xl) & np.isfinite(yl)
+    in_r = np.isfinite(xr) & np.isfinite(yr)
+    reason = np.select([in_l & in_r, in_l, in_r],
+                       [StereoReason.MEASURED, StereoReason.LEFT_ONLY, StereoReason.RIGHT_ONLY],
+                       StereoReason.NEITHER).astype(np.int8)
+    f = float(calibration.cameras[0].matrix[0, 0])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        apart = (reason == StereoReason.MEASURED) & ~(gap * f / pts[..., 2] <= max_gap_px)
+    reason[apart] = StereoReason.RAYS_APART
+    pts[reason != StereoReason.MEASURED] = np.nan
+    return pts, gap, reason
