@@ -1,0 +1,60 @@
+"""3-D stage: camera calibration, lens-distortion correction, stereo matching, surface strain.
+
+Modules
+-------
+camera
+    Pinhole camera with OpenCV's distortion model: projection, rays, exact undistortion.
+calibration
+    :func:`calibrate` from chessboard photographs (OpenCV), the :class:`Calibration` result.
+calfile
+    The calibration file (TOML of our own layout): :func:`save_calibration`,
+    :func:`load_calibration`.
+undistort
+    Measured points and displacements corrected for lens distortion.
+match
+    The left reference grid matched into the right image (epipolar starting guess) and into a
+    deformed pair.
+triangulation
+    3-D positions in the left camera's frame, with the gap between the two rays.
+surface
+    Surface strain: the deformation gradient in the local tangent plane.
+render
+    Exact images of speckled surfaces and chessboard targets through posed cameras (tests,
+    the sample).
+
+The names load on first use, so importing this package stays light.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+_LAZY = {
+    "Camera": "dic.stereo.camera",
+    "calibrate": "dic.stereo.calibration",
+    "Calibration": "dic.stereo.calibration",
+    "find_corners": "dic.stereo.calibration",
+    "save_calibration": "dic.stereo.calfile",
+    "load_calibration": "dic.stereo.calfile",
+    "undistort_points": "dic.stereo.undistort",
+    "undistort_displacements": "dic.stereo.undistort",
+    "match_cameras": "dic.stereo.match",
+    "match_frame": "dic.stereo.match",
+    "triangulate": "dic.stereo.triangulation",
+    "grid_points": "dic.stereo.triangulation",
+    "StereoReason": "dic.stereo.triangulation",
+    "surface_strain": "dic.stereo.surface",
+    "surface_gradient": "dic.stereo.surface",
+}
+_MODULES = ("camera", "calibration", "calfile", "undistort", "render", "match", "triangulation",
+            "surface")
+
+__all__ = list(_LAZY)
+
+
+def __getattr__(name):
+    if name in _LAZY:
+        return getattr(importlib.import_module(_LAZY[name]), name)
+    if name in _MODULES:
+        return importlib.import_module(f"{__name__}.{name}")
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
