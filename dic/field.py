@@ -87,9 +87,12 @@ class DisplacementField:
     settings : dict
         The settings that produced the field (subset, step, shape function, criterion, ...).
     sigma_u, sigma_v : ndarray, shape (ny, nx), or None
-        Predicted standard deviation (px) of ``u`` and ``v`` at every point from image noise,
-        from each subset's Gauss-Newton Hessian (see :func:`dic.metrology.point_sigma`); NaN
-        where not measured. None when the field was not made by :func:`dic.correlate`.
+        Standard deviation (px) of ``u`` and ``v`` at every point: from the residual of the
+        converged match (a-posteriori Gauss-Newton covariance,
+        :func:`dic.matching.posterior_sigma`), or, when the image noise was given, predicted
+        from it and each subset's Hessian (:func:`dic.matching.point_sigma`);
+        ``settings["sigma_from"]`` says which. NaN where not measured. None when the field was
+        not made by :func:`dic.correlate`.
     shape_order : ndarray of int8, shape (ny, nx), or None
         Order of the subset shape function used at each point (1 first, 2 second order; 0
         where not measured). None when not recorded.
