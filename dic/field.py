@@ -38,6 +38,8 @@ class Reason(enum.IntEnum):
     NOT_REACHED = 6
     #: the matching produced a degenerate warp (folded or non-finite)
     DEGENERATE = 7
+    #: matched, but disagrees with its neighbours (normalised median test)
+    INCONSISTENT = 8
 
     @classmethod
     def describe(cls, code: int) -> str:
@@ -54,6 +56,7 @@ _DESCRIPTIONS = {
     Reason.LOW_ZNCC: "match too poor (ZNCC below threshold)",
     Reason.NOT_REACHED: "not reached from any seed",
     Reason.DEGENERATE: "degenerate (folded) match",
+    Reason.INCONSISTENT: "disagrees with its neighbours (median test)",
 }
 
 
@@ -84,9 +87,15 @@ class DisplacementField:
     settings : dict
         The settings that produced the field (subset, step, shape function, criterion, ...).
     sigma_u, sigma_v : ndarray, shape (ny, nx), or None
-        Predicted standard deviation (px) of ``u`` and ``v`` at every point from image noise,
-        from each subset's Gauss-Newton Hessian (see :func:`dic.metrology.point_sigma`); NaN
-        where not measured. None when the field was not made by :func:`dic.correlate`.
+        Standard deviation (px) of ``u`` and ``v`` at every point: from the residual of the
+        converged match (a-posteriori Gauss-Newton covariance,
+        :func:`dic.matching.posterior_sigma`), or, when the image noise was given, predicted
+        from it and each subset's Hessian (:func:`dic.matching.point_sigma`);
+        ``settings["sigma_from"]`` says which. NaN where not measured. None when the field was
+        not made by :func:`dic.correlate`.
+    shape_order : ndarray of int8, shape (ny, nx), or None
+        Order of the subset shape function used at each point (1 first, 2 second order; 0
+        where not measured). None when not recorded.
     """
 
     x: np.ndarray
@@ -101,6 +110,7 @@ class DisplacementField:
     settings: dict = _dc_field(default_factory=dict)
     sigma_u: np.ndarray | None = None
     sigma_v: np.ndarray | None = None
+    shape_order: np.ndarray | None = None
 
     @property
     def valid(self) -> np.ndarray:

@@ -19,10 +19,22 @@ from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, 
 from dic.matching._grid import check_int, check_options, prepare_grid
 from dic.matching._noise import image_noise, pair_noise
 from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
+from dic.matching._checks import affine_bias, median_test, posterior_sigma, translation_sigma
 
 __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
            "edge_margin", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
-           "gradient_noise_gain"]
+           "gradient_noise_gain", "affine_bias", "median_test",
+           "posterior_sigma", "translation_sigma"]
+
+#: 'auto' shape function: second order where first order would be biased by more than this (px)
+AUTO_BIAS = 0.01
+#: normalised median test (Westerweel & Scarano 2005): noise level (px) and threshold
+MEDIAN_EPS = 0.1
+MEDIAN_THRESHOLD = 2.0
+#: seconds spent in the stages of the last call of correlate() in this process (for the
+#: benchmark): prefilter, seeds (FFT search), iterations (compiled solver), propagation
+#: (bookkeeping between solver calls), checks (shape order, sigma, neighbours)
+last_timings: dict = {}
 
 log = logging.getLogger(__name__)
 
@@ -57,15 +69,22 @@ class _Propagation:
         self.sigma = np.full(n, np.nan)
         self.unc = np.full((n, 6), np.nan)
         self.n_matched = 0
+        self.seed_time = 0.0
 
-    def mark_flat(self, min_std):
-        """Mark points whose reference subset has too little texture before any matching."""
+    def mark_flat(self, min_std, max_sigma, noise):
+        """Mark points whose reference subset has too little texture before any matching:
+        grey-level standard deviation below ``min_std``, or a predicted standard deviation of
+        u or v above ``max_sigma`` px (see :func:`dic.matching.translation_sigma`)."""
         from dic.matching._icgn_kernel import subset_std
 
         todo = np.flatnonzero(self.state == self.w.TODO)
         std = np.empty(todo.size)
         subset_std(self.m.reference, self.px[todo], self.py[todo], self.m.half, std)
-        flat = todo[std < min_std]
+        sig = translation_sigma(self.m.gx, self.m.gy, self.px[todo], self.py[todo],
+                                self.m.half, noise)
+        # a constant subset (std at rounding level of its grey values) is flat whatever noise
+        scale = 1e-6 * max(float(np.abs(self.m.reference).max(initial=0.0)), 1e-300)
+        flat = todo[(std < min_std) | (std <= scale) | ~(sig <= max_sigma)]
         self.state[flat] = self.w.BAD
         self.reason[flat] = Reason.FLAT
 
@@ -149,7 +168,11 @@ def _try_seed(prop, k, ref, deformed, search, guess=None, start=None):
         half = prop.m.half
         # a larger template than the subset makes the whole-pixel search more robust
         big = min(max(half, 15), x, y, cols - 1 - x, rows - 1 - y)
+        import time
+
+        t0 = time.perf_counter()
         du, dv, score = fft_guess(ref, deformed, x, y, half=max(big, half), search=search)
+        prop.seed_time += time.perf_counter() - t0
         if not np.isfinite(score):
             return False
     else:
@@ -182,10 +205,10 @@ def _parse_seeds(seeds):
 
 
 def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None,
-              shape_function: str = "affine", interpolation: str = "quintic",
+              shape_function: str = "auto", interpolation: str = "quintic",
               seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
-              max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.02,
-              initial: DisplacementField | None = None, workers: int | None = None,
+              max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.0,
+              max_sigma: float = 0.2, initial: DisplacementField | None = None, workers: int | None = None,
               image_noise=None, _prepared=None, _points=None) -> DisplacementField:
     """Measure the displacement field between a reference and a deformed image.
 
@@ -209,8 +232,12 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     roi : None, bool array, rectangle, polygon or mask-image path, optional
         Region of interest (see :func:`dic.images.roi.make_roi`). Points whose subset is not wholly
         inside it are not measured.
-    shape_function : {'affine', 'quadratic'}, optional
+    shape_function : {'auto', 'affine', 'quadratic'}, optional
         First-order (6 parameters) or second-order (12 parameters) subset shape function.
+        ``'auto'`` (default) matches every point to first order, then again to second order
+        where the curvature of the field, estimated from the neighbours' gradients, would bias
+        the first-order match by more than 0.01 px (see
+        :func:`dic.matching.affine_bias`); ``field.shape_order`` says which was used.
     interpolation : {'cubic', 'quintic'}, optional
         B-spline degree for the deformed image.
     seeds : list of (x, y) or (x, y, u, v), optional
@@ -226,7 +253,11 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         Convergence threshold on the norm of the parameter update (px at the subset edge).
     min_texture : float, optional
         Subsets whose grey-level standard deviation is below this fraction of the image's
-        1-99 percentile range are flat and not matched.
+        1-99 percentile range are flat and not matched (off by default: ``max_sigma`` decides).
+    max_sigma : float, optional
+        Points whose standard deviation of u or v exceeds this many px are ``FLAT``: before
+        matching, predicted from the image noise and the subset's grey-level gradients; after
+        it, from the residual of the converged match (``sigma_u``, ``sigma_v``).
     initial : DisplacementField, optional
         A field on the same grid (for example from the previous image of a sequence) that
         gives the seed points their starting guesses instead of the FFT search; the other
@@ -235,16 +266,19 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         Threads for the matching kernel (default: all cores).
     image_noise : float or (float, float), optional
         Noise standard deviation of the images in grey levels (one value for both, or
-        reference and deformed), used for the predicted uncertainty ``sigma_u``, ``sigma_v``.
-        By default each image's noise is estimated from the image itself over the points' area
-        (:func:`dic.metrology.image_noise`).
+        reference and deformed). When given, ``sigma_u``, ``sigma_v`` are predicted from it
+        (:func:`dic.matching.point_sigma`); by default they come from the residual of each
+        converged match (:func:`dic.matching.posterior_sigma`), and the noise estimated from
+        each image over the points' area (:func:`dic.metrology.image_noise`) serves only the
+        texture check before matching.
 
     Returns
     -------
     DisplacementField
-        Displacements, gradients, ZNCC and a reason code for every point, and the predicted
-        standard deviations ``sigma_u``, ``sigma_v`` (:func:`dic.metrology.point_sigma`); the
-        noise used is in ``settings["image_noise"]`` (reference, deformed).
+        Displacements, gradients, ZNCC and a reason code for every point, the standard
+        deviations ``sigma_u``, ``sigma_v`` (``settings["sigma_from"]`` says from what) and the
+        shape-function order of each point (``shape_order``); the noise used is in
+        ``settings["image_noise"]`` (reference, deformed).
 
     References
     ----------
@@ -285,6 +319,8 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     sample = ref[::3, ::3][mask[::3, ::3]]
     lo, hi = np.percentile(sample if sample.size > 100 else ref[mask], [1, 99])
     min_std = min_texture * float(hi - lo)
+    max_sigma = _check_max_sigma(max_sigma)
+    auto = SHAPE_FUNCTIONS[str(shape_function).lower()] == 0
     prev_threads = None
     if workers is not None:
         import numba
@@ -292,13 +328,33 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         workers = check_int("workers", workers, 1, "e.g. 2")
         prev_threads = numba.get_num_threads()
         numba.set_num_threads(min(workers, numba.config.NUMBA_NUM_THREADS))
+    import time
+
+    t0 = time.perf_counter()
     try:
         matcher = SubsetMatcher(ref, dfm, subset=subset, second_order=second, order=order,
                                 max_iterations=max_iterations, tolerance=tolerance,
                                 min_std=min_std, reference_gradients=_prepared)
+        t1 = time.perf_counter()
         prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc)
-        prop.mark_flat(min_std)
+        prop.mark_flat(min_std, max_sigma, noise)
         _solve(prop, ref, dfm, search, seed_list, initial)
+        t2 = time.perf_counter()
+        k_solve = matcher.kernel_time
+        shape_order = np.where(prop.state == prop.w.GOOD, 2 if second else 1, 0).astype(np.int8)
+        if auto:
+            matcher.extra_time = _second_order_where_curved(
+                prop, shape_order, step, order, max_iterations, tolerance, min_std)
+            second = True
+        sig_u, sig_v = _finish(prop, shape_order, noise if image_noise is not None else None,
+                               order, max_sigma)
+        t3 = time.perf_counter()
+        k_extra = getattr(matcher, "extra_time", 0.0) or 0.0
+        last_timings.clear()
+        last_timings.update(prefilter=t1 - t0, seeds=prop.seed_time,
+                            iterations=k_solve + k_extra,
+                            propagation=t2 - t1 - k_solve - prop.seed_time,
+                            checks=t3 - t2 - k_extra)
     finally:
         if prev_threads is not None:
             import numba
@@ -307,34 +363,37 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
 
     shape = candidate.shape
     good = prop.state == prop.w.GOOD
+    shape_order[~good] = 0
     p = np.where(good[:, None], prop.params, np.nan)
     iu, iv = index_u_v(second)
     grad = grad_from_params(p, second).reshape(shape + (2, 2))
     grad2 = None
     if second:
-        grad2 = np.stack([p[:, iu + 3:iu + 6], p[:, iv + 3:iv + 6]], axis=1).reshape(
+        # points matched to first order (shape_function 'auto') have no second derivatives
+        q = np.where((shape_order == 2)[:, None], p, np.nan)
+        grad2 = np.stack([q[:, iu + 3:iu + 6], q[:, iv + 3:iv + 6]], axis=1).reshape(
             shape + (2, 3))
     settings = {
         "subset": subset, "step": step,
-        "shape_function": "quadratic" if second else "affine",
+        "shape_function": "auto" if auto else ("quadratic" if second else "affine"),
         "interpolation": "quintic" if order == 5 else "cubic",
         "criterion": "ZNSSD", "solver": "IC-GN", "min_zncc": min_zncc,
         "max_iterations": max_iterations, "tolerance": tolerance,
-        "min_texture": min_texture, "search": search,
+        "min_texture": min_texture, "max_sigma": max_sigma, "search": search,
         "image_shape": tuple(int(s) for s in ref.shape),
         "image_noise": noise,
+        "sigma_from": "residual" if image_noise is None else "image_noise",
+        "shape_order_counts": {"first": int(np.count_nonzero(shape_order == 1)),
+                               "second": int(np.count_nonzero(shape_order == 2))},
     }
-    from dic.matching._uncertainty import point_sigma
-
-    sig_u, sig_v = point_sigma(np.where(good[:, None], prop.unc, np.nan), noise[0], noise[1],
-                               order)
     field = DisplacementField(
         x=gx.astype(np.float64), y=gy.astype(np.float64),
         u=p[:, iu].reshape(shape), v=p[:, iv].reshape(shape), grad=grad,
         zncc=np.where(good, prop.zncc, np.nan).reshape(shape),
         reason=prop.reason.reshape(shape), iterations=prop.iters.reshape(shape),
         grad2=grad2, settings=settings, sigma_u=sig_u.reshape(shape),
-        sigma_v=sig_v.reshape(shape))
+        sigma_v=sig_v.reshape(shape), shape_order=shape_order.reshape(shape))
+    _warn_flat(field, candidate)
     log.info("matched %s", field.summary())
     return field
 
@@ -471,3 +530,120 @@ def _explain_unreached(prop, shape):
     leaves = ((xw - reach < lo) | (xw + reach > shape[1] - 1 - lo)
               | (yw - reach < lo) | (yw + reach > shape[0] - 1 - lo))
     prop.reason[nr[leaves]] = Reason.OUTSIDE_IMAGE
+
+
+def _check_max_sigma(value):
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        v = float("nan")
+    if not v > 0:
+        raise ValueError(f"max_sigma must be a positive number of px, got {value!r}; e.g. 0.2")
+    return v
+
+
+def _second_order_where_curved(prop, shape_order, step, order, max_iterations, tolerance,
+                               min_std):
+    """Shape function 'auto': re-match to second order the points of a first-order solution
+    where the field's curvature would bias the first-order match by more than AUTO_BIAS px.
+
+    Turns ``prop.params`` into second-order parameter vectors (second derivatives zero where
+    first order was kept). Returns the seconds spent in the solver."""
+    m = prop.m
+    good = prop.state == prop.w.GOOD
+    p6 = np.where(good[:, None], prop.params, np.nan)
+    grad = grad_from_params(p6, False)
+    bias, curv = affine_bias(grad.reshape(prop.ny, prop.nx, 2, 2), float(step), m.half)
+    p12 = params_from_fields(p6[:, 0], p6[:, 3], grad, True)
+    prop.params = p12
+    # second order pays where the bias exceeds both AUTO_BIAS and the first-order random
+    # error (its own random error is larger, ~1.5 x; common practice, no source)
+    su, sv = posterior_sigma(_subset_std(prop, good), prop.zncc, prop.unc,
+                             (2 * m.half + 1) ** 2, 6, order)
+    limit = np.fmax(AUTO_BIAS, 2.0 * np.fmax(su, sv))
+    # a neck's curvature spans several points, noise in the gradients does not: the median
+    # over each point's 3 x 3 neighbourhood keeps the one and drops the other
+    from scipy import ndimage
+
+    b = np.where(np.isfinite(bias), bias, 0.0)
+    b = ndimage.median_filter(b, size=3, mode="nearest").ravel()
+    idx = np.flatnonzero(good & (b > limit))
+    if idx.size == 0:
+        return 0.0
+    m2 = SubsetMatcher(m.reference, None, subset=2 * m.half + 1, second_order=True,
+                       order=order, max_iterations=max_iterations, tolerance=tolerance,
+                       min_std=min_std, reference_gradients=(m.gx, m.gy),
+                       deformed_spline=m.spline)
+    c = np.nan_to_num(curv.reshape(-1, 2, 3)[idx])
+    start = p12[idx].copy()
+    start[:, 3:6] = c[:, 0]
+    start[:, 9:12] = c[:, 1]
+    res = m2.match(prop.px[idx], prop.py[idx], start)
+    ok = (res.status == Reason.MEASURED) & (res.zncc >= prop.min_zncc)
+    k = idx[ok]
+    p12[k] = res.params[ok]
+    prop.zncc[k] = res.zncc[ok]
+    prop.iters[k] = prop.iters[k] + res.iterations[ok]
+    prop.unc[k] = res.uncertainty[ok]
+    shape_order[k] = 2
+    return m2.kernel_time
+
+
+def _subset_std(prop, good):
+    """Grey-level standard deviation of the reference subsets at the points ``good``."""
+    from dic.matching._icgn_kernel import subset_std
+
+    std = np.full(good.size, np.nan)
+    k = np.flatnonzero(good)
+    if k.size:
+        tmp = np.empty(k.size)
+        subset_std(prop.m.reference, prop.px[k], prop.py[k], prop.m.half, tmp)
+        std[k] = tmp
+    return std
+
+
+def _finish(prop, shape_order, noise, order, max_sigma):
+    """Per-point standard deviations, then the points too uncertain (FLAT) or inconsistent
+    with their neighbours (INCONSISTENT) taken out. Returns (sigma_u, sigma_v)."""
+
+    good = prop.state == prop.w.GOOD
+    npix = (2 * prop.m.half + 1) ** 2
+    std = _subset_std(prop, good)
+    npar = np.where(shape_order == 2, 12, 6)
+    if noise is None:
+        su, sv = posterior_sigma(std, prop.zncc, prop.unc, npix, npar, order)
+    else:
+        # the user's noise figure: the prediction from it (dic.matching.point_sigma)
+        su, sv = point_sigma(prop.unc, noise[0], noise[1], order)
+    too_wide = good & ~((su <= max_sigma) & (sv <= max_sigma))
+    prop.state[too_wide] = prop.w.BAD
+    prop.reason[too_wide] = Reason.FLAT
+    good = prop.state == prop.w.GOOD
+    shape = (prop.ny, prop.nx)
+    second = prop.params.shape[1] == 12
+    iu, iv = index_u_v(second)
+    g = grad_from_params(prop.params, second).reshape(shape + (2, 2))
+    g2 = None
+    if second:
+        g2 = np.stack([prop.params[:, iu + 3:iu + 6], prop.params[:, iv + 3:iv + 6]],
+                      axis=1).reshape(shape + (2, 3))
+    out = median_test(prop.px.reshape(shape), prop.py.reshape(shape),
+                      prop.params[:, iu].reshape(shape), prop.params[:, iv].reshape(shape), g,
+                      good.reshape(shape), grad2=g2, eps=MEDIAN_EPS,
+                      threshold=MEDIAN_THRESHOLD).ravel()
+    prop.state[out] = prop.w.BAD
+    prop.reason[out] = Reason.INCONSISTENT
+    good = prop.state == prop.w.GOOD
+    return np.where(good, su, np.nan), np.where(good, sv, np.nan)
+
+
+def _warn_flat(field, candidate):
+    """A warning when most of the points could not be matched for lack of texture."""
+    import warnings
+
+    n = int(np.count_nonzero(candidate))
+    flat = int(np.count_nonzero(field.reason == Reason.FLAT))
+    if n and flat >= 0.5 * n:
+        warnings.warn(f"{flat} of {n} points have too little texture to be measured (FLAT); "
+                      f"check the images show a speckle pattern, or raise max_sigma",
+                      stacklevel=3)

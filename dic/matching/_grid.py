@@ -29,8 +29,8 @@ def check_options(subset, step, shape_function, interpolation, search, min_zncc,
     step = check_int("step", step, 1, "use a grid spacing of 1 px or more, e.g. 10")
     sf = str(shape_function).lower()
     if sf not in SHAPE_FUNCTIONS:
-        raise ValueError(f"unknown shape_function {shape_function!r}; use 'affine' or "
-                         f"'quadratic'")
+        raise ValueError(f"unknown shape_function {shape_function!r}; use 'auto', "
+                         f"'affine' or 'quadratic'")
     it = str(interpolation).lower()
     if it not in INTERPOLATIONS:
         raise ValueError(f"unknown interpolation {interpolation!r}; use 'cubic' or 'quintic'")

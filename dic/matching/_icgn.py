@@ -16,7 +16,8 @@ import numpy as np
 
 from dic.images import interp
 
-SHAPE_FUNCTIONS = {"affine": 1, "first": 1, "first-order": 1,
+#: 0: chosen per point from the data (first order, second order where curvature needs it)
+SHAPE_FUNCTIONS = {"auto": 0, "affine": 1, "first": 1, "first-order": 1,
                    "quadratic": 2, "second": 2, "second-order": 2}
 INTERPOLATIONS = {"cubic": 3, "quintic": 5}
 
@@ -138,6 +139,8 @@ class SubsetMatcher:
             deformed_spline = interp.prefilter(deformed, self.order)
         self.spline = deformed_spline
         self.smat = shape_outer_sum(self.half, self.second)
+        #: seconds spent in the compiled solver (all calls of :meth:`match`)
+        self.kernel_time = 0.0
 
     def match(self, xs, ys, p0) -> MatchResult:
         """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
@@ -152,10 +155,14 @@ class SubsetMatcher:
         p0 = np.ascontiguousarray(np.broadcast_to(p0, (n, npar)), dtype=np.float64)
         out = MatchResult(np.empty((n, npar)), np.empty(n, np.int8), np.empty(n),
                           np.empty(n, np.int16), np.empty(n), np.full((n, 6), np.nan))
+        import time
+
+        t0 = time.perf_counter()
         if n:
             match_batch(self.reference, self.gx, self.gy, self.spline.coef, self.spline.pad,
                         self.order, xs, ys, p0, self.half, self.second, self.max_iterations,
                         self.tolerance, self.min_std, float(self.border),
                         64 * get_num_threads(), self.fast, out.params, out.status, out.zncc,
                         out.iterations, out.sigma_factor, self.smat, out.uncertainty)
+        self.kernel_time += time.perf_counter() - t0
         return out

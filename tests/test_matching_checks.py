@@ -1,0 +1,119 @@
+"""Engine round two: shape function chosen by the data (neck), a-posteriori sigma, blank
+reference, neighbour-consistency flag. Oracles: exactly known synthetic motion (dic.synth),
+Fourier-shifted scikit-image photographs."""
+
+import numpy as np
+import pytest
+from scipy import ndimage
+
+import dic
+from dic.field import Reason
+from dic.images import synth
+from dic.matching import median_test
+
+
+def _neck_pair():
+    shape = (240, 480)
+    pat = synth.make_speckle(shape, radius=2.5, seed=3)
+    ref = synth.render(pat, shape, bits=8)
+    # 40 % extra strain over a band sech^2((X - xc) / w), w = 35 px, on 5 % uniform strain
+    mot = synth.tensile_neck(0.05, centre=(240, 120), neck_strain=0.40, neck_width=35.0,
+                             offset=(1.3, -0.4))
+    return ref, synth.render(pat, shape, mot, bits=8), mot
+
+
+def test_neck_with_default_settings():
+    ref, dfm, mot = _neck_pair()
+    roi = (70, 30, 340, 180)    # x, y, width, height: subsets stay inside both images
+    f = dic.correlate(ref, dfm, subset=25, step=10, roi=roi)
+    inside = f.reason != Reason.OUTSIDE_ROI
+    ut, vt = mot(f.x, f.y)      # exact motion (dic.synth.tensile_neck, analytic)
+    err = np.hypot(f.u - ut, f.v - vt)[f.valid]
+    # bars from the project issue: >= 95 % of ROI points valid, 95th percentile <= 0.05 px
+    assert f.valid[inside].mean() >= 0.95
+    assert np.percentile(err, 95) <= 0.05
+    # the neck is matched to second order, the uniform part to first order
+    assert f.settings["shape_function"] == "auto"
+    so = f.shape_order
+    near = np.abs(f.x - 240) <= 30
+    assert np.all(so[f.valid & near] == 2)
+    assert np.mean(so[f.valid & (np.abs(f.x - 240) >= 120)] == 1) >= 0.9
+    assert np.all(so[~f.valid] == 0)
+    # first order alone is biased there (project issue: 0.27 px on a case like this)
+    a = dic.correlate(ref, dfm, subset=25, step=10, roi=roi, shape_function="affine")
+    ea = np.hypot(a.u - ut, a.v - vt)[a.valid]
+    assert np.percentile(ea, 95) > 0.1
+
+
+def _fourier_shift(img, dx, dy):
+    # exact sub-pixel translation of a periodic band-limited image (scipy.ndimage.fourier_shift)
+    return np.real(np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(img), (dy, dx))))
+
+
+@pytest.mark.parametrize("name, lo, hi", [("gravel", 0.5, 0.9), ("grass", 0.5, 0.9),
+                                          ("coins", 0.5, 0.9), ("camera", 0.3, 1.5),
+                                          ("brick", 0.3, 1.5)])
+def test_posterior_sigma_is_calibrated_on_photographs(name, lo, hi):
+    skdata = pytest.importorskip("skimage.data")
+    img = getattr(skdata, name)().astype(float)
+    rng = np.random.default_rng(5)
+    dx, dy = 0.37, -0.61
+    ref = img + rng.normal(0, 2.0, img.shape)
+    dfm = _fourier_shift(img, dx, dy) + rng.normal(0, 2.0, img.shape)
+    h, w = img.shape
+    f = dic.correlate(ref, dfm, subset=21, step=8, roi=(40, 40, w - 80, h - 80))
+    ok = f.valid
+    assert ok.sum() >= 300
+    assert f.settings["sigma_from"] == "residual"
+    r = np.concatenate([np.abs(f.u - dx)[ok] / f.sigma_u[ok],
+                        np.abs(f.v - dy)[ok] / f.sigma_v[ok]])
+    # a calibrated standard deviation of a normal error gives median |e| / sigma = 0.674
+    # (normal distribution); the project issue's calibration target is 0.5-0.9 and its bar on
+    # real photographs 0.3-1.5 (camera and brick: about 1.0-1.1, the residual misses some error
+    # of the smooth, structured parts)
+    assert lo <= np.median(r) <= hi
+
+
+def test_blank_reference_is_flat_with_a_warning():
+    ref = np.full((120, 140), 80.0)
+    with pytest.warns(UserWarning, match="too little texture"):
+        f = dic.correlate(ref, ref.copy(), subset=21, step=10)
+    inside = f.reason != Reason.OUTSIDE_IMAGE
+    # project issue: a featureless reference gives FLAT, not NOT_REACHED
+    assert inside.any() and np.all(f.reason[inside] == Reason.FLAT)
+
+
+def test_median_test_on_a_known_outlier():
+    # Westerweel & Scarano (2005): a linear field has zero normalised residual everywhere,
+    # also at the edge of the region when the neighbours carry their gradients; one point
+    # displaced by 2 px is flagged, and only it
+    y, x = np.mgrid[0:9, 0:11] * 10.0
+    g = np.zeros((9, 11, 2, 2))
+    g[..., 0, 0], g[..., 1, 1] = 0.05, -0.02
+    u, v = 0.05 * x + 1.0, -0.02 * y
+    u[4, 5] += 2.0
+    out = median_test(x, y, u, v, g, np.ones(u.shape, bool))
+    assert out[4, 5] and out.sum() == 1
+
+
+def test_points_straddling_a_flat_patch_are_not_off():
+    # A subset that straddles a flat patch can pass ZNCC and still be off (project issue);
+    # such points are invalid (INCONSISTENT, FLAT or another reason), never ~2 px wrong.
+    shape = (200, 200)
+    pat = synth.make_speckle(shape, radius=2.5, seed=21)
+    dx, dy = 2.3, -1.7
+    ref = synth.render(pat, shape, bits=8)
+    dfm = synth.render(pat, shape, synth.translation(dx, dy), bits=8)
+    rng = np.random.default_rng(2)
+    # a flat patch with faint noise in both images (its own noise, so it matches nothing)
+    ref[60:140, 60:140] = 120.0 + rng.normal(0, 0.5, (80, 80))
+    dfm[60 + 2:140 + 2, 60 - 2:140 - 2] = 120.0 + rng.normal(0, 0.5, (80, 80))
+    f = dic.correlate(ref, dfm, subset=21, step=5)
+    err = np.hypot(f.u - dx, f.v - dy)[f.valid]
+    # exact translation as oracle; bars from the project issue for real photographs: none
+    # off by more than 2 px in the flat-patch case, at least 98 % within 0.5 px
+    assert err.max() < 2.0
+    assert np.mean(err <= 0.5) >= 0.98
+    assert f.n_valid >= 300
+    # the neighbour check fires here (it caught a point 2.7 px off while this test was written)
+    assert np.count_nonzero(f.reason == Reason.INCONSISTENT) >= 1
