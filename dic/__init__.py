@@ -41,6 +41,7 @@ _SUBMODULES = {
     "matching": "dic.matching", "strain": "dic.strain", "sequence": "dic.sequence",
     "metrology": "dic.metrology", "tensile": "dic.tensile", "figures": "dic.figures",
     "report": "dic.report", "export": "dic.export", "workflow": "dic.workflow",
+    "stereo": "dic.stereo",
 }
 
 __all__ = ["__version__", "DisplacementField", "Reason", *_LAZY]

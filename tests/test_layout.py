@@ -166,3 +166,18 @@ def test_modules_stay_small(path):
         return
     n = len(path.read_text(encoding="utf-8").splitlines())
     assert n <= MAX_LINES, f"{path.relative_to(PKG)} has {n} lines (at most {MAX_LINES})"
+
+
+def test_public_api_reaches_every_stage():
+    # the public names of the package keep working after the restructure (common practice,
+    # no source: a stable public API)
+    import dic
+
+    for name in ("correlate", "read_image", "make_roi", "strain_field", "StrainField", "track",
+                 "load_results", "tensile_results", "gauge_histories"):
+        assert callable(getattr(dic, name)), name
+    assert callable(dic.synth.render) and callable(dic.io.read_image)
+    assert callable(dic.tensile.tensile_from_results) and callable(dic.tensile.axial_line)
+    assert callable(dic.sequence.Results.open) and callable(dic.workflow.load_analysis)
+    assert callable(dic.figures.strain_map) and callable(dic.metrology.self_check)
+    assert callable(dic.stereo.calibrate)

@@ -1,1 +1,50 @@
-"""Results of a test: gauge lines, area gauges, probes, histories; the force log and its clock; tensile results."""
+"""Results of a test: gauge lines, area gauges, point probes and their histories; the testing
+machine's force log and its clock; tensile results (E, nu, Rp, Rm, Ag, n, r); and the workflow
+that turns a results file and a force log into them.
+
+Modules
+-------
+gauges
+    Gauge lines, area gauges, point probes, placement helpers and their histories.
+histories
+    The table of gauge histories (frame, time, force, one column per quantity).
+forcelog, forcesync
+    Reading the force log; putting force and images on one clock.
+results, fits
+    Tensile results from a stress-strain record (ISO 6892-1, ASTM E111/E132, ISO 10275/10113).
+workflow
+    From a results file and a force log to gauge histories and tensile results.
+
+The public names load on first use, so importing this package stays light.
+"""
+
+from __future__ import annotations
+
+import importlib
+
+_NAMES = {
+    "gauges": ("GaugeLine", "AreaGauge", "PointProbe", "gauge_histories", "axial_line",
+               "transverse_line", "neck_line", "poisson_ratio", "displacement_at"),
+    "histories": ("History", "CAUTION"),
+    "forcelog": ("ForceLog", "read_force_log"),
+    "forcesync": ("ForceAtFrames", "read_frame_times", "image_times_from_files", "synchronise"),
+    "results": ("tensile_results", "TensileResults", "Value", "engineering_stress",
+                "true_stress_strain"),
+    "workflow": ("TensileSetup", "TensileOutcome", "tensile_from_results"),
+}
+_WHERE = {name: module for module, names in _NAMES.items() for name in names}
+_MODULES = tuple(_NAMES) + ("fits",)
+
+__all__ = sorted(_WHERE)
+
+
+def __getattr__(name):
+    if name in _WHERE:
+        return getattr(importlib.import_module(f"{__name__}.{_WHERE[name]}"), name)
+    if name in _MODULES:
+        return importlib.import_module(f"{__name__}.{name}")
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | set(_WHERE) | set(_MODULES))
