@@ -5,17 +5,21 @@ of 6061-T6 aluminium (parallel section 12.5 mm wide, 3 mm thick) has its gauge s
 with black speckles on white. It lies horizontally (specimen axis along ``x``) in front of a
 12-bit camera that sees a 640 x 240 px window (0.08 mm/px: the 12.5 mm wide painted face is the
 bright band across the middle 65 % of the height, plain dark background above and below). The
-camera saves 16-bit grey PNG files holding 12-bit values (0..4095). One frame every 2 s: frame
-``k`` at ``t = 2 k`` s, 24 frames, ``coupon_000.png`` (unloaded reference) .. ``coupon_023.png``.
+camera saves 16-bit grey PNG files holding 12-bit values (0..4095). One frame a second (a
+realistic rate for a slow test, dense enough that the elastic range holds 15 frames and the yield
+knee 6 more): frame ``k`` at ``t = k`` s, 38 frames, ``coupon_000.png`` (unloaded reference) ..
+``coupon_037.png``.
 
 The test, run in crosshead-displacement control:
 
-- 0..6 s at 0.075 mm/s: elastic loading to about 0.37 % strain (frames 1-3);
-- from 6 s at 0.18 mm/s: yield near 0.4 %, plastic hardening to the uniform elongation of 10 %
-  at maximum force (at 36.7 s, just after frame 18);
-- then a diffuse neck at ``x = 0.55 * width`` grows (frames 19-23) to about 28 % local
-  engineering strain, while the 40 mm gauge in view averages about 14 %; the material outside
-  the neck unloads elastically as the force falls. The recording stops at 46 s, before fracture.
+- 0..22 s at 0.03 mm/s (about 17 MPa/s in the elastic range and 0.05 %/s of strain through
+  yield, near ISO 6892-1's slow rates, from memory): elastic loading to 0.39 % strain at 16 s,
+  yield, and the 0.2 % offset point near 20 s;
+- from 22 s at 0.45 mm/s: plastic hardening to the uniform elongation of 10 % at maximum force
+  (near 34 s);
+- then a diffuse neck at ``x = 0.55 * width`` grows to about 26 % local engineering strain,
+  while the 40 mm gauge in view averages about 13 %; the material outside the neck unloads
+  elastically as the force falls. The recording stops at 37 s, before fracture.
 
 Material law (true stress against true plastic strain): Swift hardening
 ``sigma = K (eps0 + eps_p)^n`` after a linear-elastic range, with ``K``, ``n``, ``eps0`` solved so
@@ -23,7 +27,7 @@ that the engineering curve has the handbook 0.2 % proof strength (276 MPa) and t
 (310 MPa) of 6061-T6, its maximum (Considere's condition ``d sigma / d eps = sigma``) at the
 invented uniform elongation of 10 %. E = 68.9 GPa and Poisson's ratio 0.33 (elastic); plastic
 flow keeps the volume (width and thickness strains equal). Handbook values: typical properties of
-6061-T6 as listed by the ASM Handbook (Vol. 2) and MatWeb, from memory.
+6061-T6 as listed in handbooks (ASM Handbook Vol. 2), from memory.
 
 The displacement field of frame ``k`` is :func:`dic.images.synth.tensile_neck` along ``x`` (uniform
 stretch about the neck centre plus a ``sech^2`` neck) with our own lateral contraction
@@ -59,8 +63,8 @@ import numpy as np
 ROWS, COLS = 240, 640
 BITS = 12
 PIXEL_SIZE_MM = 0.08
-N_FRAMES = 24
-FRAME_INTERVAL_S = 2.0
+N_FRAMES = 38
+FRAME_INTERVAL_S = 1.0
 LOG_RATE_HZ = 10
 WIDTH_MM, THICKNESS_MM = 12.5, 3.0
 AREA_MM2 = WIDTH_MM * THICKNESS_MM
@@ -96,7 +100,7 @@ NOISE = 2.0
 SEED = 20240611
 
 # --------------------------------------------------------------------------------------------
-# material: 6061-T6 typical values (ASM Handbook Vol. 2 / MatWeb, from memory)
+# material: 6061-T6 typical handbook values (ASM Handbook Vol. 2, from memory)
 # --------------------------------------------------------------------------------------------
 E_MPA = 68_900.0
 POISSON = 0.33
@@ -108,7 +112,7 @@ UNIFORM_ELONGATION = 0.10  # invented for the demo (engineering strain at maximu
 # --------------------------------------------------------------------------------------------
 # test programme
 # --------------------------------------------------------------------------------------------
-SPEED_1_MM_S, SPEED_2_MM_S, SPEED_SWITCH_S = 0.075, 0.18, 6.0
+SPEED_1_MM_S, SPEED_2_MM_S, SPEED_SWITCH_S = 0.03, 0.45, 22.0
 SHIFT_PX_PER_MM = 0.5    # rigid shift of the coupon in view per mm of crosshead travel
 DRIFT_MAX_PX = 0.3       # sideways drift at the last frame
 FORCE_NOISE_KN = 0.008   # load-cell noise, standard deviation
@@ -389,7 +393,7 @@ speckles on white, is pulled in a testing machine in crosshead-displacement cont
   describe the test; then the columns `time_s,force_kN,crosshead_mm`. Frame k corresponds to the
   row with time_s = {dt:g} k. Force noise {fnoise} kN, crosshead noise {cnoise} mm (std).
 
-What happens: elastic loading to {e3:.2f} % at frame 3; yield near {ey:.2f} %; plastic hardening
+What happens: elastic loading to {e3:.2f} % at frame 15; yield near {ey:.2f} %; plastic hardening
 to the uniform elongation of {eu:g} % at maximum force ({fmax:.2f} kN, {smax:.0f} MPa) at
 {tu:.1f} s (just after frame {ku}); then a diffuse neck centred at x = {xn:.0f} px grows to
 {eneck:.1f} % local engineering strain at frame {last} while a {glen:.0f} mm virtual gauge
@@ -399,7 +403,7 @@ The coupon also shifts rigidly by up to {shift:.1f} px along x and {drift} px ac
 
 ## Model and constants
 
-- 6061-T6 typical values (ASM Handbook Vol. 2 and MatWeb, from memory): E = {E:g} GPa,
+- 6061-T6 typical handbook values (ASM Handbook Vol. 2, from memory): E = {E:g} GPa,
   Poisson's ratio {nu}, 0.2 % proof strength {rp:g} MPa, tensile strength {rm:g} MPa,
   elongation at break {a:g} % (50 mm gauge). The uniform elongation of {eu:g} % is invented.
 - Engineering stress = force / ({area} mm^2). True stress against true plastic strain follows
@@ -457,7 +461,7 @@ def readme_text(states):
         cols=COLS, rows=ROWS, band=100 * 2 * BAND_HALF / ROWS, bandpx=2 * BAND_HALF,
         px=PIXEL_SIZE_MM, wmm=COLS * PIXEL_SIZE_MM, hmm=ROWS * PIXEL_SIZE_MM,
         dt=FRAME_INTERVAL_S, tend=frame_time(N_FRAMES - 1), hz=LOG_RATE_HZ,
-        fnoise=FORCE_NOISE_KN, cnoise=CROSSHEAD_NOISE_MM, e3=100 * states[3]["e0"],
+        fnoise=FORCE_NOISE_KN, cnoise=CROSSHEAD_NOISE_MM, e3=100 * states[15]["e0"],
         ey=100 * _yield_strain(), eu=100 * UNIFORM_ELONGATION, fmax=f[i_max],
         smax=f[i_max] * 1000.0 / AREA_MM2, tu=i_max / LOG_RATE_HZ, ku=k_u, xn=NECK_CENTRE_X,
         eneck=100 * (last["e0"] + last["e1"]), glen=(GAUGE_X[1] - GAUGE_X[0]) * PIXEL_SIZE_MM,

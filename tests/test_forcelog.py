@@ -153,12 +153,12 @@ def linear_log(tmp_path, t_end=10.0, rate=10):
 
 def test_force_at_frame_times_from_the_sample_csv():
     log = sample_log()
-    names = [f"somewhere/coupon_{k:03d}.png" for k in range(24)]
+    names = [f"somewhere/coupon_{k:03d}.png" for k in range(38)]
     times = read_frame_times(SAMPLES / "frame_times.csv", names=names)
-    np.testing.assert_array_equal(times, 2.0 * np.arange(24))  # README: frame k at 2 k s
-    sync = synchronise(log, 24, image_times=times)
-    # frame k corresponds to the log row with time_s = 2 k (sample_images/README.md)
-    rows = np.searchsorted(log.time, 2.0 * np.arange(24))
+    np.testing.assert_array_equal(times, 1.0 * np.arange(38))  # README: frame k at k s
+    sync = synchronise(log, 38, image_times=times)
+    # frame k corresponds to the log row with time_s = k (sample_images/README.md)
+    rows = np.searchsorted(log.time, 1.0 * np.arange(38))
     np.testing.assert_allclose(sync.force, log.force[rows], rtol=1e-12)
     assert sync.n_outside == 0 and not sync.notes
 

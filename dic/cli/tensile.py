@@ -2,7 +2,7 @@
 
 ``register(subparsers)`` adds the sub-command to an argparse sub-parsers object and
 ``run(args)`` carries it out. Errors are ValueError or OSError with one-line messages (the
-command line's ``main`` turns them into exit code 2); files written before an error are kept.
+command line's ``main`` turns them into exit code 2); nothing is written on an error.
 """
 
 from __future__ import annotations
@@ -67,7 +67,8 @@ def register(subparsers):
     how.add_argument("--frame-times", type=Path, metavar="CSV",
                      help="per-image times, e.g. columns file,time_s")
     how.add_argument("--frame-interval", type=positive_float, metavar="S",
-                     help="constant time between images, s")
+                     help="constant time between images, s (image k of the sequence at k times "
+                          "this; an analysis of some of the images keeps their times)")
     how.add_argument("--image-metadata", action="store_true",
                      help="capture times from the image files (EXIF), else their modification "
                           "times")
@@ -140,7 +141,7 @@ def run(args, out=None) -> int:
     Raises
     ------
     ValueError, OSError
-        Bad input, with a one-line message; files written before the error are kept.
+        Bad input, with a one-line message; nothing is written then.
     """
     from dic.workflow.run import tensile_outputs
 
@@ -148,5 +149,6 @@ def run(args, out=None) -> int:
     outcome = tensile_outputs(args.results, setup_from_args(args), args.out)
     print(outcome.results.table(), file=out)
     print(f"wrote tensile.json, tensile.csv, stress_strain.png and gauges.csv to "
-          f"{outcome.folder}", file=out)
+          f"{outcome.folder}; stored the gauges and results beside the results file "
+          f"({outcome.files['sidecar'].name}), where dic report finds them", file=out)
     return 0

@@ -77,6 +77,10 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
     title : str, optional
         Report title; by default from the results file's name.
 
+    When neither ``gauges`` nor ``tensile`` is given, the gauge histories and tensile results
+    stored beside the results file by ``dic tensile`` or ``dic run --config``
+    (:func:`dic.tensile.workflow.sidecar_path`) are shown, when they exist.
+
     Returns
     -------
     html_path, pdf_path : pathlib.Path
@@ -99,6 +103,12 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
     from dic.report._html import render_html
     from dic.report._pdf import render_pdf
 
+    if gauges is None and tensile is None:
+        from dic.tensile.workflow import read_sidecar
+
+        stored = read_sidecar(results_path)
+        if stored is not None:
+            gauges, tensile = stored
     res = Results.open(results_path)
     try:
         if len(res) == 0:

@@ -19,7 +19,7 @@ from dic.figures.layers import gauge_shapes, grid_view
 from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure,
                                stress_strain_figure, valid_counts, valid_points_plot)
 from dic.figures.maps import measure_comparison, quality_map, strain_map
-from dic.tensile.results import TensileResults
+from dic.tensile.results import TensileResults, basis_text, shown_value
 from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
@@ -555,6 +555,29 @@ def _tensile_figure(tensile):
     return fig
 
 
+def _tensile_results_blocks(res):
+    """Table, warnings and notes of a :class:`~dic.tensile.results.TensileResults`, in the
+    units the command line prints (E in GPa, strengths in MPa, strains in %)."""
+    rows = []
+    for v in res.values.values():
+        text, unit = shown_value(v)
+        how = v.method
+        if v.fit_range is not None:
+            lo, hi = v.fit_range
+            how += (f" (data from {100 * lo:.3g} to {100 * hi:.3g} % strain)"
+                    if v.range_unit == "mm/mm" else
+                    f" (data from {lo:.4g} to {hi:.4g} {v.range_unit})")
+        rows.append((f"{v.name} ({v.key})", f"{text} {unit}".strip(), basis_text(v) or "\u2013",
+                     v.standard, how))
+    blocks = [Table(rows=rows, header=("Quantity", "Value", "Basis and uncertainty",
+                                       "Standard", "How found"))]
+    blocks += [Paragraph(f"Warning: {w}", "caution") for w in res.warnings]
+    blocks += [Paragraph(f"{v.key}: {v.note}", "note") for v in res.values.values() if v.note]
+    blocks += [Paragraph(n, "note") for n in res.notes]
+    blocks.append(Paragraph(res.caution, "caution"))
+    return blocks
+
+
 def _tensile(tensile):
     from matplotlib.figure import Figure
 
@@ -565,7 +588,9 @@ def _tensile(tensile):
         "ratio), ISO 10275 (strain-hardening exponent n), ISO 10113 (plastic strain ratio r). "
         "Whether the test as a whole meets a standard depends on the specimen, the machine and "
         "the extensometer verification (see Cautions).")]
-    if not isinstance(tensile, Figure):
+    if isinstance(tensile, TensileResults):
+        blocks += _tensile_results_blocks(tensile)
+    elif not isinstance(tensile, Figure):
         rows, notes, cautions = _tensile_content(tensile)
         if rows:
             if any(r[3] for r in rows):

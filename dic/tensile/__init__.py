@@ -30,7 +30,8 @@ _NAMES = {
     "forcesync": ("ForceAtFrames", "read_frame_times", "image_times_from_files", "synchronise"),
     "results": ("tensile_results", "TensileResults", "Value", "engineering_stress",
                 "true_stress_strain"),
-    "workflow": ("TensileSetup", "TensileOutcome", "tensile_from_results"),
+    "workflow": ("TensileSetup", "TensileOutcome", "tensile_from_results", "read_sidecar",
+                 "sidecar_path"),
 }
 _WHERE = {name: module for module, names in _NAMES.items() for name in names}
 _MODULES = tuple(_NAMES) + ("fits",)

@@ -26,7 +26,15 @@ from dic.tensile import fits
 from dic.tensile.histories import CAUTION
 
 __all__ = ["tensile_results", "TensileResults", "Value", "engineering_stress",
-           "true_stress_strain", "CAUTION"]
+           "true_stress_strain", "CAUTION", "shown_value", "basis_text"]
+
+#: warn when E rests on fewer records than this, or fits worse (common practice, no source)
+MIN_MODULUS_RECORDS = 8
+MIN_MODULUS_R2 = 0.999
+#: warn when the records around a proof-strength crossing are further apart than this share of
+#: the offset, or differ in stress by more than this share of the value (no source)
+WIDE_GAP = 0.5
+WIDE_STEP = 0.02
 
 _STD = {
     "E": "ASTM E111", "nu": "ASTM E132", "Rp": "ISO 6892-1", "Rm": "ISO 6892-1",
@@ -202,6 +210,9 @@ class TensileResults:
         Offset (mm/mm) of each proof strength.
     notes : list of str
     caution : str
+    warnings : list of str
+        Results that rest on thin ground (few records, a poor fit, a wide gap, the maximum at
+        the last record); also printed with the table and shown in the report.
     """
 
     values: dict
@@ -213,6 +224,7 @@ class TensileResults:
     offsets: dict
     notes: list = field(default_factory=list)
     caution: str = CAUTION
+    warnings: list = field(default_factory=list)
 
     def __getitem__(self, key) -> Value:
         try:
@@ -229,9 +241,9 @@ class TensileResults:
     # -- printing -------------------------------------------------------------------------------
     def table(self) -> str:
         """The results as a plain-text table, with the caution below it."""
-        rows = [("result", "symbol", "value", "unit", "standard", "range / method")]
+        rows = [("result", "symbol", "value", "unit", "standard", "basis")]
         for v in self.values.values():
-            val, unit = _shown(v)
+            val, unit = shown_value(v)
             rows.append((v.name, v.key, val, unit, v.standard, _range_text(v)))
         widths = [max(len(r[i]) for r in rows) for i in range(5)]
         out = []
@@ -243,6 +255,9 @@ class TensileResults:
         if notes:
             out.append("")
             out += [f"note: {n}" for n in notes]
+        if self.warnings:
+            out.append("")
+            out += [f"WARNING: {w}" for w in self.warnings]
         out.append("")
         out.append(f"caution: {self.caution}")
         return "\n".join(out)
@@ -251,7 +266,38 @@ class TensileResults:
         """JSON-ready dict of every value, the notes and the caution."""
         return {"software": f"dic {__version__}", "caution": self.caution,
                 "values": {k: v.as_dict() for k, v in self.values.items()},
-                "notes": list(self.notes)}
+                "notes": list(self.notes), "warnings": list(self.warnings)}
+
+    def to_record(self) -> dict:
+        """Everything, the records included, as a JSON-ready dict (see :meth:`from_record`)."""
+        d = self.to_dict()
+        d["offsets"] = dict(self.offsets)
+        d["records"] = {k: _json_list(getattr(self, k)) for k in
+                        ("strain", "stress", "transverse", "true_strain", "true_stress")}
+        return d
+
+    @classmethod
+    def from_record(cls, d: dict) -> "TensileResults":
+        """The results back from :meth:`to_record`."""
+        def arr(v):
+            return None if v is None else np.array([math.nan if x is None else x for x in v],
+                                                   dtype=np.float64)
+
+        values = {}
+        for k, v in d["values"].items():
+            fr = v.get("fit_range")
+            values[k] = Value(
+                v["key"], v["name"], _num_back(v["value"]), v["unit"], v["standard"],
+                v["method"], None if fr is None else tuple(_num_back(x) for x in fr),
+                v.get("range_unit", ""), int(v.get("points", 0)), _num_back(v.get("r2")),
+                v.get("note", ""), {kk: (_num_back(vv) if vv is None or isinstance(vv, float)
+                                         else vv) for kk, vv in v.get("extra", {}).items()})
+        r = d["records"]
+        return cls(values=values, strain=arr(r["strain"]), stress=arr(r["stress"]),
+                   transverse=arr(r.get("transverse")), true_strain=arr(r["true_strain"]),
+                   true_stress=arr(r["true_stress"]), offsets=dict(d.get("offsets", {})),
+                   notes=list(d.get("notes", [])), caution=d.get("caution", CAUTION),
+                   warnings=list(d.get("warnings", [])))
 
     def to_json(self, path=None):
         """The results as JSON text, also written to ``path`` when given."""
@@ -273,6 +319,16 @@ class TensileResults:
                      v.range_unit, str(int(v.points)), _g(v.r2), v.method, v.note]
             lines.append(",".join(_csv_cell(c) for c in cells))
         return _write(path, "\n".join(lines) + "\n")
+
+
+def _json_list(a):
+    if a is None:
+        return None
+    return [None if not math.isfinite(x) else float(x) for x in np.asarray(a, float).ravel()]
+
+
+def _num_back(v):
+    return math.nan if v is None else float(v)
 
 
 def _g(v) -> str:
@@ -298,16 +354,49 @@ def _write(path, text) -> Path:
     return p
 
 
-def _shown(v: Value):
+def shown_value(v: Value):
+    """``(text, unit)`` of a result as every output shows it: E in GPa, strengths in MPa,
+    strains in %, ratios without a unit."""
+    unit = {"mm/mm": "%", "-": ""}.get(v.unit, v.unit)
+    if v.key == "E":
+        unit = "GPa"
     if not math.isfinite(v.value):
-        return "n/a", v.unit
+        return "n/a", unit
     if v.key == "E":
         return f"{v.value / 1000:.2f}", "GPa"
     if v.unit == "MPa":
         return f"{v.value:.1f}", "MPa"
     if v.unit == "mm/mm":
         return f"{100 * v.value:.2f}", "%"
-    return f"{v.value:.3f}", v.unit
+    return f"{v.value:.3f}", ""
+
+
+def basis_text(v: Value) -> str:
+    """What a result rests on and how uncertain it is, in words (the same in every output)."""
+    x = v.extra
+    parts = []
+
+    def fin(k):
+        return isinstance(x.get(k), float) and math.isfinite(x[k])
+
+    if v.key == "E" and math.isfinite(v.value):
+        parts.append(f"{v.points} records, R^2 {v.r2:.5f}")
+        if fin("slope_se_MPa"):
+            parts.append(f"standard error {x['slope_se_MPa'] / 1000:.2g} GPa")
+    elif v.key.startswith("Rp") and fin("gap_strain"):
+        parts.append(f"records {100 * x['gap_strain']:.3g} % strain apart around the crossing, "
+                     f"{x['gap_stress_MPa']:.3g} MPa across")
+    elif v.key in ("Ag", "Agt") and fin("halfwidth_strain") and math.isfinite(v.value):
+        parts.append(f"maximum within +/-{100 * x['halfwidth_strain']:.2g} % strain "
+                     f"({x.get('local_fit', '')} over {v.points} samples")
+        if fin("vertex_se_strain"):
+            parts[-1] += f", standard error {100 * x['vertex_se_strain']:.2g} %"
+        parts[-1] += ")"
+    elif v.points and math.isfinite(v.value):
+        parts.append(f"{v.points} records")
+        if math.isfinite(v.r2):
+            parts[-1] += f", R^2 {v.r2:.5f}"
+    return "; ".join(parts)
 
 
 def _range_text(v: Value) -> str:
@@ -318,10 +407,9 @@ def _range_text(v: Value) -> str:
             parts.append(f"{100 * lo:.3g} .. {100 * hi:.3g} % strain")
         else:
             parts.append(f"{lo:.4g} .. {hi:.4g} {v.range_unit}")
-    if v.points:
-        parts.append(f"{v.points} points")
-    if math.isfinite(v.r2):
-        parts.append(f"r^2 {v.r2:.5f}")
+    b = basis_text(v)
+    if b:
+        parts.append(b)
     return ", ".join(parts) if parts else v.method
 
 
@@ -337,7 +425,7 @@ def _pair(value, what, unit):
 
 def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_range=None,
                     offsets=(0.2,), n_range=None, r_range=None,
-                    peak_stress=None) -> TensileResults:
+                    peak_stress=None, dense=None, dense_method=None) -> TensileResults:
     """Tensile properties from engineering strain and stress, each with its fit range.
 
     Parameters
@@ -362,7 +450,13 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
         ``Agt`` when ``Agt`` < 4 %) to ``Agt``.
     peak_stress : float, optional
         Largest engineering stress of the whole force record (MPa), when the strain records
-        are sparser than the force log; used for ``Rm`` (``Agt`` still comes from the records).
+        are sparser than the force log; used for ``Rm``.
+    dense : (array_like, array_like), optional
+        Strain and stress sampled more densely than the records (e.g. at the force log's rate,
+        with the gauge strain interpolated in time between images); used to locate the
+        maximum force for ``Agt`` and ``Ag``. Without it the records are used.
+    dense_method : str, optional
+        How ``dense`` was made, in words (shown with ``Ag``).
 
     Returns
     -------
@@ -373,8 +467,9 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
     Raises
     ------
     ValueError
-        Arrays of different lengths or too short; fewer than three records in the modulus range
-        (the message lists the stresses there).
+        Arrays of different lengths or too short. Weak data never raise: a modulus range
+        holding fewer than three records gives ``E`` = NaN with its reason, and the results
+        that do not need ``E`` (``Rm``) are still given.
 
     Notes
     -----
@@ -385,8 +480,13 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
     - Proof strength: the first crossing of the curve with a line of slope ``E`` offset by the
       given plastic strain from the fitted line's zero-stress strain (which corrects a toe),
       linear between the records (ISO 6892-1).
-    - ``Rm`` the largest stress, ``Agt`` the total strain there and ``Ag = Agt - Rm / E``
-      (ISO 6892-1).
+    - ``Rm`` the largest stress; ``Agt`` the total strain at the maximum force, located by
+      Swift's law fitted to the rising branch within 5 % of the maximum (Considere's
+      condition), else by a cubic fitted near the top (the middle of a plateau), measured from
+      the toe;
+      ``Ag = Agt - Rm / E`` (ISO 6892-1).
+    - Warnings (``warnings``): E on fewer than 8 records or R^2 below 0.999, a proof strength
+      read across a wide gap between records, the maximum at the last record.
     - ``n``: least-squares line of ``ln sigma`` on ``ln eps_p`` with the true stress
       ``sigma = s (1 + e)`` and true plastic strain ``eps_p = ln(1 + e) - sigma / E``, over
       ``n_range`` before the maximum force (ISO 10275).
@@ -429,9 +529,10 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
         raise ValueError("stress: no positive stress; check the force column and its sign")
     iend = fits.loading_end(s)
     values = {}
+    warnings = []
     smax = float(s[iend])
 
-    # modulus (ASTM E111)
+    # modulus (ASTM E111); a modulus that cannot be found is NaN and the rest still follows
     if modulus is not None:
         E = _positive(modulus, "modulus")
         e0 = 0.0
@@ -446,13 +547,26 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
         E, e0, mask = m["E"], m["strain_at_zero"], m["mask"]
         values["E"] = Value(
             "E", "Young's modulus", E, "MPa", _STD["E"],
-            "least-squares line of stress on strain (loading branch)", (lo_m, hi_m), "MPa",
-            m["points"], m["r2"],
+            "least-squares line of stress on strain over the records (loading branch)",
+            (lo_m, hi_m), "MPa", m["points"], m["r2"], note=m.get("why", ""),
             extra={"intercept_MPa": m["intercept"], "strain_at_zero_stress": e0,
-                   "slope_cv_percent": m["cv"]})
+                   "slope_se_MPa": m["se"], "slope_cv_percent": m["cv"]})
+        if math.isfinite(E):
+            if m["points"] < MIN_MODULUS_RECORDS:
+                warnings.append(f"E rests on {m['points']} records (fewer than "
+                                f"{MIN_MODULUS_RECORDS}): record more images in the elastic "
+                                "range or widen the modulus range")
+            if m["r2"] < MIN_MODULUS_R2:
+                warnings.append(f"E: the line fits poorly (R^2 {m['r2']:.4f} < "
+                                f"{MIN_MODULUS_R2}); check the modulus range for the toe or "
+                                "the onset of yield")
+        else:
+            warnings.append(f"E could not be found: {m['why']}")
     if mask is None:
         idx = np.arange(e.size)
         mask = (idx <= iend) & (s >= lo_m) & (s <= hi_m)
+    toe = e0 if math.isfinite(e0) else 0.0
+    ec = e - toe  # strain with the toe taken off (ISO 6892-1 toe correction)
 
     # Poisson's ratio (ASTM E132)
     if t is not None:
@@ -471,34 +585,64 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
         key = f"Rp{o:g}"
         offs[key] = o / 100.0
         ps = fits.proof_strength(e, s, E, e0, o / 100.0)
+        note = ps.get("why", "")
+        wide = math.isfinite(ps["gap"]) and (ps["gap"] > WIDE_GAP * o / 100.0 or
+                                             abs(ps["step"]) > WIDE_STEP * ps["value"])
+        if wide:
+            note = (f"the offset line crosses a wide gap between records ({100 * ps['gap']:.3g} "
+                    f"% strain, {ps['step']:.3g} MPa apart): the value is a chord and may be "
+                    "off; record more images around yield")
+            warnings.append(f"{key}: {note}")
         values[key] = Value(key, f"{o:g} % proof strength", ps["value"], "MPa", _STD["Rp"],
-                            f"offset line of slope E through {o:g} % plastic strain",
-                            None, "", 0, note=ps.get("why", ""),
-                            extra={"strain_at_crossing": ps["strain"]})
+                            f"offset line of slope E through {o:g} % plastic strain (toe "
+                            "corrected), linear between the two records around the crossing",
+                            None, "", 0, note=note,
+                            extra={"strain_at_crossing": ps["strain"],
+                                   "gap_strain": ps["gap"], "gap_stress_MPa": ps["step"]})
 
     # maximum force (ISO 6892-1)
-    mx = fits.maximum(e, s, E)
-    rm, rm_note = mx["Rm"], mx.get("why", "")
+    rm_rec = smax
     if peak_stress is not None:
-        rm_rec = rm
         rm = _positive(peak_stress, "peak_stress")
         if rm < rm_rec - 1e-9 * rm_rec:
             raise ValueError(f"peak_stress: {rm:g} MPa is below the largest stress of the "
                              f"records ({rm_rec:g} MPa); give the force record's maximum")
         values["Rm"] = Value("Rm", "tensile strength", rm, "MPa", _STD["Rm"],
                              "largest force of the whole force record / original area",
-                             note=rm_note, extra={"largest_at_records_MPa": rm_rec})
+                             extra={"largest_at_records_MPa": rm_rec})
     else:
+        rm = rm_rec
         values["Rm"] = Value("Rm", "tensile strength", rm, "MPa", _STD["Rm"],
-                             "largest stress of the records", note=rm_note)
-    agt = mx["Agt"]
-    ag = agt - rm / E if math.isfinite(agt) else math.nan
+                             "largest stress of the records")
+    if dense is not None:
+        de, ds = (np.asarray(a, dtype=np.float64).ravel() for a in dense)
+        mx = fits.maximum_fit(de - toe, ds, E=E)
+        basis = dense_method or "dense samples"
+    else:
+        mx = fits.maximum_fit(ec, s, E=E)
+        basis = "the records"
+    if iend == e.size - 1 and "why" not in mx:
+        mx = dict(mx, strain=math.nan, why="the largest stress is the last record: the test "
+                                           "may have stopped before the maximum force")
+    am_note = mx.get("why", "")
+    if am_note:
+        warnings.append(f"Ag, Agt: {am_note}")
+    agt = mx["strain"]  # already measured from the toe
+    ag = agt - rm / E if math.isfinite(agt) and math.isfinite(E) else math.nan
+    if math.isfinite(agt) and not math.isfinite(E):
+        am_note = "Ag needs the modulus, which could not be found"
+    extra = {"halfwidth_strain": mx["halfwidth"], "vertex_se_strain": mx["se"],
+             "local_fit": mx["how"], "toe_strain": toe}
+    how = (f"local fit near the maximum force ({mx['how'] or 'none'}, {mx['points']} samples of "
+           f"{basis}), toe corrected")
     values["Ag"] = Value("Ag", "plastic elongation at maximum force", ag, "mm/mm", _STD["Ag"],
-                         "Agt - Rm / E", note=rm_note)
+                         "Agt - Rm / E; " + how, None, "", mx["points"], note=am_note,
+                         extra=dict(extra))
     values["Agt"] = Value("Agt", "total elongation at maximum force", agt, "mm/mm",
-                          _STD["Agt"], "strain at the largest recorded stress", note=rm_note)
+                          _STD["Agt"], how, None, "", mx["points"], note=mx.get("why", ""),
+                          extra=dict(extra))
 
-    # default strain range for n and r: 2 % (or Agt / 2) to Agt
+    # default strain range for n and r: 2 % (or Agt / 2) to Agt (toe-corrected strain)
     default_range = None
     if math.isfinite(agt):
         default_range = (0.02, agt) if agt > 0.04 else (0.5 * agt, agt)
@@ -515,11 +659,11 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
                             "log-log line of true stress on true plastic strain",
                             note="no maximum force in the records; give n_range")
     else:
-        h = fits.hardening(e, s, E, nr[0], nr[1], iend)
+        h = fits.hardening(ec, s, E, nr[0], nr[1], iend)
         values["n"] = Value("n", "strain-hardening exponent", h["n"], "-", _STD["n"],
-                            "log-log line of true stress on true plastic strain", nr, "mm/mm",
-                            h["points"], h["r2"], note=h.get("why", ""),
-                            extra={"K_MPa": h["K"]})
+                            "log-log line of true stress on true plastic strain (toe "
+                            "corrected)", nr, "mm/mm", h["points"], h["r2"],
+                            note=h.get("why", ""), extra={"K_MPa": h["K"]})
 
     # r (ISO 10113)
     if t is not None:
@@ -530,12 +674,16 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
                                 "width on length true plastic strain, volume constancy",
                                 note="no maximum force in the records; give r_range")
         else:
-            pr = fits.plastic_ratio(e, t, s, E, nu, rr[0], rr[1], iend)
+            pr = fits.plastic_ratio(ec, t, s, E, nu, rr[0], rr[1], iend)
             values["r"] = Value("r", "plastic strain ratio", pr["r"], "-", _STD["r"],
                                 "slope of width on length true plastic strain, volume "
-                                "constancy", rr, "mm/mm", pr["points"], pr["r2"],
-                                note=pr.get("why", ""), extra={"slope": pr["slope"]})
+                                "constancy (toe corrected)", rr, "mm/mm", pr["points"],
+                                pr["r2"], note=pr.get("why", ""), extra={"slope": pr["slope"]})
 
-    te, ts = fits.true_curve(e, s, iend)
+    if toe != 0.0:
+        notes.append(f"toe correction: the modulus line meets zero stress at "
+                     f"{100 * toe:.4f} % strain; every strain-based result (Rp, Agt, Ag, the "
+                     "true curve, the n and r ranges) is measured from there")
+    te, ts = fits.true_curve(ec, s, iend)
     return TensileResults(values=values, strain=e, stress=s, transverse=t, true_strain=te,
-                          true_stress=ts, offsets=offs, notes=notes)
+                          true_stress=ts, offsets=offs, notes=notes, warnings=warnings)

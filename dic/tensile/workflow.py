@@ -9,6 +9,7 @@ by the caller (the outputs stage), so this module writes only tables.
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 
@@ -16,7 +17,8 @@ import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["TensileSetup", "TensileOutcome", "tensile_from_results"]
+__all__ = ["TensileSetup", "TensileOutcome", "tensile_from_results", "dense_curve",
+           "sidecar_path", "write_sidecar", "read_sidecar"]
 
 log = logging.getLogger(__name__)
 
@@ -186,8 +188,9 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
     setup : TensileSetup
     out_dir : path, optional
         Output folder (created if missing; default: the results file's folder). It receives
-        ``gauges.csv`` (kept even if the force log then turns out bad), ``tensile.json`` and
-        ``tensile.csv``.
+        ``gauges.csv``, ``tensile.json`` and ``tensile.csv``, written only once everything
+        has worked; the gauge histories and results are also stored beside the results file
+        (:func:`sidecar_path`), where ``dic report`` finds them.
 
     Returns
     -------
@@ -196,7 +199,7 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
     Raises
     ------
     dic.errors.InputError, OSError
-        Bad input, with a one-line message; files written before the error are kept.
+        Bad input, with a one-line message; nothing is written then.
 
     References
     ----------
@@ -221,66 +224,185 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
         if scale is None:
             raise InputError(f"--scale: '{results_path}' has no image scale (mm/px); give "
                              "--scale MM_PER_PX")
-        # 1. gauges (kept on disk even if the force log turns out bad)
+        # 1. gauges
         axial = G.axial_line(res, s.gauge_length, units="mm", axis=s.axis, scale=scale)
         across = G.transverse_line(res, s.transverse_length, units="mm", axis=s.axis,
                                    scale=scale)
         hist = G.gauge_histories(res, [axial, across], scale=scale)
-        try:
-            folder.mkdir(parents=True, exist_ok=True)
-        except OSError as exc:
-            raise OSError(f"--out: cannot create folder '{folder}' ({exc.strerror or exc})"
-                          ) from None
-        files["gauges"] = folder / "gauges.csv"
-        hist.to_csv(files["gauges"])
-        # 2. force log on the images' clock
-        flog = read_force_log(s.force_log, time_column=s.time_column,
-                              force_column=s.force_column, crosshead_column=s.crosshead_column,
-                              time_unit=s.time_unit, force_unit=s.force_unit,
-                              crosshead_unit=s.crosshead_unit, delimiter=s.delimiter,
-                              decimal=s.decimal, skip_bad_rows=s.skip_bad_rows)
         n = len(res)
         names = res.image_names[:n]
-        if s.by_index:
-            sync = synchronise(flog, n, by_index=True)
-        elif s.frame_interval is not None:
-            sync = synchronise(flog, n, frame_interval=s.frame_interval,
-                               trigger_offset=s.trigger_offset)
+        # times belong to images: frame k is image number image_index[k] of the sequence
+        image_index = np.asarray(res.settings.get("frames", range(n)), dtype=np.int64)[:n]
+        stored_times = np.asarray(res.image_times[:n], dtype=float)
+    # 2. force log on the images' clock
+    flog = read_force_log(s.force_log, time_column=s.time_column,
+                          force_column=s.force_column, crosshead_column=s.crosshead_column,
+                          time_unit=s.time_unit, force_unit=s.force_unit,
+                          crosshead_unit=s.crosshead_unit, delimiter=s.delimiter,
+                          decimal=s.decimal, skip_bad_rows=s.skip_bad_rows)
+    subset = image_index.size != n or np.any(image_index != np.arange(n))
+    if s.by_index and not subset:
+        sync = synchronise(flog, n, by_index=True)
+    elif s.by_index:
+        if image_index.max() >= len(flog):
+            raise InputError(f"--by-index: the force log has {len(flog)} rows but the results "
+                             f"use image {int(image_index.max())}; give one row per image or "
+                             "use --frame-times")
+        sync = synchronise(flog, n, image_times=flog.time[image_index])
+        sync.method = "by image index (log row k = image k)"
+    elif s.frame_interval is not None:
+        dt = float(s.frame_interval)
+        sync = synchronise(flog, n, image_times=image_index * dt,
+                           trigger_offset=s.trigger_offset)
+        sync.method = (f"constant time between images {dt:g} s (image number times the "
+                       f"interval), trigger offset {s.trigger_offset:g} s")
+    else:
+        if s.frame_times is not None:
+            times = read_frame_times(s.frame_times, names=names)
+        elif s.image_metadata:
+            times, used = image_times_from_files(names)
+            log.info("image times from the files' %s", used)
         else:
-            if s.frame_times is not None:
-                times = read_frame_times(s.frame_times, names=names)
-            elif s.image_metadata:
-                times, used = image_times_from_files(names)
-                log.info("image times from the files' %s", used)
-            else:
-                times = np.asarray(res.image_times[:n], dtype=float)
-                if not np.all(np.isfinite(times)):
-                    raise InputError("the results file holds no image times; give "
-                                     "--frame-times, --frame-interval, --image-metadata or "
-                                     "--by-index")
-            sync = synchronise(flog, n, image_times=times, trigger_offset=s.trigger_offset)
-        hist = hist.with_time(sync.time).with_force(sync.force)
-        if sync.crosshead is not None:
-            hist.columns["crosshead"] = sync.crosshead
-            hist.units["crosshead"] = "mm"
-        hist.notes.append(f"force from '{flog.path.name}' ({sync.method})")
-        hist.to_csv(files["gauges"])
+            times = stored_times
+            if not np.all(np.isfinite(times)):
+                raise InputError("the results file holds no image times; give "
+                                 "--frame-times, --frame-interval, --image-metadata or "
+                                 "--by-index")
+        sync = synchronise(flog, n, image_times=times, trigger_offset=s.trigger_offset)
+    if subset:
+        sync.notes.append(f"the results hold {n} of the images (image numbers "
+                          f"{int(image_index[0])}..{int(image_index[-1])}); times are those "
+                          "of the images")
+    hist = hist.with_time(sync.time).with_force(sync.force)
+    if sync.crosshead is not None:
+        hist.columns["crosshead"] = sync.crosshead
+        hist.units["crosshead"] = "mm"
+    hist.notes.append(f"force from '{flog.path.name}' ({sync.method})")
     # 3. stress and results
     stress = engineering_stress(sync.force, width=s.width, thickness=s.thickness, area=s.area)
     area = s.area if s.area is not None else s.width * s.thickness
     peak = float(np.max(flog.force)) / area
     n_range = None if s.n_range is None else (s.n_range[0] / 100, s.n_range[1] / 100)
-    results = tensile_results(hist[f"{axial.name}.engineering"], stress,
+    strain = hist[f"{axial.name}.engineering"]
+    dense, dense_method = dense_curve(sync.time, strain, flog, area)
+    results = tensile_results(strain, stress,
                               transverse=hist[f"{across.name}.engineering"],
                               modulus_range=s.modulus_range,
                               offsets=tuple(s.offsets or (0.2,)), n_range=n_range,
-                              r_range=n_range, peak_stress=peak)
+                              r_range=n_range, peak_stress=max(peak, float(np.nanmax(stress))),
+                              dense=dense, dense_method=dense_method)
     results.notes.extend(sync.notes)
     results.notes.append(f"strain: gauge line {axial.length:g} mm along the axis, "
                          f"{across.length:g} mm across; force log synchronised "
                          f"{sync.method}; area {area:g} mm^2")
+    for w in results.warnings:
+        log.warning("%s", w)
+    # 4. the tables, written only now, so a failed run leaves none behind
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise OSError(f"--out: cannot create folder '{folder}' ({exc.strerror or exc})"
+                      ) from None
+    files["gauges"] = folder / "gauges.csv"
+    hist.to_csv(files["gauges"])
     files["tensile_json"] = folder / "tensile.json"
     files["tensile_csv"] = folder / "tensile.csv"
     results.to_json(files["tensile_json"])
     results.to_csv(files["tensile_csv"])
+    files["sidecar"] = write_sidecar(results_path, hist, results)
     return TensileOutcome(history=hist, results=results, folder=folder, files=files)
+
+
+def dense_curve(image_time, strain, flog, area):
+    """Strain and stress at the force log's own rate, the strain interpolated in time.
+
+    Between two images the gauge strain is taken linear in time; the force log's samples
+    inside the images' time span then give a curve as dense as the log (used to locate the
+    maximum force). Not done (None) when fewer than four images have a time and a strain.
+
+    Returns
+    -------
+    (strain, stress) or None, str
+        The dense curve and the method in words.
+    """
+    t = np.asarray(image_time, dtype=float)
+    e = np.asarray(strain, dtype=float)
+    ok = np.isfinite(t) & np.isfinite(e)
+    if ok.sum() < 4 or np.any(np.diff(t[ok]) <= 0):
+        return None, "the records (image times unusable for interpolation)"
+    t, e = t[ok], e[ok]
+    inside = (flog.time >= t[0]) & (flog.time <= t[-1])
+    if inside.sum() <= ok.sum():
+        return None, "the records (the force log is not denser than the images)"
+    lt = flog.time[inside]
+    rate = (lt.size - 1) / (lt[-1] - lt[0]) if lt[-1] > lt[0] else math.nan
+    return ((np.interp(lt, t, e), flog.force[inside] / area),
+            f"the force log at its own rate ({rate:.3g} Hz) with the gauge strain "
+            "interpolated linearly in time between images")
+
+
+def sidecar_path(results_path) -> Path:
+    """Where the gauge histories and tensile results of a results file are stored:
+    ``<results file>.tensile.json`` beside it (found by :func:`read_sidecar`)."""
+    p = Path(results_path)
+    return p.with_name(p.name + ".tensile.json")
+
+
+def write_sidecar(results_path, history, results) -> Path:
+    """Store gauge histories and tensile results beside the results file (see
+    :func:`sidecar_path`); the report finds them there by itself."""
+    import json
+
+    from dic.files import atomic_write
+
+    def col(a):
+        return [None if not math.isfinite(x) else float(x) for x in np.asarray(a, float)]
+
+    d = {"kind": "dic tensile sidecar", "results_file": Path(results_path).name,
+         "history": {"frame": [int(k) for k in history.frame], "time": col(history.time),
+                     "force": col(history.force),
+                     "columns": {k: col(v) for k, v in history.columns.items()},
+                     "units": dict(history.units), "notes": list(history.notes)},
+         "tensile": results.to_record()}
+    target = sidecar_path(results_path)
+    try:
+        with atomic_write(target, encoding="utf-8") as fh:
+            fh.write(json.dumps(d, allow_nan=False))
+    except OSError as exc:
+        raise OSError(f"cannot write '{target}' ({exc.strerror or exc}); check the folder's "
+                      "permissions") from None
+    return target
+
+
+def read_sidecar(results_path):
+    """Gauge histories and tensile results stored beside a results file.
+
+    Returns
+    -------
+    (History, TensileResults) or None
+        None when there is no sidecar or it belongs to another file (it is never an error
+        to have none).
+    """
+    import json
+
+    from dic.tensile.histories import History
+    from dic.tensile.results import TensileResults
+
+    target = sidecar_path(results_path)
+    if not target.is_file():
+        return None
+    try:
+        d = json.loads(target.read_text(encoding="utf-8"))
+        h = d["history"]
+
+        def arr(v):
+            return np.array([math.nan if x is None else x for x in v], dtype=np.float64)
+
+        hist = History(frame=np.asarray(h["frame"], dtype=np.int64), time=arr(h["time"]),
+                       force=arr(h["force"]),
+                       columns={k: arr(v) for k, v in h["columns"].items()},
+                       units=dict(h["units"]), notes=list(h["notes"]))
+        return hist, TensileResults.from_record(d["tensile"])
+    except (OSError, ValueError, KeyError, TypeError) as exc:
+        log.warning("ignored '%s': not a readable tensile sidecar (%s)", target, exc)
+        return None
