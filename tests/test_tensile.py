@@ -381,6 +381,35 @@ def test_command_line_writes_table_json_csv_and_plot(tracked, tmp_path, capsys):
     assert d2["values"]["E"]["value"] == d["values"]["E"]["value"]
 
 
+def test_frame_subset_keeps_the_times_of_its_images(tracked, tmp_path, gen):
+    """Issue 12: every second image of the first 24, with a constant frame interval, gives
+    the modulus of the full run (times belong to images, not to analysed frames)."""
+    from dic.tensile.workflow import TensileSetup, tensile_from_results
+
+    inset = 4.0
+    roi = (0, gen.BAND_CENTRE_Y - gen.BAND_HALF + inset, gen.COLS - 1,
+           gen.BAND_CENTRE_Y + gen.BAND_HALF - inset)
+    sub = tmp_path / "sub.h5"
+    dic.track(sorted(SAMPLES.glob("coupon_*.png")), sub, subset=21, step=8, roi=roi,
+              scale=gen.PIXEL_SIZE_MM, frames=range(0, 24, 2)).close()
+    setup = TensileSetup(force_log=SAMPLES / "force_log.csv", time_column="time_s",
+                         force_column="force_kN", force_unit="kN", width=12.5, thickness=3.0,
+                         gauge_length=40.0, modulus_range=(20.0, 265.0),
+                         frame_interval=gen.FRAME_INTERVAL_S)
+    part = tensile_from_results(sub, setup, tmp_path / "part")
+    full = tensile_from_results(tracked, setup, tmp_path / "full")
+    # image k of the sequence at k seconds (sample_images/README.md): frame j of the subset
+    # is image 2 j
+    np.testing.assert_allclose(part.history.time, 2.0 * np.arange(12))
+    # bar (issue 12): the same E within 1 %
+    assert part.results["E"].value == pytest.approx(full.results["E"].value, rel=0.01)
+    assert part.results["nu"].value == pytest.approx(full.results["nu"].value, abs=0.01)
+    # the subset stops before the maximum force: Ag is NaN with its reason, the rest is given
+    assert math.isnan(part.results["Ag"].value) and part.results["Ag"].note
+    assert math.isfinite(part.results["Rm"].value)
+    assert "--n-range" in part.results["n"].note
+
+
 def test_command_line_errors_leave_nothing_behind(tracked, tmp_path):
     out = tmp_path / "o"
     bad = cli_args(tracked, out, "--frame-interval", "1")

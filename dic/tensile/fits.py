@@ -227,7 +227,8 @@ def maximum_fit(e, s, *, band=None, E=math.nan):
         ``strain`` (total, mm/mm), ``stress`` (the fitted maximum, MPa), ``halfwidth`` (half the
         strain span of the run: how sharply the maximum is located), ``se`` (standard error of
         the vertex strain from the fit, NaN for a plateau), ``points``, ``how`` (``"cubic"``,
-        ``"parabola"`` or ``"plateau middle"``), ``index`` (of the largest stress), ``why`` when NaN.
+        ``"parabola"`` or ``"plateau middle"``), ``index`` (of the largest stress), ``why``
+        when NaN.
 
     References
     ----------
@@ -355,7 +356,8 @@ def hardening(e, s, E, lo, hi, iend):
     if n < 3:
         return {"n": math.nan, "K": math.nan, "r2": math.nan, "points": n,
                 "why": f"only {n} record(s) with plastic strain in {lo:g} .. {hi:g} before the "
-                       "maximum force; widen n_range"}
+                       "maximum force; widen the strain range (--n-range, or n_range_percent "
+                       "in [tensile])"}
     slope, icpt, r2, _ = line_fit(np.log(ep[ok]), np.log(ts[ok]))
     return {"n": slope, "K": math.exp(icpt), "r2": r2, "points": n}
 
@@ -389,7 +391,8 @@ def plastic_ratio(e, t, s, E, nu, lo, hi, iend):
     if n < 3:
         return {"r": math.nan, "slope": math.nan, "r2": math.nan, "points": n,
                 "why": f"only {n} record(s) with width strain and plastic flow in {lo:g} .. "
-                       f"{hi:g} before the maximum force; widen r_range"}
+                       f"{hi:g} before the maximum force; widen the strain range (--n-range, or "
+                       "n_range_percent in [tensile])"}
     m, _, r2, _ = line_fit(el[ok], eb[ok])
     r = -m / (1.0 + m) if m != -1.0 else math.nan
     return {"r": r, "slope": m, "r2": r2, "points": n}

@@ -33,7 +33,7 @@ MIN_MODULUS_RECORDS = 8
 MIN_MODULUS_R2 = 0.999
 #: warn when the records around a proof-strength crossing are further apart than this share of
 #: the offset, or differ in stress by more than this share of the value (no source)
-WIDE_GAP = 0.5
+WIDE_GAP = 1.0
 WIDE_STEP = 0.02
 
 _STD = {
@@ -633,8 +633,8 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
         am_note = "Ag needs the modulus, which could not be found"
     extra = {"halfwidth_strain": mx["halfwidth"], "vertex_se_strain": mx["se"],
              "local_fit": mx["how"], "toe_strain": toe}
-    how = (f"local fit near the maximum force ({mx['how'] or 'none'}, {mx['points']} samples of "
-           f"{basis}), toe corrected")
+    how = (f"local fit near the maximum force ({mx['how']}, {mx['points']} samples of "
+           f"{basis}), toe corrected" if math.isfinite(agt) else "not found")
     values["Ag"] = Value("Ag", "plastic elongation at maximum force", ag, "mm/mm", _STD["Ag"],
                          "Agt - Rm / E; " + how, None, "", mx["points"], note=am_note,
                          extra=dict(extra))
@@ -657,7 +657,8 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
     if nr is None:
         values["n"] = Value("n", "strain-hardening exponent", math.nan, "-", _STD["n"],
                             "log-log line of true stress on true plastic strain",
-                            note="no maximum force in the records; give n_range")
+                            note="no maximum force in the records; give the strain range "
+                                 "(--n-range, or n_range_percent in [tensile])")
     else:
         h = fits.hardening(ec, s, E, nr[0], nr[1], iend)
         values["n"] = Value("n", "strain-hardening exponent", h["n"], "-", _STD["n"],
@@ -672,7 +673,8 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
         if rr is None:
             values["r"] = Value("r", "plastic strain ratio", math.nan, "-", _STD["r"],
                                 "width on length true plastic strain, volume constancy",
-                                note="no maximum force in the records; give r_range")
+                                note="no maximum force in the records; give the strain range "
+                                     "(--n-range, or n_range_percent in [tensile])")
         else:
             pr = fits.plastic_ratio(ec, t, s, E, nu, rr[0], rr[1], iend)
             values["r"] = Value("r", "plastic strain ratio", pr["r"], "-", _STD["r"],
@@ -680,7 +682,7 @@ def tensile_results(strain, stress, *, transverse=None, modulus=None, modulus_ra
                                 "constancy (toe corrected)", rr, "mm/mm", pr["points"],
                                 pr["r2"], note=pr.get("why", ""), extra={"slope": pr["slope"]})
 
-    if toe != 0.0:
+    if abs(toe) >= 5e-6:
         notes.append(f"toe correction: the modulus line meets zero stress at "
                      f"{100 * toe:.4f} % strain; every strain-based result (Rp, Agt, Ag, the "
                      "true curve, the n and r ranges) is measured from there")
