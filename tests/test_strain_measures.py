@@ -7,6 +7,8 @@ scipy.linalg.logm/polar are iterative (Pade/Schur, Newton), accurate to ~1e-14 o
 well-conditioned 2x2 matrices; 1e-11 is used against them.
 """
 
+import math
+
 import numpy as np
 import pytest
 import scipy.linalg
@@ -187,9 +189,26 @@ def test_equivalent_strain_definition_and_uniaxial_incompressible():
     H = hencky(F)
     eq = equivalent_strain(H[:, 0, 0], H[:, 1, 1], H[:, 0, 1], out_of_plane(F, "log"))
     np.testing.assert_allclose(eq, np.abs(np.log(LAMBDAS)), atol=1e-12)
-    # zz = None means zz = 0: pure in-plane shear eps_xy = g gives sqrt(2/3 * 2 g^2)
+    # by default zz comes from incompressibility: the Hencky components of a plastic uniaxial
+    # stretch 1.2 give ln 1.2 without zz (with zz = 0 it would read ~12 % low)
+    np.testing.assert_allclose(equivalent_strain(H[:, 0, 0], H[:, 1, 1], H[:, 0, 1]),
+                               np.abs(np.log(LAMBDAS)), atol=1e-12)
+    lam = 1.2
+    assert equivalent_strain(math.log(lam), -0.5 * math.log(lam), 0.0) == \
+        pytest.approx(math.log(lam), rel=1e-12)
+    assert equivalent_strain(math.log(lam), -0.5 * math.log(lam), 0.0, out_of_plane="zero") \
+        < 0.9 * math.log(lam)
+    # the incompressible zz from the components of every measure equals out_of_plane from F
+    from dic.strain import strain_tensor
+    from dic.strain import incompressible_zz
+    for name in ("green-lagrange", "euler-almansi", "engineering", "hencky"):
+        T = strain_tensor(FS, name)
+        np.testing.assert_allclose(incompressible_zz(T[:, 0, 0], T[:, 1, 1], T[:, 0, 1], name),
+                                   out_of_plane(FS, name), atol=1e-12)
+    # out_of_plane="zero": pure in-plane shear eps_xy = g gives sqrt(2/3 * 2 g^2)
     g = 0.01
-    np.testing.assert_allclose(equivalent_strain(0.0, 0.0, g), np.sqrt(4 / 3) * g, rtol=1e-14)
+    np.testing.assert_allclose(equivalent_strain(0.0, 0.0, g, out_of_plane="zero"),
+                               np.sqrt(4 / 3) * g, rtol=1e-14)
 
 
 def test_out_of_plane_incompressible():

@@ -38,7 +38,7 @@ STRAIN_QUANTITIES = {
     "major": ("major principal strain", True, "strain"),
     "minor": ("minor principal strain", True, "strain"),
     "max_shear": ("largest in-plane tensor shear strain", False, "strain"),
-    "equivalent": ("equivalent strain (von Mises)", False, "strain"),
+    "equivalent": ("equivalent strain (von Mises, zz from incompressibility)", False, "strain"),
     "rotation": ("rigid rotation", True, "angle"),
     "area_change": ("relative area change", True, "strain"),
     "nonlinear_share": ("nonlinear share of Green-Lagrange strain", False, "share"),

@@ -11,7 +11,8 @@ displacement_gradient
 strain_tensor, green_lagrange, infinitesimal, euler_almansi, hencky, engineering
     Strain measures from deformation gradients ``F`` of shape (..., 2, 2).
 polar_decomposition, rotation_angle, area_change, principal_strains, max_shear,
-equivalent_strain, out_of_plane, nonlinear_part, nonlinear_share, nonlinear_mask,
+equivalent_strain, out_of_plane, incompressible_zz, nonlinear_part, nonlinear_share,
+nonlinear_mask,
 measure_difference
     Derived quantities.
 """
@@ -19,7 +20,8 @@ measure_difference
 from dic.strain._api import strain_field, vsg_size
 from dic.strain._gradients import FITS, GradientFit, default_min_points, displacement_gradient
 from dic.strain._measures import (MEASURES, area_change, canonical_measure, engineering,
-                        equivalent_strain, euler_almansi, green_lagrange, hencky, infinitesimal,
+                        equivalent_strain, euler_almansi, green_lagrange, hencky,
+                        incompressible_zz, infinitesimal,
                         max_shear, measure_difference, nonlinear_mask, nonlinear_part,
                         nonlinear_share, out_of_plane, polar_decomposition, principal_strains,
                         rotation_angle, strain_tensor)
@@ -32,6 +34,7 @@ __all__ = [
     "MEASURES", "canonical_measure", "strain_tensor", "green_lagrange", "infinitesimal",
     "euler_almansi", "hencky", "engineering", "polar_decomposition", "rotation_angle",
     "area_change", "principal_strains", "max_shear", "equivalent_strain", "out_of_plane",
+    "incompressible_zz",
     "nonlinear_part", "nonlinear_share", "nonlinear_mask", "measure_difference",
     "bilinear",
 ]

@@ -30,6 +30,7 @@ __all__ = [
     "max_shear",
     "equivalent_strain",
     "out_of_plane",
+    "incompressible_zz",
     "nonlinear_part",
     "nonlinear_share",
     "nonlinear_mask",
@@ -427,20 +428,27 @@ def max_shear(xx, yy, xy) -> np.ndarray:
     return np.hypot(0.5 * (xx - yy), xy)
 
 
-def equivalent_strain(xx, yy, xy, zz=None) -> np.ndarray:
+def equivalent_strain(xx, yy, xy, zz=None, *, measure="hencky",
+                      out_of_plane="incompressible") -> np.ndarray:
     """Von Mises equivalent strain ``sqrt(2/3 eps_dev : eps_dev)``.
 
     The strain tensor is taken as 3-D with the in-plane components, ``zz`` out of plane and no
-    out-of-plane shear; ``eps_dev = eps - tr(eps)/3 I``. With ``zz = -(xx + yy)``
-    (incompressible, e.g. Hencky strain from :func:`out_of_plane`) the deviator is the tensor
-    itself and a uniaxial strain ``eps`` gives ``eps_eq = eps``.
+    out-of-plane shear; ``eps_dev = eps - tr(eps)/3 I``. Without ``zz`` it is ESTIMATED by
+    default from incompressibility (thickness stretch ``1 / (lambda_1 lambda_2)``, in the
+    given measure, as :func:`out_of_plane`), so a uniaxial plastic stretch ``lambda`` in Hencky
+    strain gives ``eps_eq = ln lambda``; ``out_of_plane="zero"`` takes ``zz = 0`` instead
+    (state either assumption when reporting).
 
     Parameters
     ----------
     xx, yy, xy : array_like
         In-plane components (``xy`` tensor shear).
     zz : array_like or None
-        Out-of-plane component; None takes ``zz = 0`` (state that assumption when reporting).
+        Out-of-plane component, when known.
+    measure : str
+        The measure of the components (for the incompressible ``zz``); default Hencky.
+    out_of_plane : {"incompressible", "zero"}
+        How ``zz`` is found when it is not given.
 
     Returns
     -------
@@ -452,10 +460,48 @@ def equivalent_strain(xx, yy, xy, zz=None) -> np.ndarray:
        definition; from memory).
     """
     xx, yy, xy = (np.asarray(a, dtype=np.float64) for a in (xx, yy, xy))
-    zz = np.zeros_like(xx) if zz is None else np.asarray(zz, dtype=np.float64)
+    if zz is None:
+        if out_of_plane == "incompressible":
+            zz = incompressible_zz(xx, yy, xy, measure)
+        elif out_of_plane == "zero":
+            zz = np.zeros_like(xx + yy + xy)
+        else:
+            raise ValueError(f"out_of_plane must be 'incompressible' or 'zero' (got "
+                             f"{out_of_plane!r})")
+    zz = np.asarray(zz, dtype=np.float64)
     m = (xx + yy + zz) / 3.0
     dd = (xx - m) ** 2 + (yy - m) ** 2 + (zz - m) ** 2 + 2.0 * xy ** 2
     return np.sqrt(2.0 / 3.0 * dd)
+
+
+def incompressible_zz(xx, yy, xy, measure="hencky") -> np.ndarray:
+    """Out-of-plane strain ESTIMATED from in-plane components by incompressibility.
+
+    The in-plane stretch product ``lambda_1 lambda_2`` follows from the components of the
+    given measure (``det(I + 2E)`` for Green-Lagrange, ``det(I - 2e)`` for Euler-Almansi,
+    ``det(I + e)`` for engineering/infinitesimal, ``xx + yy`` for Hencky); the thickness
+    stretch is its inverse, expressed in the same measure (see :func:`out_of_plane`).
+
+    Returns
+    -------
+    ndarray
+        NaN where the components give no positive stretch product.
+    """
+    name = canonical_measure(measure)
+    xx, yy, xy = (np.asarray(a, dtype=np.float64) for a in (xx, yy, xy))
+    if name == "hencky":
+        return -(xx + yy)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        if name == "green-lagrange":
+            sq = (1 + 2 * xx) * (1 + 2 * yy) - 4 * xy * xy       # (lam1 lam2)^2
+            lam3 = 1.0 / np.sqrt(np.where(sq > 0, sq, np.nan))
+        elif name == "euler-almansi":
+            inv = (1 - 2 * xx) * (1 - 2 * yy) - 4 * xy * xy      # (lam1 lam2)^-2
+            lam3 = np.sqrt(np.where(inv > 0, inv, np.nan))
+        else:
+            det = (1 + xx) * (1 + yy) - xy * xy                  # lam1 lam2
+            lam3 = 1.0 / np.where(det > 0, det, np.nan)
+        return _STRETCH[name](lam3)
 
 
 _STRETCH = {  # strain of a pure stretch lam along one axis, per measure

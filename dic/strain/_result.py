@@ -157,12 +157,18 @@ class StrainField:
         """Maximum in-plane TENSOR shear ``(major - minor) / 2``."""
         return m.max_shear(self.xx, self.yy, self.xy)
 
-    def equivalent(self) -> np.ndarray:
+    def equivalent(self, out_of_plane: str = "incompressible") -> np.ndarray:
         """Von Mises equivalent strain ``sqrt(2/3 eps_dev : eps_dev)``.
 
-        Uses ``zz`` when it was estimated (see ``zz_assumption``), else ``zz = 0``.
+        ``zz`` is the stored estimate when there is one (see ``zz_assumption``); otherwise
+        it is ESTIMATED from incompressibility by default (``lambda_3 = 1 / det F``), or taken
+        as zero with ``out_of_plane="zero"``.
         """
-        return m.equivalent_strain(self.xx, self.yy, self.xy, self.zz)
+        zz = self.zz
+        if zz is None and out_of_plane == "incompressible":
+            zz = m.out_of_plane(self.F, self.measure)
+        return m.equivalent_strain(self.xx, self.yy, self.xy, zz, measure=self.measure,
+                                   out_of_plane=out_of_plane)
 
     def rotation(self) -> np.ndarray:
         """Rigid rotation angle from the polar decomposition, degrees (+x towards +y)."""
