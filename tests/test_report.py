@@ -302,3 +302,55 @@ def test_report_command(run, tmp_path, capsys):
         _main(["report", str(res.path), "--measure", "true-ish"])
     with pytest.raises(FileNotFoundError, match="RESULTS: no such file"):
         _main(["report", str(folder / "nothing.h5")])
+
+
+def _real_tensile():
+    """Tensile results from a Hollomon material (sigma = K eps_p^n after a linear range; true
+    strains split additively, volume-constant plastic flow with width/thickness ratio r,
+    ISO 10113; Hollomon, Trans. AIME 162 (1945) 268, from memory)."""
+    from dic.tensile.results import tensile_results
+
+    E, K, n, nu, r = 70_000.0, 450.0, 0.18, 0.33, 1.5
+    sy = K * 0.002 ** n
+    sig = np.concatenate([np.linspace(0.0, sy, 60), np.maximum(K * np.arange(1e-4, 0.3, 1e-4)
+                                                               ** n, sy)])
+    ep = np.concatenate([np.zeros(60), np.arange(1e-4, 0.3, 1e-4)])
+    e = np.expm1(sig / E + ep)
+    w = np.expm1(-nu * sig / E - r / (1 + r) * ep)
+    return tensile_results(e, sig / (1 + e), transverse=w), {"E": E, "n": n, "r": r}
+
+
+def test_report_with_real_tensile_results_and_gauge_histories(run, tmp_path):
+    from dic.tensile import gauges as G
+    from dic.tensile.workflow import write_sidecar
+
+    res, _ = run
+    with dic.load_results(res.path) as r:
+        hist = G.gauge_histories(r, [G.axial_line(r, None), G.transverse_line(r)], window=5)
+    tens, mat = _real_tensile()
+    html, pdf = write_report(res.path, tmp_path / "a", window=5, frames=[-1], gauges=hist,
+                             tensile=tens)
+    t = _parse(html.read_text(encoding="utf-8")).all_text
+    # one unit per quantity, as the command line prints them: E in GPa, strengths in MPa,
+    # strains in % (common practice for tensile certificates, no source)
+    assert f"{tens['E'].value / 1000:.2f} GPa" in t
+    assert f"{tens['Rp0.2'].value:.1f} MPa" in t and f"{tens['Rm'].value:.1f} MPa" in t
+    assert f"{100 * tens['Ag'].value:.2f} %" in t and f"{100 * tens['Agt'].value:.2f} %" in t
+    # the symbols of every row, n and r included, and the basis of E (records and R^2)
+    for sym in ("(E)", "(nu)", "(Rp0.2)", "(Rm)", "(Ag)", "(Agt)", "(n)", "(r)"):
+        assert sym in t, sym
+    assert f"{tens['E'].points} records, R^2" in t
+    # the real numbers: the Hollomon exponent and r by construction (ISO 10275 / ISO 10113)
+    assert tens["n"].value == pytest.approx(mat["n"], rel=0.01)
+    assert tens["r"].value == pytest.approx(mat["r"], rel=0.01)
+    assert "Gauge readings" in t and "axial.engineering" in t
+    assert pdf.stat().st_size > 10_000
+    # stored beside the results file, the report finds them by itself
+    write_sidecar(res.path, hist, tens)
+    try:
+        html2, _ = write_report(res.path, tmp_path / "b", window=5, frames=[-1])
+        t2 = _parse(html2.read_text(encoding="utf-8")).all_text
+        assert "(n)" in t2 and f"{tens['E'].value / 1000:.2f} GPa" in t2
+        assert "axial.engineering" in t2
+    finally:
+        (res.path.parent / (res.path.name + ".tensile.json")).unlink()
