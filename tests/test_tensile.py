@@ -437,3 +437,22 @@ def test_command_line_errors_leave_nothing_behind(tracked, tmp_path):
     with pytest.raises(ValueError) as exc:
         notime.func(notime)  # the results file has no image times
     assert "--frame-times" in one_line(exc)
+
+
+def test_peak_force_takes_most_of_the_noise_bias_away(tmp_path):
+    from dic.tensile.workflow import peak_force
+
+    # a 20 Hz log of a smooth top, 1 - ((t - 30) / 30)^2 times 10 kN, with 30 N noise
+    rng = np.random.default_rng(3)
+    t = np.arange(0.0, 60.0, 0.05)
+    clean = 10_000.0 * (1.0 - ((t - 30.0) / 30.0) ** 2)
+    f = clean + rng.normal(0.0, 30.0, t.size)
+    p = tmp_path / "log.csv"
+    p.write_text("t,F\n" + "\n".join(f"{a:.2f},{b:.3f}" for a, b in zip(t, f)) + "\n")
+    log = read_force_log(p, time_column="t", force_column="F")
+    peak, how = peak_force(log)
+    # the largest of ~200 noisy samples near the top sits ~2.5-3 sigma high (order statistics
+    # of a normal sample, from memory); a 5-sample mean divides the scatter by sqrt(5)
+    assert "5 samples" in how
+    assert abs(peak - clean.max()) < abs(f.max() - clean.max())
+    assert peak == pytest.approx(clean.max(), abs=2.0 * 30.0)

@@ -17,7 +17,7 @@ import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["TensileSetup", "TensileOutcome", "tensile_from_results", "dense_curve",
+__all__ = ["TensileSetup", "TensileOutcome", "tensile_from_results", "dense_curve", "peak_force",
            "sidecar_path", "write_sidecar", "read_sidecar"]
 
 log = logging.getLogger(__name__)
@@ -281,7 +281,8 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
     # 3. stress and results
     stress = engineering_stress(sync.force, width=s.width, thickness=s.thickness, area=s.area)
     area = s.area if s.area is not None else s.width * s.thickness
-    peak = float(np.max(flog.force)) / area
+    peak, peak_how = peak_force(flog)
+    peak /= area
     n_range = None if s.n_range is None else (s.n_range[0] / 100, s.n_range[1] / 100)
     strain = hist[f"{axial.name}.engineering"]
     dense, dense_method = dense_curve(sync.time, strain, flog, area)
@@ -292,6 +293,7 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
                               r_range=n_range, peak_stress=max(peak, float(np.nanmax(stress))),
                               dense=dense, dense_method=dense_method)
     results.notes.extend(sync.notes)
+    results.notes.append(f"Rm: {peak_how}")
     results.notes.append(f"strain: gauge line {axial.length:g} mm along the axis, "
                          f"{across.length:g} mm across; force log synchronised "
                          f"{sync.method}; area {area:g} mm^2")
@@ -311,6 +313,32 @@ def tensile_from_results(results_path, setup: TensileSetup, out_dir=None) -> Ten
     results.to_csv(files["tensile_csv"])
     files["sidecar"] = write_sidecar(results_path, hist, results)
     return TensileOutcome(history=hist, results=results, folder=folder, files=files)
+
+
+def peak_force(flog, span=0.25):
+    """The largest force of the log after a moving mean over about ``span`` seconds.
+
+    The raw largest sample of a noisy log sits a few noise standard deviations above the
+    force it scatters about; a short moving mean (an odd number of samples, at most
+    ``span`` s, none for a log slower than that) takes most of that bias away while the top
+    of the curve barely changes over so short a time.
+
+    Returns
+    -------
+    float, str
+        Force (N) and how it was found, in words.
+    """
+    f = np.asarray(flog.force, dtype=float)
+    t = np.asarray(flog.time, dtype=float)
+    dt = float(np.median(np.diff(t))) if t.size > 1 else math.inf
+    k = int(span / dt) + 1 if dt > 0 and math.isfinite(dt) else 1
+    k = max(1, k - (1 - k % 2))  # odd
+    if k < 3 or f.size < 3 * k:
+        return float(np.nanmax(f)), "largest sample of the force log"
+    smooth = np.convolve(f, np.ones(k) / k, mode="valid")
+    return (float(np.nanmax(smooth)),
+            f"largest force of the log after a moving mean over {k} samples "
+            f"({k * dt:.3g} s)")
 
 
 def dense_curve(image_time, strain, flog, area):
