@@ -1,0 +1,352 @@
+"""The review page (dic.view, ``dic view``): its server's safety rules, and the page itself
+driven in headless Chromium (Debian package ``chromium``) through Playwright, as a user would.
+
+Every number the page shows is compared with the library computed independently here:
+``dic.load_results(...).strain(k)`` for the map and the clicked point,
+``dic.tensile.gauge_histories`` for a gauge drawn by two clicks, and ``dic run --config`` for
+the analysis file the set-up page writes.
+"""
+
+from __future__ import annotations
+
+import base64
+import http.client
+import json
+import shutil
+import socket
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+import dic
+from dic.images import synth
+from dic.view import start_server
+from dic.view.results_data import REASONS, TOO_FEW_NEIGHBOURS
+from dic.view.server import CSP
+
+ROOT = Path(__file__).resolve().parent.parent
+SAMPLE = ROOT / "sample_images"
+SHAPE = (96, 176)
+SCALE = 0.05
+STEP = 6
+SUBSET = 15
+N = 5
+CHROMIUM = shutil.which("chromium") or shutil.which("chromium-browser")
+# the system's browser, never a downloaded one; no network traffic of its own
+ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-background-networking",
+        "--disable-component-update", "--disable-sync"]
+
+
+@pytest.fixture(scope="module")
+def run(tmp_path_factory):
+    """A small results file: a tensile neck rendered exactly by dic.synth, tracked by dic.track."""
+    folder = tmp_path_factory.mktemp("view")
+    pat = synth.make_speckle(SHAPE, radius=2.5, seed=8, contrast=600)
+    paths = []
+    for k, e in enumerate(np.linspace(0.0, 0.05, N)):
+        d = synth.tensile_neck(0.6 * e, centre=(88.0, 48.0), neck_strain=0.4 * e,
+                               neck_width=30.0) if k else None
+        img = synth.render(pat, SHAPE, d, noise=0.5, seed=k)
+        paths.append(dic.images.io.write_image(folder / f"c{k}.png", img * 16, bits=16))
+    mask = np.zeros(SHAPE, bool)
+    mask[14:82, 8:168] = True
+    dic.track(paths, folder / "results.h5", subset=SUBSET, step=STEP, roi=mask, scale=SCALE)
+    return folder / "results.h5"
+
+
+@pytest.fixture(scope="module")
+def server(run):
+    s = start_server(run)
+    yield s
+    s.stop()
+
+
+def _get(server, path, headers=None, host=None):
+    c = http.client.HTTPConnection(host or "127.0.0.1", server.port, timeout=30)
+    try:
+        c.putrequest("GET", path, skip_host=True, skip_accept_encoding=True)
+        c.putheader("Host", (headers or {}).pop("Host", f"127.0.0.1:{server.port}"))
+        for k, v in (headers or {}).items():
+            c.putheader(k, v)
+        c.endheaders()
+        r = c.getresponse()
+        return r.status, dict(r.getheaders()), r.read()
+    finally:
+        c.close()
+
+
+# --------------------------------------------------------------------------------------------
+# the server's rules (checked without a browser)
+# --------------------------------------------------------------------------------------------
+def test_every_request_needs_the_token(server):
+    t = server.token
+    assert _get(server, "/api/info")[0] == 403
+    assert _get(server, "/?t=wrong")[0] == 403
+    assert _get(server, "/view.js")[0] == 403
+    assert _get(server, f"/api/image?k=0&t={t[:-1]}")[0] == 403
+    assert _get(server, f"/api/info?t={t}")[0] == 200
+    assert _get(server, "/api/info", {"X-View-Token": t})[0] == 200
+    # a token of 24 random bytes (Python docs, secrets: 32 bytes "should be sufficient";
+    # common practice, no source, for a short-lived local server)
+    assert len(base64.urlsafe_b64decode(t + "=" * (-len(t) % 4))) >= 24
+
+
+def test_dot_dot_and_files_outside_the_analysis_are_refused(server, run):
+    t = server.token
+    for path in ["/../results.h5", "/%2e%2e/%2e%2e/etc/passwd", "/static/../view.js",
+                 "/api/..%2f..%2fetc%2fpasswd", "/..\\results.h5"]:
+        status, _, body = _get(server, f"{path}?t={t}")
+        assert status == 400, path
+        assert b"results" not in body.lower() or b"error" in body
+    # no address names a file: the results file, the sources, the images by name
+    for path in ["/results.h5", f"/{run.name}", "/etc/passwd", "/static/view.js",
+                 "/dic/view/server.py", "/c0.png", "/api/image/c0.png"]:
+        assert _get(server, f"{path}?t={t}")[0] == 404, path
+    # images are named by number, and only the analysis's own
+    assert _get(server, f"/api/image?k=0&t={t}")[0] == 200
+    assert _get(server, f"/api/image?k={N}&t={t}")[0] == 400
+    assert _get(server, f"/api/image?k=-1&t={t}")[0] == 400
+
+
+def test_bound_to_loopback_only(server):
+    assert server.httpd.server_address[0] == "127.0.0.1"
+    # a request naming another host (DNS rebinding) is refused even with the token
+    assert _get(server, f"/api/info?t={server.token}", {"Host": "example.com"})[0] == 403
+    # the port is closed on every other address of this machine
+    s = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+    try:
+        s.connect(("192.0.2.1", 9))  # TEST-NET-1 (RFC 5737): picks the outgoing address only
+        own = s.getsockname()[0]
+    except OSError:
+        own = None
+    finally:
+        s.close()
+    if own and not own.startswith("127."):
+        with pytest.raises(OSError):
+            socket.create_connection((own, server.port), timeout=2).close()
+
+
+def test_every_answer_forbids_outside_loads(server):
+    t = server.token
+    for path in ["/", "/view.js", "/view.css", "/api/info", "/api/image?k=0", "/nothing"]:
+        status, headers, _ = _get(server, path + ("&" if "?" in path else "?") + f"t={t}")
+        assert headers["Content-Security-Policy"] == CSP
+    # W3C Content Security Policy Level 3: default-src 'none' and no inline or remote scripts
+    assert "default-src 'none'" in CSP and "unsafe" not in CSP and "http" not in CSP
+    assert "script-src 'self'" in CSP and "connect-src 'self'" in CSP
+
+
+def test_results_file_is_opened_read_only(server, run):
+    before = run.read_bytes()
+    assert server.source.results._f.mode == "r"  # h5py File.mode
+    _get(server, f"/api/map?k=2&t={server.token}")
+    assert run.read_bytes() == before
+
+
+def test_point_and_map_answers_equal_the_library(server, run):
+    res = dic.load_results(run)
+    status, _, body = _get(server, f"/api/point?x=88&y=48&component=yy&t={server.token}")
+    d = json.loads(body)
+    for k in range(len(res)):
+        want = res.strain(k).component("yy")[d["i"], d["j"]]
+        assert (d["values"][k] == want) if np.isfinite(want) else d["values"][k] is None
+
+
+# --------------------------------------------------------------------------------------------
+# the page in a real browser
+# --------------------------------------------------------------------------------------------
+@pytest.fixture(scope="module")
+def browser():
+    if CHROMIUM is None:
+        pytest.skip("headless Chromium is not installed (Debian: apt-get install -y chromium)")
+    sync_api = pytest.importorskip("playwright.sync_api")
+    with sync_api.sync_playwright() as p:
+        b = p.chromium.launch(executable_path=CHROMIUM, args=ARGS)
+        yield b
+        b.close()
+
+
+def _open(browser, server, ready):
+    page = browser.new_page(viewport={"width": 1300, "height": 900})
+    problems = []
+    page.on("console", lambda m: problems.append(f"{m.type}: {m.text}")
+            if m.type in ("error", "warning") else None)
+    page.on("pageerror", lambda e: problems.append(f"page error: {e}"))
+    page.on("requestfailed", lambda r: problems.append(f"failed: {r.url}"))
+    page.on("request", lambda r: problems.append(f"outside load: {r.url}")
+            if not r.url.startswith((f"http://127.0.0.1:{server.port}/", "data:", "blob:"))
+            else None)
+    page.goto(server.url)
+    page.wait_for_selector(ready)
+    page.wait_for_selector('#photo[data-loaded="1"]')
+    return page, problems
+
+
+def _screen(page, x, y):
+    """Screen position of the image point (x, y) px (origin at the top-left pixel's centre)."""
+    box = page.locator("#picture").bounding_box()
+    z = page.evaluate("window.dicView.zoom")
+    return box["x"] + (x + 0.5) * z, box["y"] + (y + 0.5) * z
+
+
+def _png(data_url):
+    import cv2
+
+    raw = base64.b64decode(data_url.split(",", 1)[1])
+    bgra = cv2.imdecode(np.frombuffer(raw, np.uint8), cv2.IMREAD_UNCHANGED)
+    return bgra[..., [2, 1, 0, 3]]
+
+
+def test_page_loads_cleanly_and_the_map_matches_the_library(browser, server, run):
+    from matplotlib import colormaps
+
+    res = dic.load_results(run)
+    page, problems = _open(browser, server, '#overlay[data-frame="0"]')
+    page.select_option("#component", "xx")
+    for k in (2, N - 1):
+        page.locator("#frame").fill(str(k))
+        page.wait_for_selector(f'#overlay[data-frame="{k}"]')
+        m = page.evaluate("window.dicView.map")
+        assert m["frame"] == k and m["component"] == "xx"
+        want = res.strain(k).component("xx")
+        rgba = _png(page.get_attribute("#overlay", "src"))
+        assert rgba.shape[:2] == want.shape
+        # unmeasured points are blank, measured ones coloured
+        assert np.array_equal(rgba[..., 3] == 0, ~np.isfinite(want))
+        # colour of probed points: matplotlib's RdBu_r at the library's value
+        lo, hi = m["lo"], m["hi"]
+        ok = np.argwhere(np.isfinite(want))
+        for i, j in ok[:: max(1, len(ok) // 7)]:
+            t = np.clip((want[i, j] - lo) / (hi - lo), 0, 1)
+            expected = np.asarray(colormaps["RdBu_r"](t, bytes=True))[:3]
+            assert np.abs(rgba[i, j, :3].astype(int) - expected).max() <= 1
+            # a click on the point reads its value (the exact number the library gives)
+            page.mouse.click(*_screen(page, res.grid_x[i, j], res.grid_y[i, j]))
+            page.wait_for_selector(f'#hover[data-value]')
+            page.wait_for_selector(f'#charttitle:has-text("x {res.grid_x[i, j]:g}, y '
+                                   f'{res.grid_y[i, j]:g} px")')
+            got = float(page.get_attribute("#hover", "data-value"))
+            assert got == want[i, j]
+        # the read-out under the pointer names the reason of a blank point
+        bi, bj = np.argwhere(~np.isfinite(want))[0]
+        page.mouse.move(*_screen(page, res.grid_x[bi, bj], res.grid_y[bi, bj]))
+        text = page.inner_text("#hover")
+        code = int(res.field(k).reason[bi, bj])
+        # a measured point without a strain value has too few measured neighbours
+        reason = dic.field.Reason.describe(code) if code else REASONS[TOO_FEW_NEIGHBOURS]
+        assert f"blank ({reason})" in text
+    assert problems == []
+    page.close()
+
+
+def test_gauge_line_by_two_clicks_equals_the_library_gauge(browser, server, run, tmp_path):
+    from dic.tensile import GaugeLine, gauge_histories
+
+    res = dic.load_results(run)
+    page, problems = _open(browser, server, '#overlay[data-frame="0"]')
+    page.check('input[name="tool"][value="line"]')
+    page.fill("#gname", "across")
+    a, b = (40.3, 47.6), (139.8, 49.1)
+    page.mouse.click(*_screen(page, *a))
+    page.mouse.click(*_screen(page, *b))
+    page.wait_for_selector("#charttitle:has-text('Gauge across')")
+    g = page.evaluate("window.dicView.gauge")
+    (xa, ya), (xb, yb) = g["points"]
+    # the page puts the ends where the clicks were (within a screen pixel)
+    z = page.evaluate("window.dicView.zoom")
+    assert max(abs(xa - a[0]), abs(ya - a[1]), abs(xb - b[0]), abs(yb - b[1])) <= 1 / z
+    want = gauge_histories(res, GaugeLine((xa, ya), (xb, yb), name="across"))
+    for col in ("across.engineering", "across.hencky", "across.green-lagrange",
+                "across.length"):
+        got = np.array([np.nan if v is None else v for v in g["columns"][col]])
+        np.testing.assert_allclose(got, want[col], rtol=0, atol=1e-9)
+    assert want["across.engineering"][-1] > 0.01  # the neck was pulled (6 % imposed)
+
+    # keep it, keep a rectangle area too, delete it, then save the kept gauges as CSV
+    page.click("#keep")
+    page.check('input[name="tool"][value="rect"]')
+    page.fill("#gname", "box")
+    page.mouse.click(*_screen(page, 60, 30))
+    page.mouse.click(*_screen(page, 110, 66))
+    page.wait_for_selector("#charttitle:has-text('Gauge box')")
+    page.click("#keep")
+    assert page.locator("#gauges li").count() == 2
+    page.locator("#gauges li", has_text="box").get_by_role("button", name="delete").click()
+    assert page.locator("#gauges li").count() == 1
+    with page.expect_download() as dl:
+        page.click("#exportcsv")
+    path = tmp_path / "gauges.csv"
+    dl.value.save_as(path)
+    rows = [r.split(",") for r in path.read_text().splitlines() if not r.startswith("#")]
+    col = rows[0].index("across.engineering [mm/mm]")
+    assert "box" not in ",".join(rows[0])  # the deleted gauge is not saved
+    np.testing.assert_allclose([float(r[col]) for r in rows[1:]], want["across.engineering"],
+                               rtol=1e-9, atol=1e-12)
+    with page.expect_download() as dl:
+        page.click("#exporttoml")
+    snippet = Path(dl.value.path()).read_text()
+    import tomllib
+
+    length = tomllib.loads(snippet)["tensile"]["gauge_length_mm"]
+    assert length == pytest.approx(np.hypot(xb - xa, yb - ya) * SCALE, abs=1e-4)
+    assert problems == []
+    page.close()
+
+
+@pytest.mark.slow
+def test_set_up_page_writes_an_analysis_file_that_dic_run_takes(browser, tmp_path):
+    from dic.images.roi import make_roi
+    from dic.workflow.config import load_analysis
+
+    folder = tmp_path / "frames"
+    folder.mkdir()
+    for f in sorted(SAMPLE.glob("coupon_*.png"))[:6]:
+        shutil.copy(f, folder)
+    for name in ("analysis.toml", "force_log.csv", "frame_times.csv"):
+        shutil.copy(SAMPLE / name, folder)
+    s = start_server(folder)
+    try:
+        page, problems = _open(browser, s, "body.setup")
+        page.on("dialog", lambda d: d.accept())  # replace the analysis file that is there
+        # drag a rectangle, draw the scale line over a known 40 mm
+        page.mouse.move(*_screen(page, 10, 50))
+        page.mouse.down()
+        page.mouse.move(*_screen(page, 300, 120))
+        page.mouse.move(*_screen(page, 630, 190))
+        page.mouse.up()
+        page.check('input[name="stool"][value="scale"]')
+        page.mouse.click(*_screen(page, 69.5, 215))
+        page.mouse.click(*_screen(page, 569.5, 215))
+        page.fill("#lengthmm", "40")
+        page.click("#check")
+        page.wait_for_selector("#checkout[data-verdict]", timeout=120_000)
+        assert page.get_attribute("#checkout", "data-verdict") in ("good", "fair", "poor")
+        page.click("#save")
+        page.wait_for_selector("#saved:not(:empty)")
+        assert problems == []
+        page.close()
+    finally:
+        s.stop()
+    written = load_analysis(folder / "analysis.toml")
+    sample = load_analysis(SAMPLE / "analysis.toml")
+    # everything but the drawn values is the sample analysis's
+    drawn = {"roi", "scale", "images", "tensile"}
+    assert {k: v for k, v in written.items() if k not in drawn} == \
+           {k: v for k, v in sample.items() if k not in drawn}
+    assert {k: v for k, v in written["tensile"].items() if k not in ("force_log", "frame_times")} \
+        == {k: v for k, v in sample["tensile"].items() if k not in ("force_log", "frame_times")}
+    x0, y0, x1, y1 = written["roi"]
+    assert abs(x0 - 10) <= 1 and abs(y0 - 50) <= 1 and abs(x1 - 630) <= 1 and abs(y1 - 190) <= 1
+    assert written["scale"] == pytest.approx(0.08, rel=2e-3)  # 40 mm over 500 px
+    out = tmp_path / "out"
+    done = subprocess.run([sys.executable, "-m", "dic", "run", "--config",
+                           str(folder / "analysis.toml"), "--out", str(out), "--quiet"],
+                          capture_output=True, text=True, timeout=900)
+    assert done.returncode == 0, done.stderr
+    res = dic.load_results(out / "results.h5")
+    assert len(res) == 6 and res.settings["subset"] == 21 and res.settings["step"] == 8
+    assert res.scale == pytest.approx(written["scale"], rel=1e-12)
+    assert np.array_equal(res.roi_mask, make_roi(written["roi"], res.roi_mask.shape))
