@@ -204,9 +204,9 @@ def test_page_loads_cleanly_and_the_map_matches_the_library(browser, server, run
     from matplotlib import colormaps
 
     res = dic.load_results(run)
-    page, problems = _open(browser, server, '#overlay[data-frame="0"]')
+    page, problems = _open(browser, server, f'#overlay[data-frame="{N - 1}"]')
     page.select_option("#component", "xx")
-    for k in (2, N - 1):
+    for k in (2, 0, N - 1):
         page.locator("#frame").fill(str(k))
         page.wait_for_selector(f'#overlay[data-frame="{k}"]')
         m = page.evaluate("window.dicView.map")
@@ -246,7 +246,7 @@ def test_gauge_line_by_two_clicks_equals_the_library_gauge(browser, server, run,
     from dic.tensile import GaugeLine, gauge_histories
 
     res = dic.load_results(run)
-    page, problems = _open(browser, server, '#overlay[data-frame="0"]')
+    page, problems = _open(browser, server, f'#overlay[data-frame="{N - 1}"]')
     page.check('input[name="tool"][value="line"]')
     page.fill("#gname", "across")
     a, b = (40.3, 47.6), (139.8, 49.1)
@@ -350,3 +350,40 @@ def test_set_up_page_writes_an_analysis_file_that_dic_run_takes(browser, tmp_pat
     assert len(res) == 6 and res.settings["subset"] == 21 and res.settings["step"] == 8
     assert res.scale == pytest.approx(written["scale"], rel=1e-12)
     assert np.array_equal(res.roi_mask, make_roi(written["roi"], res.roi_mask.shape))
+
+
+# --------------------------------------------------------------------------------------------
+# the command
+# --------------------------------------------------------------------------------------------
+def test_dic_view_prints_the_address_and_stops_on_ctrl_c(run):
+    import os
+    import signal
+    import urllib.request
+
+    env = dict(os.environ, PYTHONPATH=str(ROOT))
+    with subprocess.Popen([sys.executable, "-m", "dic", "view", str(run.parent),
+                           "--no-browser"], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                          text=True, env=env) as proc:
+        try:
+            line = proc.stdout.readline()
+            assert line.startswith("dic view: http://127.0.0.1:") and "?t=" in line
+            url = line.split(": ", 1)[1].strip()
+            with urllib.request.urlopen(url.replace("/?", "/api/info?"), timeout=30) as r:
+                assert json.loads(r.read())["frames"] == N
+            proc.send_signal(signal.SIGINT)
+            out, err = proc.communicate(timeout=30)
+            assert proc.returncode == 0
+            assert "stopped" in err
+        finally:
+            if proc.poll() is None:
+                proc.kill()
+                proc.communicate()
+
+
+def test_dic_view_of_a_missing_path_is_one_line_and_exit_2(tmp_path):
+    done = subprocess.run([sys.executable, "-m", "dic", "view", str(tmp_path / "nothing.h5"),
+                           "--no-browser"], capture_output=True, text=True, timeout=120,
+                          env={**__import__("os").environ, "PYTHONPATH": str(ROOT)})
+    assert done.returncode == 2
+    assert done.stderr.startswith("dic: error: ") and done.stderr.count("\n") == 1
+    assert "Traceback" not in done.stderr

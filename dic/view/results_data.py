@@ -104,7 +104,21 @@ class ResultsData:
         self.measure = str(st.get("measure", "green-lagrange"))
 
     def close(self):
-        self.results.close()
+        with self._lock:
+            self.results.close()
+
+    def warm_up(self):
+        """Prepare what the page shows first (the last frame's map and image), ahead of time.
+
+        Run from a background thread while the browser opens the page; a failure here is left
+        for the page's own request to report.
+        """
+        k = self.n - 1
+        try:
+            self.image_png(int(self.results.reference_indices[k]))
+            self.frame_map(k, "xx", self.measure, self.window, "shared")
+        except (ValueError, OSError, KeyError, IndexError):
+            pass
 
     # -- what is known ------------------------------------------------------------------------
     def _time_and_force(self):

@@ -172,6 +172,9 @@ class ViewServer:
         self.port = self.httpd.server_address[1]
         self.url = f"http://{HOST}:{self.port}/?t={self.token}"
         self._thread = None
+        warm = getattr(source, "warm_up", None)
+        if warm is not None:  # the first picture is ready sooner while the browser starts
+            threading.Thread(target=warm, daemon=True).start()
 
     @property
     def mode(self) -> str:

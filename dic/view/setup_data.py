@@ -102,6 +102,13 @@ class SetupData:
         self._lock = threading.Lock()
         self._ref = None
 
+    def warm_up(self):
+        """Read the reference image ahead of the page's first request (background thread)."""
+        try:
+            self.reference()
+        except (ValueError, OSError):
+            pass  # the page's own request reports it
+
     def reference(self):
         from dic.images.io import read_image
 

@@ -341,6 +341,8 @@ function startResults(info) {
   $("measure").value = info.measure;
   $("window").value = info.window;
   $("frame").max = info.frames - 1;
+  state.k = info.frames - 1;  // open on the last frame: the most deformed state
+  $("frame").value = state.k;
   if (info.has_time) $("against").add(new Option("time", "time"));
   if (info.has_force) $("against").add(new Option("force", "force"));
   $("frame").addEventListener("input", () => { state.k = Number($("frame").value); showFrame(); });
