@@ -155,6 +155,97 @@ def test_point_and_map_answers_equal_the_library(server, run):
         assert (d["values"][k] == want) if np.isfinite(want) else d["values"][k] is None
 
 
+def _post(server, path, body):
+    c = http.client.HTTPConnection("127.0.0.1", server.port, timeout=300)
+    try:
+        c.request("POST", f"{path}?t={server.token}", json.dumps(body),
+                  {"Content-Type": "application/json", "Host": f"127.0.0.1:{server.port}"})
+        r = c.getresponse()
+        return r.status, json.loads(r.read())
+    finally:
+        c.close()
+
+
+def test_area_gauge_answer_equals_the_library(server, run):
+    from dic.tensile import AreaGauge, gauge_histories
+
+    corners = [[50.0, 30.0], [120.0, 34.0], [110.0, 66.0], [55.0, 60.0]]
+    status, d = _post(server, "/api/gauge", {"gauge": {"kind": "area", "points": corners,
+                                                       "name": "patch"}, "component": "yy"})
+    assert status == 200
+    want = gauge_histories(dic.load_results(run), AreaGauge(corners, name="patch"),
+                           components=("yy",))
+    for col in ("patch.yy.mean", "patch.yy.std", "patch.yy.min", "patch.yy.max", "patch.n"):
+        np.testing.assert_allclose(d["columns"][col], want[col], rtol=0, atol=1e-12)
+    # a gauge off the measured region is refused with the library's message
+    status, d = _post(server, "/api/gauge", {"gauge": {"kind": "line", "name": "off",
+                                                       "points": [[1, 1], [5, 2]]}})
+    assert status == 400 and "outside the region of interest" in d["error"]
+
+
+def test_force_and_time_come_from_the_gauge_table_beside_the_results(run, tmp_path):
+    from dic.tensile import GaugeLine, gauge_histories
+
+    folder = tmp_path / "out"
+    folder.mkdir()
+    shutil.copy(run, folder / "results.h5")
+    res = dic.load_results(folder / "results.h5")
+    force = np.linspace(0.0, 4000.0, len(res))
+    times = 2.0 * np.arange(len(res))
+    h = gauge_histories(res, GaugeLine((40, 48), (140, 48))).with_force(force).with_time(times)
+    h.to_csv(folder / "gauges.csv")
+    s = start_server(folder)
+    try:
+        info = json.loads(_get(s, f"/api/info?t={s.token}")[2])
+    finally:
+        s.stop()
+    assert info["has_force"] and info["has_time"]
+    np.testing.assert_allclose(info["force"], force, rtol=1e-12)
+    np.testing.assert_allclose(info["time"], times, rtol=1e-12)
+
+
+@pytest.mark.slow
+def test_set_up_answers_equal_the_library_and_holes_become_a_mask(tmp_path):
+    from dic.images.io import list_images, read_image
+    from dic.images.roi import make_roi
+    from dic.metrology import advise, pattern_quality
+    from dic.workflow.config import load_analysis
+
+    folder = tmp_path / "frames"
+    folder.mkdir()
+    for f in sorted(SAMPLE.glob("coupon_*.png"))[:2]:
+        shutil.copy(f, folder)
+    s = start_server(folder)
+    roi = {"outer": {"kind": "polygon", "points": [[10, 50], [630, 52], [620, 190], [12, 188]]},
+           "holes": [{"kind": "rectangle", "points": [[300, 100], [340, 140]]}]}
+    try:
+        assert json.loads(_get(s, f"/api/info?t={s.token}")[2])["exists"] is False
+        status, check = _post(s, "/api/check", {"roi": roi, "subset": 21})
+        status2, adv = _post(s, "/api/advise", {"roi": roi, "target": 200})
+        status3, saved = _post(s, "/api/save", {"roi": roi, "scale_line": [69.5, 200, 569.5, 200],
+                                                "length_mm": 40})
+        status4, again = _post(s, "/api/save", {"roi": roi})
+    finally:
+        s.stop()
+    assert status == status2 == status3 == 200
+    ref = read_image(folder / "coupon_000.png")
+    want = make_roi([(10, 50), (630, 52), (620, 190), (12, 188)], ref.shape) \
+        & ~make_roi((300, 100, 340, 140), ref.shape)
+    q = pattern_quality(ref, subset=21, roi=want)
+    assert check["verdict"] == q.verdict and check["speckle_size"] == q.speckle_size
+    assert check["pixels"] == int(want.sum())
+    a = advise(ref, target_strain_noise=200, roi=want, max_size=256)
+    assert adv["chosen"] == a.chosen and adv["met"] == a.met
+    # a region with holes is saved as a mask image beside the analysis file
+    cfg = load_analysis(folder / "analysis.toml")
+    assert [p.name for p in list_images(cfg["images"])] == ["coupon_000.png", "coupon_001.png"]
+    assert np.array_equal(read_image(cfg["roi"]) > 0, want)
+    assert cfg["scale"] == pytest.approx(40 / 500, rel=1e-12)
+    assert cfg["subset"] == 21 and cfg["step"] == 8 and cfg["strain"]["window"] == 9
+    # a second save without confirmation does not replace the file
+    assert status4 == 400 and "exists" in again["error"]
+
+
 # --------------------------------------------------------------------------------------------
 # the page in a real browser
 # --------------------------------------------------------------------------------------------

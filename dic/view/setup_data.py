@@ -24,8 +24,9 @@ __all__ = ["SetupData", "toml_text", "ANALYSIS_NAME", "MASK_NAME"]
 
 #: the analysis file the set-up page writes (in the images' folder unless told otherwise)
 ANALYSIS_NAME = "analysis.toml"
-#: mask image written beside it when the region has holes
-MASK_NAME = "roi_mask.png"
+#: mask image written when the region has holes (in a folder of its own, so that a folder or
+#: pattern of images beside the analysis file never takes it for a frame)
+MASK_NAME = "region_of_interest/mask.png"
 _DEFAULTS = {"subset": 21, "step": 8, "window": 9, "measure": "green-lagrange"}
 
 
@@ -236,6 +237,7 @@ class SetupData:
         data = self.settings_for(roi, scale_line, length_mm, settings)
         if roi.get("holes"):
             mask = self.mask(roi)
+            (self.out.parent / MASK_NAME).parent.mkdir(exist_ok=True)
             write_image(self.out.parent / MASK_NAME, mask.astype(np.uint8) * 255, bits=8)
         text = toml_text(data, header="analysis file written by the set-up page of 'dic view'"
                                       "\nrun it with: dic run --config " + self.out.name)
