@@ -204,6 +204,28 @@ def test_force_and_time_come_from_the_gauge_table_beside_the_results(run, tmp_pa
     np.testing.assert_allclose(info["time"], times, rtol=1e-12)
 
 
+def test_follow_and_reference_positions_use_the_library_displacements(server, run):
+    from dic.tensile import displacement_at
+
+    res = dic.load_results(run)
+    k = N - 1
+    f = res.field(k)
+    pts = [[60.3, 40.7], [101.0, 55.2]]
+    status, d = _post(server, "/api/follow", {"k": k, "points": pts})
+    u, v = displacement_at(f, [p[0] for p in pts], [p[1] for p in pts])
+    np.testing.assert_allclose(d["points"], np.column_stack([np.array(pts)[:, 0] + u,
+                                                             np.array(pts)[:, 1] + v]),
+                               rtol=0, atol=1e-12)
+    # and back: the reference position of what lies there (fixed point of X + u(X) = x)
+    x, y = d["points"][1]
+    back = json.loads(_get(server, f"/api/reference?k={k}&x={x!r}&y={y!r}"
+                                   f"&t={server.token}")[2])
+    assert abs(back["x"] - pts[1][0]) < 1e-5 and abs(back["y"] - pts[1][1]) < 1e-5
+    # a point off the specimen is refused in plain words
+    code, _, body = _get(server, f"/api/reference?k={k}&x=2&y=2&t={server.token}")
+    assert code == 400 and b"not over the measured part" in body
+
+
 @pytest.mark.slow
 def test_set_up_answers_equal_the_library_and_holes_become_a_mask(tmp_path):
     from dic.images.io import list_images, read_image
@@ -329,6 +351,28 @@ def test_page_loads_cleanly_and_the_map_matches_the_library(browser, server, run
         # a measured point without a strain value has too few measured neighbours
         reason = dic.field.Reason.describe(code) if code else REASONS[TOO_FEW_NEIGHBOURS]
         assert f"blank ({reason})" in text
+
+    # over the image of the last frame the map moves with the material: a click where a grid
+    # point has moved to (X + u) reads that grid point, and the map there has its colour
+    k = N - 1
+    page.select_option("#under", "cur")
+    page.wait_for_selector(f'#overlay[data-under="cur"][data-frame="{k}"]')
+    f, want = res.field(k), res.strain(k).component("xx")
+    m = page.evaluate("window.dicView.map")
+    g = m["geom"]
+    rgba = _png(page.get_attribute("#overlay", "src"))
+    ny, nx = want.shape
+    for i, j in [(ny // 2, nx // 2), (ny // 3, nx // 4), (2 * ny // 3, 3 * nx // 4)]:
+        x, y = res.grid_x[i, j] + f.u[i, j], res.grid_y[i, j] + f.v[i, j]
+        r, c = round((y - g["y0"]) / g["step"]), round((x - g["x0"]) / g["step"])
+        t = np.clip((want[i, j] - m["lo"]) / (m["hi"] - m["lo"]), 0, 1)
+        expected = np.asarray(colormaps["RdBu_r"](t, bytes=True))[:3]
+        assert np.abs(rgba[r, c, :3].astype(int) - expected).max() <= 1
+        page.mouse.click(*_screen(page, x, y))
+        page.wait_for_selector(f'#charttitle:has-text("x {res.grid_x[i, j]:g}, y '
+                               f'{res.grid_y[i, j]:g} px")')
+        assert float(page.get_attribute("#hover", "data-value")) == want[i, j]
+    page.select_option("#under", "ref")
     assert problems == []
     page.close()
 

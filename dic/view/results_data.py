@@ -98,6 +98,7 @@ class ResultsData:
         self._strains = _Cache(128)
         self._images = _Cache(16)
         self._limits = {}
+        self._shape = None
         self.time, self.force = self._time_and_force()
         st = self.results.settings.get("strain", {}) or {}
         self.window = int(st.get("window", 9))
@@ -143,17 +144,40 @@ class ResultsData:
                 pass  # a table we cannot read: the page simply offers frame numbers
         return t, f
 
+    def info_shape(self):
+        """Image size (rows, cols)."""
+        from dic.images.io import image_info
+
+        if self._shape is None:
+            gx, gy = self.results.grid_x, self.results.grid_y
+            try:
+                self._shape = tuple(int(v) for v in image_info(self.results.image_names[0])
+                                    ["shape"])
+            except (OSError, ValueError):  # the image is gone: the page shows the map alone
+                self._shape = (int(gy.max() + gy.min() + 1), int(gx.max() + gx.min() + 1))
+        return self._shape
+
+    def follow(self, k, points) -> list:
+        """Where reference points are in the image of frame ``k`` (None where unknown)."""
+        from dic.view.motion import to_current
+
+        P = to_current(self.field(self._frame(int(k))), points)
+        return [[_num(x), _num(y)] for x, y in P]
+
+    def reference_point(self, k, x, y) -> dict:
+        """The reference position of what lies at ``(x, y)`` in the image of frame ``k``."""
+        from dic.view.motion import to_reference
+
+        X, Y = to_reference(self.field(self._frame(int(k))), x, y)
+        return {"x": X, "y": Y}
+
     def info(self) -> dict:
         """Everything the page needs once: frames, grid, image size, choices."""
-        from dic.images.io import image_info
         from dic.strain import COMPONENTS, MEASURES
 
         r = self.results
         gx, gy = r.grid_x, r.grid_y
-        try:
-            shape = [int(v) for v in image_info(r.image_names[0])["shape"]]
-        except (OSError, ValueError):  # the image is gone: the page shows the map alone
-            shape = [int(gy.max() + gy.min() + 1), int(gx.max() + gx.min() + 1)]
+        shape = list(self.info_shape())
         step = float(gx[0, 1] - gx[0, 0]) if gx.shape[1] > 1 else float(
             r.settings.get("step", 1))
         return {
@@ -215,12 +239,16 @@ class ResultsData:
             return np.full(self.results.shape, np.nan)
         return s.component(component)
 
-    def codes(self, k, component, measure, window) -> str:
-        """One character per grid point (row by row): the reason code, ``9`` = too few points."""
+    def code_grid(self, k, component, measure, window) -> np.ndarray:
+        """Reason code per grid point (``9``: measured, too few neighbours for the window)."""
         reason = np.asarray(self.field(k).reason, dtype=np.int64)
         v = self.values(k, component, measure, window)
-        c = np.where((reason == 0) & ~np.isfinite(v), TOO_FEW_NEIGHBOURS, reason)
-        return "".join(str(int(q)) for q in np.clip(c, 0, 9).ravel())
+        return np.clip(np.where((reason == 0) & ~np.isfinite(v), TOO_FEW_NEIGHBOURS, reason),
+                       0, 9)
+
+    def codes(self, k, component, measure, window) -> str:
+        """One character per grid point (row by row): the reason code, ``9`` = too few points."""
+        return "".join(str(int(q)) for q in self.code_grid(k, component, measure, window).ravel())
 
     def limits(self, k, component, measure, window, mode):
         if mode == "frame":
@@ -234,8 +262,14 @@ class ResultsData:
             return self._limits[key]
 
     def frame_map(self, k, component="xx", measure="green-lagrange", window=9, mode="shared",
-                  lo=None, hi=None) -> dict:
-        """The colour map of one strain component at frame ``k``, its limits and reason codes."""
+                  lo=None, hi=None, under="ref") -> dict:
+        """The colour map of one strain component at frame ``k``, its limits and reason codes.
+
+        ``under="ref"``: one map pixel per grid point, over the reference image. ``"cur"``:
+        the map moved with the material over the image of frame ``k``
+        (:func:`dic.view.motion.current_grid_map`). ``geom`` gives the centre of the first map
+        pixel, its size and the map's size in image px.
+        """
         from dic.strain import COMPONENTS
 
         if component not in COMPONENTS:
@@ -250,6 +284,26 @@ class ResultsData:
                 raise InputError("limits: use shared, frame or manual")
             lo, hi = self.limits(k, component, measure, window, mode)
         v = self.values(k, component, measure, window)
+        gx, gy = self.results.grid_x, self.results.grid_y
+        step = float(gx[0, 1] - gx[0, 0]) if gx.shape[1] > 1 else 1.0
+        geom = {"x0": float(gx[0, 0]), "y0": float(gy[0, 0]), "step": step,
+                "nx": int(gx.shape[1]), "ny": int(gx.shape[0])}
+        if under == "cur":
+            from dic.view.motion import current_grid_map
+
+            cell = max(1.0, step / 2)
+            shape = self.info_shape()
+            f = self.field(k)
+            codes = current_grid_map(f, self.code_grid(k, component, measure, window), shape,
+                                     cell)
+            v = current_grid_map(f, v, shape, cell)
+            geom = {"x0": cell / 2 - 0.5, "y0": cell / 2 - 0.5, "step": cell,
+                    "nx": int(v.shape[1]), "ny": int(v.shape[0])}
+            code_text = "".join("-" if not np.isfinite(q) else str(int(q)) for q in codes.ravel())
+        elif under == "ref":
+            code_text = self.codes(k, component, measure, window)
+        else:
+            raise InputError("under: use ref (reference image) or cur (image of the frame)")
         cmap = colour_map_for(component)
         small = v.size <= _MAX_HOVER_VALUES
         return {"frame": k, "component": component, "lo": lo, "hi": hi, "cmap": cmap,
@@ -258,8 +312,9 @@ class ResultsData:
                 # four significant digits for the read-out under the pointer
                 "values": [None if not math.isfinite(q) else float(f"{q:.4g}")
                            for q in v.ravel()] if small else None,
-                "codes": self.codes(k, component, measure, window),
-                "n_measured": int(np.isfinite(v).sum())}
+                "codes": code_text, "geom": geom, "under": under,
+                "n_measured": int(np.isfinite(self.values(k, component, measure,
+                                                          window)).sum())}
 
     @staticmethod
     def _window(window):

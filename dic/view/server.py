@@ -7,9 +7,11 @@ Routes (every one needs ``?t=TOKEN`` or the header ``X-View-Token``)::
     GET  /api/info              what is being viewed
     GET  /api/image?k=N         image N as a PNG
     GET  /api/map?k=N&component=xx&measure=...&window=9&limits=shared|frame|manual[&lo=&hi=]
+                                &under=ref|cur
     GET  /api/point?x=&y=&component=&measure=&window=
+    GET  /api/reference?k=&x=&y=  (reference position of a point of frame k's image)
     GET  /api/quality
-    POST /api/gauge, /api/export                     (results page)
+    POST /api/gauge, /api/export, /api/follow        (results page)
     POST /api/check, /api/advise, /api/save          (set-up page)
 
 Requests name frames and quantities, never files: no part of an address reaches the file
@@ -214,7 +216,8 @@ class ViewServer:
             return h._json(200, s.info())
         if method == "GET" and path == "/api/image":
             return h._send(200, s.image_png(int(_f(q, "k", 0))), "image/png")
-        results = {"/api/map", "/api/point", "/api/quality", "/api/gauge", "/api/export"}
+        results = {"/api/map", "/api/point", "/api/quality", "/api/gauge", "/api/export",
+                   "/api/follow", "/api/reference"}
         setup = {"/api/check", "/api/advise", "/api/save"}
         if path in results and self.mode != "results" or path in setup and self.mode != "setup":
             raise _Refused(404, f"{path} belongs to the other page")
@@ -223,7 +226,11 @@ class ViewServer:
                 "window": int(_f(q, "window", getattr(s, "window", 9)))}
         if method == "GET" and path == "/api/map":
             return h._json(200, s.frame_map(int(_f(q, "k", 0)), mode=q.get("limits", "shared"),
-                                            lo=_f(q, "lo"), hi=_f(q, "hi"), **opts))
+                                            lo=_f(q, "lo"), hi=_f(q, "hi"),
+                                            under=q.get("under", "ref"), **opts))
+        if method == "GET" and path == "/api/reference":
+            return h._json(200, s.reference_point(int(_f(q, "k", 0)), _f(q, "x", 0.0),
+                                                  _f(q, "y", 0.0)))
         if method == "GET" and path == "/api/point":
             return h._json(200, s.point(_f(q, "x", 0.0), _f(q, "y", 0.0), **opts))
         if method == "GET" and path == "/api/quality":
@@ -235,6 +242,9 @@ class ViewServer:
                 o["window"] = int(b["window"])
             if path == "/api/gauge":
                 return h._json(200, s.gauge(b.get("gauge") or {}, **o))
+            if path == "/api/follow":
+                return h._json(200, {"points": s.follow(int(b.get("k", 0)),
+                                                        b.get("points") or [])})
             if path == "/api/export":
                 return h._json(200, s.export(b.get("gauges") or [], **o))
             if path == "/api/check":

@@ -44,7 +44,7 @@ function layout() {
 }
 
 function placeOverlay() {
-  const g = state.info.grid;
+  const g = state.map ? state.map.geom : state.info.grid;
   if (!g) return;
   const o = $("overlay"), z = state.zoom;
   o.style.left = ((g.x0 - g.step / 2 + 0.5) * z) + "px";
@@ -59,7 +59,7 @@ function imagePoint(e) {
 }
 
 function gridCell(x, y) {
-  const g = state.info.grid;
+  const g = state.map.geom;
   const j = Math.round((x - g.x0) / g.step), i = Math.round((y - g.y0) / g.step);
   return (i >= 0 && j >= 0 && i < g.ny && j < g.nx) ? [i, j] : null;
 }
@@ -170,7 +170,7 @@ function drawHistory() {
 // ---- results page ----
 function mapParams() {
   const p = {k: state.k, component: $("component").value, measure: $("measure").value,
-             window: $("window").value, limits: $("limits").value};
+             window: $("window").value, limits: $("limits").value, under: $("under").value};
   if (p.limits === "manual") { p.lo = $("mlo").value; p.hi = $("mhi").value; }
   return p;
 }
@@ -182,12 +182,13 @@ async function showFrame() {
     do {
       state.again = false;
       const p = mapParams();
-      const under = $("under").value === "ref" ? state.info.reference[p.k] : p.k;
+      const under = p.under === "ref" ? state.info.reference[0] : p.k;
       const src = `/api/image?k=${under}&t=${TOKEN}`;
       if ($("photo").getAttribute("src") !== src) $("photo").src = src;
       const d = await api("/api/map", p);
       state.map = d;
       $("overlay").src = d.map;
+      placeOverlay();
       $("barimg").src = d.bar;
       $("lo").textContent = fmt(d.lo);
       $("hi").textContent = fmt(d.hi);
@@ -195,7 +196,9 @@ async function showFrame() {
       $("framenum").textContent = `${p.k} (${state.info.image_names[p.k]})`;
       say(`Frame ${p.k}: ${d.n_measured} points with a strain value.`);
       $("overlay").dataset.frame = String(p.k);
+      $("overlay").dataset.under = p.under;
       drawHistory();
+      await redrawMarks();
     } while (state.again);
   } catch (err) { say(err.message, true); }
   state.busy = false;
@@ -205,37 +208,67 @@ function hoverResults(e) {
   const [x, y] = imagePoint(e), c = gridCell(x, y), m = state.map;
   let text = `x ${x.toFixed(1)}, y ${y.toFixed(1)} px`;
   if (c && m) {
-    const n = c[0] * state.info.grid.nx + c[1], code = m.codes[n];
+    const n = c[0] * m.geom.nx + c[1], code = m.codes[n];
     if (code === "0" && m.values) text += `: ${m.component} = ${fmt(m.values[n])}`;
-    else text += `: blank (${state.info.reasons[code]})`;
+    else if (code !== "-") text += `: blank (${state.info.reasons[code]})`;
   }
   $("hover").textContent = text;
 }
 
 function tool() { return document.querySelector('input[name="tool"]:checked').value; }
 
+// marks of the results page live in reference coordinates; over the image of a frame they
+// are drawn where that material has moved (the library's displacements)
+function setShapes(cls, list) {
+  state.shapes = (state.shapes || []).filter((s) => s.cls !== cls).concat(list.map((s) => Object.assign({cls}, s)));
+  return redrawMarks();
+}
+
+async function redrawMarks() {
+  const shapes = state.shapes || [];
+  let pos = shapes.map((s) => s.pts);
+  if ($("under").value === "cur" && shapes.length) {
+    try {
+      const d = await api("/api/follow", {}, {k: state.k, points: shapes.flatMap((s) => s.pts)});
+      let n = 0;
+      pos = shapes.map((s) => s.pts.map(() => d.points[n++]));
+    } catch (err) { say(err.message, true); }
+  }
+  $("marks").replaceChildren();
+  shapes.forEach((s, i) => {
+    if (pos[i].every((q) => q[0] !== null && q[1] !== null)) shapeMark(s.kind, pos[i], s.cls);
+  });
+}
+
+async function referencePoint(e) {
+  const p = imagePoint(e);
+  if ($("under").value !== "cur") return p;
+  const d = await api("/api/reference", {k: state.k, x: p[0], y: p[1]});
+  return [d.x, d.y];
+}
+
 async function clickResults(e) {
-  const p = imagePoint(e), t = tool();
+  const t = tool();
+  let p;
+  try { p = await referencePoint(e); } catch (err) { say(err.message, true); return; }
   if (t === "point") {
     state.gauge = null; state.pending = [];
-    clearMarks("probe"); clearMarks("draft");
     try {
       state.point = await api("/api/point", {x: p[0], y: p[1], component: $("component").value,
                                               measure: $("measure").value, window: $("window").value});
-      shapeMark("dot", [[state.point.x, state.point.y]], "probe");
       const v = state.point.values[state.k];
       $("hover").textContent = `${state.point.component} at x ${state.point.x}, y ${state.point.y} px, frame ${state.k}: ${fmt(v)}`;
       $("hover").dataset.value = v === null ? "" : String(v);
       drawHistory();
+      await setShapes("draft", []);
+      await setShapes("probe", [{kind: "dot", pts: [[state.point.x, state.point.y]]}]);
     } catch (err) { say(err.message, true); }
     return;
   }
   state.pending.push(p);
-  clearMarks("draft");
   const need = t === "poly" ? Infinity : 2;
   if (state.pending.length < need) {
-    if (state.pending.length > 1) shapeMark("poly", state.pending, "draft");
-    else shapeMark("dot", [p], "draft");
+    await setShapes("draft", [{kind: state.pending.length > 1 ? "poly" : "dot", pts: state.pending.slice()}]);
     return;
   }
   const pts = state.pending; state.pending = [];
@@ -251,7 +284,6 @@ async function endPolygon() {
 }
 
 async function measureGauge(kind, points) {
-  clearMarks("draft");
   const name = $("gname").value.trim() || "gauge";
   say("Following the gauge through the frames…");
   try {
@@ -259,7 +291,8 @@ async function measureGauge(kind, points) {
                                           measure: $("measure").value, window: Number($("window").value)});
     g.points = points;
     state.gauge = g; state.point = null;
-    shapeMark(kind, points, "draft");
+    await setShapes("probe", []);
+    await setShapes("draft", [{kind, pts: points}]);
     $("keep").disabled = false;
     drawHistory();
     say(`Gauge ${g.name}: ${g.frame.length} frames.`);
@@ -273,7 +306,6 @@ function clearMarks(cls) {
 function listKept() {
   const ul = $("gauges");
   ul.replaceChildren();
-  clearMarks("kept");
   for (const g of state.kept) {
     const li = document.createElement("li");
     li.textContent = `${g.name} (${g.kind === "line" ? "line" : "area"}) `;
@@ -285,8 +317,8 @@ function listKept() {
     s.addEventListener("click", () => { state.gauge = g; state.point = null; drawHistory(); });
     li.append(s, b);
     ul.appendChild(li);
-    shapeMark(g.kind, g.points, "kept");
   }
+  setShapes("kept", state.kept.map((g) => ({kind: g.kind, pts: g.points})));
   $("exportcsv").disabled = $("exporttoml").disabled = state.kept.length === 0;
 }
 
@@ -295,7 +327,7 @@ function keep() {
   if (!g) return;
   if (state.kept.some((q) => q.name === g.name)) { say(`A kept gauge is already called ${g.name}; give this one another name and draw it again.`, true); return; }
   state.kept.push(g);
-  clearMarks("draft");
+  state.shapes = (state.shapes || []).filter((s) => s.cls !== "draft");
   listKept();
   const m = /^(.*?)(\d+)$/.exec(g.name);
   $("gname").value = m ? m[1] + (Number(m[2]) + 1) : g.name + "2";
@@ -359,7 +391,7 @@ function startResults(info) {
   $("exportcsv").addEventListener("click", () => exportKept("csv"));
   $("exporttoml").addEventListener("click", () => exportKept("toml"));
   $("quality").addEventListener("click", showQuality);
-  document.querySelectorAll('input[name="tool"]').forEach((r) => r.addEventListener("change", () => { state.pending = []; clearMarks("draft"); }));
+  document.querySelectorAll('input[name="tool"]').forEach((r) => r.addEventListener("change", () => { state.pending = []; setShapes("draft", []); }));
   showFrame();
 }
 
