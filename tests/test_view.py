@@ -411,12 +411,15 @@ def test_gauge_line_by_two_clicks_equals_the_library_gauge(browser, server, run,
     assert page.locator("#gauges li").count() == 2
     page.locator("#gauges li", has_text="box").get_by_role("button", name="delete").click()
     assert page.locator("#gauges li").count() == 1
+    page.once("dialog", lambda d: d.accept("middle"))
+    page.locator("#gauges li", has_text="across").get_by_role("button", name="rename").click()
+    page.wait_for_selector("#gauges li:has-text('middle')")
     with page.expect_download() as dl:
         page.click("#exportcsv")
     path = tmp_path / "gauges.csv"
     dl.value.save_as(path)
     rows = [r.split(",") for r in path.read_text().splitlines() if not r.startswith("#")]
-    col = rows[0].index("across.engineering [mm/mm]")
+    col = rows[0].index("middle.engineering [mm/mm]")
     assert "box" not in ",".join(rows[0])  # the deleted gauge is not saved
     np.testing.assert_allclose([float(r[col]) for r in rows[1:]], want["across.engineering"],
                                rtol=1e-9, atol=1e-12)

@@ -6,7 +6,7 @@ import base64
 
 import numpy as np
 
-__all__ = ["grey_png", "map_png", "data_url", "SIGNED_MAP", "MAGNITUDE_MAP", "colour_map_for",
+__all__ = ["grey_png", "map_png", "map_rgba", "data_url", "SIGNED_MAP", "MAGNITUDE_MAP", "colour_map_for",
            "robust_limits"]
 
 #: colour map of signed quantities (centred on zero) and of magnitudes, as in the figures

@@ -186,10 +186,11 @@ class SetupData:
         """Pattern-quality verdict for the region (:func:`dic.metrology.pattern_quality`)."""
         from dic.metrology import pattern_quality
 
-        q = pattern_quality(self.reference(), subset=int(subset), roi=self.mask(roi))
+        mask = self.mask(roi)
+        q = pattern_quality(self.reference(), subset=int(subset), roi=mask)
         d = q.as_dict()
         d["summary"] = q.summary()
-        d["pixels"] = int(self.mask(roi).sum())
+        d["pixels"] = int(mask.sum())
         return d
 
     def advise(self, roi: dict, target_noise=200.0, scale=None) -> dict:

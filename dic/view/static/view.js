@@ -315,11 +315,28 @@ function listKept() {
     const s = document.createElement("button");
     s.type = "button"; s.textContent = "show";
     s.addEventListener("click", () => { state.gauge = g; state.point = null; drawHistory(); });
-    li.append(s, b);
+    const r = document.createElement("button");
+    r.type = "button"; r.textContent = "rename";
+    r.addEventListener("click", () => rename(g));
+    li.append(s, r, b);
     ul.appendChild(li);
   }
   setShapes("kept", state.kept.map((g) => ({kind: g.kind, pts: g.points})));
   $("exportcsv").disabled = $("exporttoml").disabled = state.kept.length === 0;
+}
+
+function rename(g) {
+  const name = (window.prompt(`New name for ${g.name}:`, g.name) || "").trim();
+  if (!name || name === g.name) return;
+  if (!/^[^,"\[\n]+$/.test(name)) { say("A name without commas, quotes or brackets, please.", true); return; }
+  if (state.kept.some((q) => q.name === name)) { say(`A kept gauge is already called ${name}.`, true); return; }
+  // the history's columns carry the name: rename them too
+  const cols = {}, units = {};
+  for (const [c, v] of Object.entries(g.columns)) cols[name + c.slice(g.name.length)] = v;
+  for (const [c, v] of Object.entries(g.units)) units[name + c.slice(g.name.length)] = v;
+  Object.assign(g, {name, columns: cols, units});
+  listKept();
+  if (state.gauge === g) drawHistory();
 }
 
 function keep() {
