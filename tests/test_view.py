@@ -525,3 +525,58 @@ def test_dic_view_of_a_missing_path_is_one_line_and_exit_2(tmp_path):
     assert done.returncode == 2
     assert done.stderr.startswith("dic: error: ") and done.stderr.count("\n") == 1
     assert "Traceback" not in done.stderr
+
+
+def test_polygon_area_and_polygon_hole_drawn_by_clicks(browser, server, run, tmp_path):
+    from dic.images.io import read_image
+    from dic.images.roi import make_roi
+    from dic.tensile import AreaGauge, gauge_histories
+    from dic.workflow.config import load_analysis
+
+    # results page: an area of four corners, ended by a double click
+    page, problems = _open(browser, server, f'#overlay[data-frame="{N - 1}"]')
+    page.check('input[name="tool"][value="poly"]')
+    page.fill("#gname", "quad")
+    for x, y in [(50, 30), (120, 34), (110, 66)]:
+        page.mouse.click(*_screen(page, x, y))
+    page.mouse.dblclick(*_screen(page, 55, 60))
+    page.wait_for_selector("#charttitle:has-text('Gauge quad')")
+    g = page.evaluate("window.dicView.gauge")
+    assert len(g["points"]) == 4
+    want = gauge_histories(dic.load_results(run), AreaGauge(g["points"], name="quad"),
+                           components=("xx",))
+    got = np.array([np.nan if v is None else v for v in g["columns"]["quad.xx.mean"]])
+    np.testing.assert_allclose(got, want["quad.xx.mean"], rtol=0, atol=1e-12)
+    assert problems == []
+    page.close()
+
+    # set-up page: a polygon region with a polygon hole becomes a mask image
+    folder = tmp_path / "frames"
+    folder.mkdir()
+    for f in sorted(SAMPLE.glob("coupon_*.png"))[:2]:
+        shutil.copy(f, folder)
+    s = start_server(folder)
+    try:
+        page, problems = _open(browser, s, "body.setup")
+        page.check('input[name="stool"][value="poly"]')
+        for x, y in [(20, 60), (600, 55), (620, 180)]:
+            page.mouse.click(*_screen(page, x, y))
+        page.mouse.dblclick(*_screen(page, 30, 185))
+        page.check('input[name="stool"][value="holepoly"]')
+        for x, y in [(200, 90), (260, 90)]:
+            page.mouse.click(*_screen(page, x, y))
+        page.mouse.dblclick(*_screen(page, 230, 140))
+        roi = page.evaluate("window.dicView.roi")
+        assert len(roi["outer"]["points"]) == 4 and len(roi["holes"]) == 1
+        page.click("#save")
+        page.wait_for_selector("#saved:not(:empty)")
+        assert problems == []
+        page.close()
+    finally:
+        s.stop()
+    cfg = load_analysis(folder / "analysis.toml")
+    shape = read_image(folder / "coupon_000.png").shape
+    outer = [(round(x, 1), round(y, 1)) for x, y in roi["outer"]["points"]]
+    hole = [(round(x, 1), round(y, 1)) for x, y in roi["holes"][0]["points"]]
+    assert np.array_equal(read_image(cfg["roi"]) > 0,
+                          make_roi(outer, shape) & ~make_roi(hole, shape))
