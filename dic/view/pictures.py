@@ -30,14 +30,28 @@ def _encode_png(array) -> bytes:
     return buf.tobytes()
 
 
+#: images larger than this (px, either side) are sent shrunk by a whole factor; the page
+#: stretches them back over the image's own coordinates
+MAX_SIDE = 2048
+
+
 def grey_png(image) -> bytes:
     """An image of grey levels as an 8-bit PNG, stretched between its 0.5 and 99.5 percentiles.
+
+    Images with a side over :data:`MAX_SIDE` px are shrunk by a whole factor (pixel areas
+    averaged), so the page never receives more than a few megabytes.
 
     Parameters
     ----------
     image : ndarray, 2-D
     """
     img = np.asarray(image, dtype=np.float64)
+    shrink = -(-max(img.shape) // MAX_SIDE)
+    if shrink > 1:
+        import cv2
+
+        img = cv2.resize(img, (-(-img.shape[1] // shrink), -(-img.shape[0] // shrink)),
+                         interpolation=cv2.INTER_AREA)
     lo, hi = np.percentile(img, (0.5, 99.5))
     if not hi > lo:
         lo, hi = float(img.min()), float(img.min()) + 1.0
