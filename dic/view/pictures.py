@@ -6,8 +6,8 @@ import base64
 
 import numpy as np
 
-__all__ = ["grey_png", "map_png", "map_rgba", "data_url", "SIGNED_MAP", "MAGNITUDE_MAP", "colour_map_for",
-           "robust_limits"]
+__all__ = ["grey_png", "map_png", "map_rgba", "data_url", "SIGNED_MAP", "MAGNITUDE_MAP",
+           "colour_map_for", "robust_limits", "MAX_SIDE"]
 
 #: colour map of signed quantities (centred on zero) and of magnitudes, as in the figures
 SIGNED_MAP = "RdBu_r"

@@ -64,6 +64,7 @@ class _Cache:
         self.size, self.items = size, OrderedDict()
 
     def get(self, key, make):
+        """The stored value of ``key``, made by ``make()`` the first time."""
         if key in self.items:
             self.items.move_to_end(key)
             return self.items[key]
@@ -105,6 +106,7 @@ class ResultsData:
         self.measure = str(st.get("measure", "green-lagrange"))
 
     def close(self):
+        """Close the results file."""
         with self._lock:
             self.results.close()
 
@@ -216,6 +218,7 @@ class ResultsData:
         return k
 
     def field(self, k):
+        """The displacement field of frame ``k`` (kept for later requests)."""
         with self._lock:
             return self._fields.get(k, lambda: self.results.field(self._frame(k)))
 
@@ -234,6 +237,7 @@ class ResultsData:
             return self._strains.get((self._frame(k), measure, int(window)), make)
 
     def values(self, k, component, measure, window):
+        """One strain component of frame ``k`` on the grid (NaN where blank)."""
         s = self.strain(k, measure, window)
         if s is None:
             return np.full(self.results.shape, np.nan)
@@ -251,6 +255,7 @@ class ResultsData:
         return "".join(str(int(q)) for q in self.code_grid(k, component, measure, window).ravel())
 
     def limits(self, k, component, measure, window, mode):
+        """Colour limits over every frame (``"shared"``) or over frame ``k`` (``"frame"``)."""
         if mode == "frame":
             return robust_limits(self.values(k, component, measure, window), component)
         key = (component, measure, window)
@@ -325,6 +330,7 @@ class ResultsData:
 
     # -- histories ----------------------------------------------------------------------------
     def nearest(self, x, y):
+        """Row and column of the grid point nearest ``(x, y)`` px."""
         gx, gy = self.results.grid_x, self.results.grid_y
         d = (gx - x) ** 2 + (gy - y) ** 2
         i, j = np.unravel_index(int(np.argmin(d)), d.shape)

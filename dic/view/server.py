@@ -180,6 +180,7 @@ class ViewServer:
 
     @property
     def mode(self) -> str:
+        """``"results"`` or ``"setup"``."""
         return "results" if hasattr(self.source, "frame_map") else "setup"
 
     def serve_forever(self):
@@ -205,6 +206,7 @@ class ViewServer:
 
     # -- routes ---------------------------------------------------------------------------------
     def route(self, h, method, path, q):
+        """Answer one checked request (``h`` is the request handler)."""
         s = self.source
         if method == "GET" and path in ("/", "/index.html"):
             page = _static("index.html").decode("utf-8").replace("{{TOKEN}}", self.token)

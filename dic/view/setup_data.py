@@ -111,6 +111,7 @@ class SetupData:
             pass  # the page's own request reports it
 
     def reference(self):
+        """The reference image (read once)."""
         from dic.images.io import read_image
 
         with self._lock:
@@ -122,6 +123,7 @@ class SetupData:
             return self._ref
 
     def info(self) -> dict:
+        """Everything the set-up page needs once: images, size, the settings it starts from."""
         m, st = self.base.get("matching", {}), self.base.get("strain", {})
         roi, sc = self.base.get("roi", {}), self.base.get("scale", {})
         return {"mode": "setup", "name": self.folder.name, "frames": len(self.images),
@@ -137,6 +139,7 @@ class SetupData:
                                                                 "length_mm")}}
 
     def image_png(self, k: int) -> bytes:
+        """Image ``k`` of the folder as an 8-bit PNG."""
         from dic.images.io import read_image
 
         if not 0 <= k < len(self.images):
