@@ -525,6 +525,12 @@ def test_dic_view_of_a_missing_path_is_one_line_and_exit_2(tmp_path):
     assert done.returncode == 2
     assert done.stderr.startswith("dic: error: ") and done.stderr.count("\n") == 1
     assert "Traceback" not in done.stderr
+    # one image instead of a folder: the message says what to give
+    done = subprocess.run([sys.executable, "-m", "dic", "view",
+                           str(SAMPLE / "coupon_000.png"), "--no-browser"],
+                          capture_output=True, text=True, timeout=120,
+                          env={**__import__("os").environ, "PYTHONPATH": str(ROOT)})
+    assert done.returncode == 2 and "give the folder of images" in done.stderr
 
 
 def test_polygon_area_and_polygon_hole_drawn_by_clicks(browser, server, run, tmp_path):

@@ -29,6 +29,8 @@ from importlib import resources
 from pathlib import Path
 from urllib.parse import parse_qs, unquote, urlsplit
 
+from dic.errors import InputError
+
 __all__ = ["ViewServer", "start_server", "source_for", "CSP", "HOST"]
 
 log = logging.getLogger("dic.view")
@@ -49,7 +51,12 @@ def source_for(path, out=None):
     from dic.view.results_data import RESULTS_NAME, ResultsData
     from dic.view.setup_data import SetupData
 
+    from dic.images.io import IMAGE_EXTENSIONS
+
     p = Path(path)
+    if p.is_file() and p.suffix.lower() in IMAGE_EXTENSIONS:
+        raise InputError(f"PATH: '{p}' is one image; give the folder of images for the set-up "
+                         "page, or a results file")
     if p.is_file() or (p.is_dir() and (p / RESULTS_NAME).is_file()):
         return ResultsData(p)
     if not p.exists() and not any(c in str(p) for c in "*?["):
