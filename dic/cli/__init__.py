@@ -11,8 +11,9 @@ Commands
     Running the same command again resumes after the last completed frame.
 ``dic info RESULTS``
     Summarise a results file (or the ``results.h5`` of an output folder).
-``dic tensile``, ``dic report``, ``dic export``, ``dic pattern``, ``dic noise``, ``dic advise``
-    Defined in ``dic.cli.tensile``, ``dic.cli.report`` and ``dic.cli.metrology``.
+``dic tensile``, ``dic report``, ``dic export``, ``dic pattern``, ``dic noise``, ``dic advise``,
+``dic view``
+    Defined in ``dic.cli.tensile``, ``dic.cli.report``, ``dic.cli.metrology`` and ``dic.cli.view``.
 
 With ``--config`` and an output folder, ``dic run`` goes on, once every frame is done, to what
 the analysis file's ``[tensile]`` and ``[report]`` tables ask for (:func:`dic.workflow.run.finish`).
@@ -59,8 +60,9 @@ def _build_parser():
     from dic.cli import report as _cli_report
     from dic.cli import run as _cli_run
     from dic.cli import tensile as _cli_tensile
+    from dic.cli import view as _cli_view
 
-    for module in (_cli_run, _cli_tensile, _cli_report, _cli_metrology):
+    for module in (_cli_run, _cli_tensile, _cli_report, _cli_metrology, _cli_view):
         module.register(commands)
     return parser
 
