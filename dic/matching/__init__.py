@@ -68,6 +68,8 @@ class _Propagation:
         self.iters = np.zeros(n, np.int16)
         self.sigma = np.full(n, np.nan)
         self.unc = np.full((n, 6), np.nan)
+        #: grey-level standard deviation of each candidate's reference subset
+        self.std = np.full(n, np.nan)
         self.n_matched = 0
         self.seed_time = 0.0
 
@@ -75,13 +77,20 @@ class _Propagation:
         """Mark points whose reference subset has too little texture before any matching:
         grey-level standard deviation below ``min_std``, or a predicted standard deviation of
         u or v above ``max_sigma`` px (see :func:`dic.matching.translation_sigma`)."""
-        from dic.matching._icgn_kernel import subset_std
+        from dic.images.parallel import run_chunks
+        from dic.matching._icgn_kernel import subset_stats
 
         todo = np.flatnonzero(self.state == self.w.TODO)
-        std = np.empty(todo.size)
-        subset_std(self.m.reference, self.px[todo], self.py[todo], self.m.half, std)
-        sig = translation_sigma(self.m.gx, self.m.gy, self.px[todo], self.py[todo],
-                                self.m.half, noise)
+        std, sxx, syy = np.empty(todo.size), np.empty(todo.size), np.empty(todo.size)
+        run_chunks(subset_stats, todo.size, self.m.reference, self.m.gx, self.m.gy,
+                   self.px[todo], self.py[todo], self.m.half, std, sxx, syy, min_chunk=64)
+        self.std[todo] = std
+        # the translation-only prediction of dic.matching.translation_sigma, from the same sums
+        s2 = float(np.nansum(np.square(np.asarray(noise, dtype=np.float64))))
+        smin = np.minimum(sxx, syy)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sig = np.where(smin > 1e-12 * max(float(smin.max(initial=0.0)), 1e-300),
+                           np.sqrt(s2 / smin), np.inf)
         # a constant subset (std at rounding level of its grey values) is flat whatever noise
         scale = 1e-6 * max(float(np.abs(self.m.reference).max(initial=0.0)), 1e-300)
         flat = todo[(std < min_std) | (std <= scale) | ~(sig <= max_sigma)]
@@ -207,7 +216,7 @@ def _parse_seeds(seeds):
 def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None,
               shape_function: str = "auto", interpolation: str = "quintic",
               seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
-              max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.0,
+              max_iterations: int = 50, tolerance: float = 0.02, min_texture: float = 0.0,
               max_sigma: float = 0.2, initial: DisplacementField | None = None, workers: int | None = None,
               image_noise=None, _prepared=None, _points=None) -> DisplacementField:
     """Measure the displacement field between a reference and a deformed image.
@@ -591,15 +600,7 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
 
 def _subset_std(prop, good):
     """Grey-level standard deviation of the reference subsets at the points ``good``."""
-    from dic.matching._icgn_kernel import subset_std
-
-    std = np.full(good.size, np.nan)
-    k = np.flatnonzero(good)
-    if k.size:
-        tmp = np.empty(k.size)
-        subset_std(prop.m.reference, prop.px[k], prop.py[k], prop.m.half, tmp)
-        std[k] = tmp
-    return std
+    return np.where(good, prop.std, np.nan)
 
 
 def _finish(prop, shape_order, noise, order, max_sigma):
