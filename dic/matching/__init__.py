@@ -121,7 +121,8 @@ class _Propagation:
         """Grow outwards from ``new_good`` until no neighbour is left to match.
 
         On larger grids the growth first runs over the lattice of every second point (a quarter
-        of the points, in half the number of waves); the points in between are then matched in
+        of the points, with diagonal neighbours, in a quarter of the number of waves); the
+        points in between are then matched in
         one row-ordered batch from their best matched neighbour, which keeps both cores busy
         and the image data in cache. Points that fail there get one more try from a
         4-neighbour before the final waves over the full grid.
@@ -145,7 +146,8 @@ class _Propagation:
         while new_good.size:
             idx, p0 = self.w.next_wave(self.state, self.zncc, self.params, self.nx, self.ny,
                                        self.px, self.py, self.m.second,
-                                       new_good.astype(np.int64), stride)
+                                       new_good.astype(np.int64), stride,
+                                       8 if stride > 1 else 4)
             if idx.size == 0:
                 break
             new_good = self.run(idx, p0)
