@@ -9,25 +9,29 @@ The number of threads is numba's (:func:`numba.get_num_threads`, set by ``worker
 
 from __future__ import annotations
 
+import os
 import threading
 
 __all__ = ["run_chunks"]
 
 _pool = None
 _pool_size = 0
+_pool_pid = None
 _lock = threading.Lock()
 
 
 def _executor(n):
-    global _pool, _pool_size
+    global _pool, _pool_size, _pool_pid
     with _lock:
-        if _pool is None or _pool_size < n:
+        # a forked child inherits the pool object but not its threads: make a new one
+        if _pool is None or _pool_size < n or _pool_pid != os.getpid():
             from concurrent.futures import ThreadPoolExecutor
 
-            if _pool is not None:
+            if _pool is not None and _pool_pid == os.getpid():
                 _pool.shutdown(wait=False)
             _pool = ThreadPoolExecutor(max_workers=n, thread_name_prefix="dic-kernel")
             _pool_size = n
+            _pool_pid = os.getpid()
         return _pool
 
 
@@ -72,4 +76,6 @@ def run_chunks(kernel, n, *args, per_thread=4, min_chunk=1):
     futures = [pool.submit(worker) for _ in range(threads - 1)]
     worker()
     for f in futures:
-        f.result()
+        # a helper that has not started yet finds no work left: no need to wait for it
+        if not f.cancel():
+            f.result()
