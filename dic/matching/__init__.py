@@ -28,6 +28,11 @@ __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAP
 
 #: 'auto' shape function: second order where first order would be biased by more than this (px)
 AUTO_BIAS = 0.01
+#: a match below min_zncc still counts when its ZNCC is at least WEAK_ZNCC and its standard
+#: deviation from the fit (dic.matching.posterior_sigma) at most WEAK_SIGMA x max_sigma: on
+#: noisy, low-texture photographs the ZNCC stays low although the match is well determined
+WEAK_ZNCC = 0.5
+WEAK_SIGMA = 0.5
 #: normalised median test (Westerweel & Scarano 2005): noise level (px) and threshold
 MEDIAN_EPS = 0.1
 MEDIAN_THRESHOLD = 2.0
@@ -48,7 +53,7 @@ _COARSE_MIN = 12
 class _Propagation:
     """State of one reliability-guided propagation over the point grid."""
 
-    def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc):
+    def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc, weak_sigma=0.0):
         from dic.matching import _waves
 
         self.w = _waves
@@ -57,6 +62,7 @@ class _Propagation:
         self.px = np.ascontiguousarray(gx, dtype=np.int64).ravel()
         self.py = np.ascontiguousarray(gy, dtype=np.int64).ravel()
         self.min_zncc = min_zncc
+        self.weak_sigma = weak_sigma
         n = candidate.size
         self.state = np.where(candidate.ravel(), _waves.TODO, _waves.NOT_CANDIDATE).astype(
             np.int8)
@@ -102,6 +108,15 @@ class _Propagation:
         res = self.m.match(self.px[idx], self.py[idx], p0)
         self.n_matched += len(idx)
         good = (res.status == Reason.MEASURED) & (res.zncc >= self.min_zncc)
+        # a noisy but well-determined match: low ZNCC, small standard deviation from the fit
+        weak = np.flatnonzero((res.status == Reason.MEASURED) & ~good
+                              & (res.zncc >= WEAK_ZNCC))
+        if weak.size and self.weak_sigma > 0:
+            npix = (2 * self.m.half + 1) ** 2
+            su, sv = posterior_sigma(self.std[idx[weak]], res.zncc[weak],
+                                     res.uncertainty[weak], npix, n_params(self.m.second),
+                                     self.m.order)
+            good[weak] = (su <= self.weak_sigma) & (sv <= self.weak_sigma)
         status = np.where((res.status == Reason.MEASURED) & ~good, Reason.LOW_ZNCC,
                           res.status).astype(np.int8)
         self.params[idx] = res.params
@@ -257,7 +272,10 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     search : int, optional
         Search radius (px) of the FFT starting guess at seed points.
     min_zncc : float, optional
-        Matches with a lower zero-normalised cross-correlation are rejected.
+        Matches with a lower zero-normalised cross-correlation are rejected, unless their ZNCC
+        is at least 0.5 and their standard deviation from the fit (see ``max_sigma``) at most
+        half of ``max_sigma``: on noisy, low-texture images a well-determined match can have
+        a low ZNCC.
     max_iterations : int, optional
         Gauss-Newton iteration cap.
     tolerance : float, optional
@@ -347,7 +365,8 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
                                 max_iterations=max_iterations, tolerance=tolerance,
                                 min_std=min_std, reference_gradients=_prepared)
         t1 = time.perf_counter()
-        prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc)
+        prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc,
+                            WEAK_SIGMA * max_sigma)
         prop.mark_flat(min_std, max_sigma, noise)
         _solve(prop, ref, dfm, search, seed_list, initial)
         t2 = time.perf_counter()
@@ -590,7 +609,8 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
     start[:, 3:6] = c[:, 0]
     start[:, 9:12] = c[:, 1]
     res = m2.match(prop.px[idx], prop.py[idx], start)
-    ok = (res.status == Reason.MEASURED) & (res.zncc >= prop.min_zncc)
+    # at least as good as the first-order match it replaces (which may be a weak one)
+    ok = (res.status == Reason.MEASURED) & (res.zncc >= np.fmin(prop.min_zncc, prop.zncc[idx]))
     k = idx[ok]
     p12[k] = res.params[ok]
     prop.zncc[k] = res.zncc[ok]
