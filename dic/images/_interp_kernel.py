@@ -129,3 +129,13 @@ def separable_at_nodes(coef, pad, rows, cols, wx, wy, out):
     tmp = np.empty((rows + 2 * ky, cols))
     run_chunks(_filter_x, rows + 2 * ky, coef, pad - ky, pad, cols, wx, tmp, min_chunk=16)
     run_chunks(_filter_y, rows, tmp, wy, out, min_chunk=16)
+
+
+def derivative_x(a, k, cols, w, out):
+    """out[r, c] = sum_j w[j] a[r, k + c + j - K] (rows in parallel)."""
+    run_chunks(_filter_x, out.shape[0], a, 0, k, cols, w, out, min_chunk=16)
+
+
+def derivative_y(a, w, out):
+    """out[r, c] = sum_j w[j] a[r + j, c] (a has len(w) - 1 more rows than out)."""
+    run_chunks(_filter_y, out.shape[0], a, w, out, min_chunk=16)

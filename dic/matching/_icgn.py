@@ -132,8 +132,7 @@ class SubsetMatcher:
         self.border = edge_margin(self.order)
         self.fast = True
         if reference_gradients is None:
-            reference_gradients = interp.reference_gradients(
-                interp.prefilter(self.reference, self.order))
+            reference_gradients = interp.image_gradients(self.reference, self.order)
         self.gx, self.gy = reference_gradients
         if deformed_spline is None:
             deformed_spline = interp.prefilter(deformed, self.order)
