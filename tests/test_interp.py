@@ -55,6 +55,20 @@ def test_reference_gradients_are_spline_derivatives(image, order):
     np.testing.assert_allclose(gy[2:-2, 2:-2], (f(r + h, c) - f(r - h, c)) / (2 * h), atol=1e-5)
 
 
+@pytest.mark.parametrize("order", [3, 5])
+def test_image_gradients_are_spline_derivatives(image, order):
+    # the same oracle as above (central differences of scipy's interpolant), over the whole
+    # image this time: the border follows the mirror boundary condition of scipy's 'mirror'
+    gx, gy = interp.image_gradients(image, order)
+    h = 1e-5
+    r, c = np.mgrid[0:image.shape[0], 0:image.shape[1]].astype(float)
+    f = lambda rr, cc: ndimage.map_coordinates(image, [rr, cc], order=order, mode="mirror")
+    np.testing.assert_allclose(gx[:, 1:-1], ((f(r, c + h) - f(r, c - h)) / (2 * h))[:, 1:-1],
+                               atol=1e-5)
+    np.testing.assert_allclose(gy[1:-1], ((f(r + h, c) - f(r - h, c)) / (2 * h))[1:-1],
+                               atol=1e-5)
+
+
 def test_basis_functions_are_partitions_of_unity():
     # B-splines sum to one over integer shifts (Unser 1999)
     t = np.linspace(0, 1, 11)

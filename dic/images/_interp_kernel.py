@@ -1,4 +1,4 @@
-"""Compiled B-spline prefilter and derivative filters (numba), parallel over lines.
+"""Compiled B-spline prefilter and derivative filters (numba), run in threads over lines.
 
 Private: :mod:`dic.images.interp` wraps these and checks their input.
 
@@ -11,7 +11,9 @@ References
 """
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
+
+from dic.images.parallel import run_chunks
 
 _BLOCK = 64
 
@@ -22,36 +24,50 @@ def _horizon(z, n):
     return min(h, n)
 
 
-@njit(cache=True, parallel=True)
-def filter_rows(img, poles, gain, out):
-    """Recursive B-spline prefilter along axis 1 (mirror boundaries), rows in parallel."""
-    rows, n = img.shape
-    for r in prange(rows):
-        for i in range(n):
-            out[r, i] = img[r, i] * gain
+@njit(cache=True, nogil=True)
+def _filter_rows(lo, hi, img, poles, gain, out):
+    """Recursive B-spline prefilter along axis 1 (mirror boundaries), rows lo..hi-1.
+
+    Eight rows at a time, the inner loop running across them: the recursion along a row is a
+    chain of dependent operations, and eight independent chains keep the processor busy."""
+    n = img.shape[1]
+    for r0 in range(lo, hi, 8):
+        r1 = min(hi, r0 + 8)
+        for r in range(r0, r1):
+            for i in range(n):
+                out[r, i] = img[r, i] * gain
         if n == 1:
             continue
         for z in poles:
             h = _horizon(z, n)
-            s = out[r, 0]
-            zn = z
-            for i in range(1, h):
-                s += zn * out[r, i]
-                zn *= z
-            out[r, 0] = s
+            k = z / (z * z - 1.0)
+            for r in range(r0, r1):
+                s = out[r, 0]
+                zn = z
+                for i in range(1, h):
+                    s += zn * out[r, i]
+                    zn *= z
+                out[r, 0] = s
             for i in range(1, n):
-                out[r, i] += z * out[r, i - 1]
-            out[r, n - 1] = (z / (z * z - 1.0)) * (z * out[r, n - 2] + out[r, n - 1])
+                for r in range(r0, r1):
+                    out[r, i] += z * out[r, i - 1]
+            for r in range(r0, r1):
+                out[r, n - 1] = k * (z * out[r, n - 2] + out[r, n - 1])
             for i in range(n - 2, -1, -1):
-                out[r, i] = z * (out[r, i + 1] - out[r, i])
+                for r in range(r0, r1):
+                    out[r, i] = z * (out[r, i + 1] - out[r, i])
 
 
-@njit(cache=True, parallel=True)
-def filter_cols(a, poles, gain):
-    """Recursive B-spline prefilter along axis 0, in place, blocks of columns in parallel."""
+def filter_rows(img, poles, gain, out):
+    """Recursive B-spline prefilter along axis 1 (mirror boundaries), rows in parallel."""
+    run_chunks(_filter_rows, img.shape[0], img, poles, gain, out, min_chunk=16)
+
+
+@njit(cache=True, nogil=True)
+def _filter_cols(lo, hi, a, poles, gain):
+    """Recursive B-spline prefilter along axis 0, in place, column blocks lo..hi-1."""
     n, cols = a.shape
-    nblk = (cols + _BLOCK - 1) // _BLOCK
-    for b in prange(nblk):
+    for b in range(lo, hi):
         c0 = b * _BLOCK
         c1 = min(cols, c0 + _BLOCK)
         for r in range(n):
@@ -77,11 +93,16 @@ def filter_cols(a, poles, gain):
                     a[r, c] = z * (a[r + 1, c] - a[r, c])
 
 
-@njit(cache=True, parallel=True)
-def _filter_x(coef, r0, r1, c0, cols, w, out):
-    """out[r - r0, c] = sum_k w[k] coef[r, c0 + c + k - K] for rows r0..r1-1."""
+def filter_cols(a, poles, gain):
+    """Recursive B-spline prefilter along axis 0, in place, blocks of columns in parallel."""
+    run_chunks(_filter_cols, (a.shape[1] + _BLOCK - 1) // _BLOCK, a, poles, gain)
+
+
+@njit(cache=True, nogil=True)
+def _filter_x(lo, hi, coef, r0, c0, cols, w, out):
+    """out[r - r0, c] = sum_k w[k] coef[r, c0 + c + k - K] for rows r0 + lo..r0 + hi - 1."""
     kk = w.shape[0] // 2
-    for r in prange(r0, r1):
+    for r in range(r0 + lo, r0 + hi):
         for c in range(cols):
             acc = 0.0
             for k in range(w.shape[0]):
@@ -89,11 +110,11 @@ def _filter_x(coef, r0, r1, c0, cols, w, out):
             out[r - r0, c] = acc
 
 
-@njit(cache=True, parallel=True)
-def _filter_y(a, rows, w, out):
-    """out[r, c] = sum_j w[j] a[r + j, c] (a has len(w) - 1 more rows than out)."""
+@njit(cache=True, nogil=True)
+def _filter_y(lo, hi, a, w, out):
+    """out[r, c] = sum_j w[j] a[r + j, c] for rows lo..hi-1 (a has len(w) - 1 more rows)."""
     cols = out.shape[1]
-    for r in prange(rows):
+    for r in range(lo, hi):
         for c in range(cols):
             out[r, c] = 0.0
         for j in range(w.shape[0]):
@@ -106,5 +127,15 @@ def separable_at_nodes(coef, pad, rows, cols, wx, wy, out):
     """out[r, c] = sum_jk wy[j] wx[k] coef[pad + r + j - K, pad + c + k - K], K = len(w) // 2."""
     ky = wy.shape[0] // 2
     tmp = np.empty((rows + 2 * ky, cols))
-    _filter_x(coef, pad - ky, pad + rows + ky, pad, cols, wx, tmp)
-    _filter_y(tmp, rows, wy, out)
+    run_chunks(_filter_x, rows + 2 * ky, coef, pad - ky, pad, cols, wx, tmp, min_chunk=16)
+    run_chunks(_filter_y, rows, tmp, wy, out, min_chunk=16)
+
+
+def derivative_x(a, k, cols, w, out):
+    """out[r, c] = sum_j w[j] a[r, k + c + j - K] (rows in parallel)."""
+    run_chunks(_filter_x, out.shape[0], a, 0, k, cols, w, out, min_chunk=16)
+
+
+def derivative_y(a, w, out):
+    """out[r, c] = sum_j w[j] a[r + j, c] (a has len(w) - 1 more rows than out)."""
+    run_chunks(_filter_y, out.shape[0], a, w, out, min_chunk=16)

@@ -28,6 +28,11 @@ __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAP
 
 #: 'auto' shape function: second order where first order would be biased by more than this (px)
 AUTO_BIAS = 0.01
+#: a match below min_zncc still counts when its ZNCC is at least WEAK_ZNCC and its standard
+#: deviation from the fit (dic.matching.posterior_sigma) at most WEAK_SIGMA x max_sigma: on
+#: noisy, low-texture photographs the ZNCC stays low although the match is well determined
+WEAK_ZNCC = 0.5
+WEAK_SIGMA = 0.5
 #: normalised median test (Westerweel & Scarano 2005): noise level (px) and threshold
 MEDIAN_EPS = 0.1
 MEDIAN_THRESHOLD = 2.0
@@ -48,7 +53,7 @@ _COARSE_MIN = 12
 class _Propagation:
     """State of one reliability-guided propagation over the point grid."""
 
-    def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc):
+    def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc, weak_sigma=0.0):
         from dic.matching import _waves
 
         self.w = _waves
@@ -57,6 +62,7 @@ class _Propagation:
         self.px = np.ascontiguousarray(gx, dtype=np.int64).ravel()
         self.py = np.ascontiguousarray(gy, dtype=np.int64).ravel()
         self.min_zncc = min_zncc
+        self.weak_sigma = weak_sigma
         n = candidate.size
         self.state = np.where(candidate.ravel(), _waves.TODO, _waves.NOT_CANDIDATE).astype(
             np.int8)
@@ -68,6 +74,8 @@ class _Propagation:
         self.iters = np.zeros(n, np.int16)
         self.sigma = np.full(n, np.nan)
         self.unc = np.full((n, 6), np.nan)
+        #: grey-level standard deviation of each candidate's reference subset
+        self.std = np.full(n, np.nan)
         self.n_matched = 0
         self.seed_time = 0.0
 
@@ -75,13 +83,20 @@ class _Propagation:
         """Mark points whose reference subset has too little texture before any matching:
         grey-level standard deviation below ``min_std``, or a predicted standard deviation of
         u or v above ``max_sigma`` px (see :func:`dic.matching.translation_sigma`)."""
-        from dic.matching._icgn_kernel import subset_std
+        from dic.images.parallel import run_chunks
+        from dic.matching._icgn_kernel import subset_stats
 
         todo = np.flatnonzero(self.state == self.w.TODO)
-        std = np.empty(todo.size)
-        subset_std(self.m.reference, self.px[todo], self.py[todo], self.m.half, std)
-        sig = translation_sigma(self.m.gx, self.m.gy, self.px[todo], self.py[todo],
-                                self.m.half, noise)
+        std, sxx, syy = np.empty(todo.size), np.empty(todo.size), np.empty(todo.size)
+        run_chunks(subset_stats, todo.size, self.m.reference, self.m.gx, self.m.gy,
+                   self.px[todo], self.py[todo], self.m.half, std, sxx, syy, min_chunk=64)
+        self.std[todo] = std
+        # the translation-only prediction of dic.matching.translation_sigma, from the same sums
+        s2 = float(np.nansum(np.square(np.asarray(noise, dtype=np.float64))))
+        smin = np.minimum(sxx, syy)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            sig = np.where(smin > 1e-12 * max(float(smin.max(initial=0.0)), 1e-300),
+                           np.sqrt(s2 / smin), np.inf)
         # a constant subset (std at rounding level of its grey values) is flat whatever noise
         scale = 1e-6 * max(float(np.abs(self.m.reference).max(initial=0.0)), 1e-300)
         flat = todo[(std < min_std) | (std <= scale) | ~(sig <= max_sigma)]
@@ -93,6 +108,15 @@ class _Propagation:
         res = self.m.match(self.px[idx], self.py[idx], p0)
         self.n_matched += len(idx)
         good = (res.status == Reason.MEASURED) & (res.zncc >= self.min_zncc)
+        # a noisy but well-determined match: low ZNCC, small standard deviation from the fit
+        weak = np.flatnonzero((res.status == Reason.MEASURED) & ~good
+                              & (res.zncc >= WEAK_ZNCC))
+        if weak.size and self.weak_sigma > 0:
+            npix = (2 * self.m.half + 1) ** 2
+            su, sv = posterior_sigma(self.std[idx[weak]], res.zncc[weak],
+                                     res.uncertainty[weak], npix, n_params(self.m.second),
+                                     self.m.order)
+            good[weak] = (su <= self.weak_sigma) & (sv <= self.weak_sigma)
         status = np.where((res.status == Reason.MEASURED) & ~good, Reason.LOW_ZNCC,
                           res.status).astype(np.int8)
         self.params[idx] = res.params
@@ -112,7 +136,8 @@ class _Propagation:
         """Grow outwards from ``new_good`` until no neighbour is left to match.
 
         On larger grids the growth first runs over the lattice of every second point (a quarter
-        of the points, in half the number of waves); the points in between are then matched in
+        of the points, with diagonal neighbours, in a quarter of the number of waves); the
+        points in between are then matched in
         one row-ordered batch from their best matched neighbour, which keeps both cores busy
         and the image data in cache. Points that fail there get one more try from a
         4-neighbour before the final waves over the full grid.
@@ -136,7 +161,8 @@ class _Propagation:
         while new_good.size:
             idx, p0 = self.w.next_wave(self.state, self.zncc, self.params, self.nx, self.ny,
                                        self.px, self.py, self.m.second,
-                                       new_good.astype(np.int64), stride)
+                                       new_good.astype(np.int64), stride,
+                                       8 if stride > 1 else 4)
             if idx.size == 0:
                 break
             new_good = self.run(idx, p0)
@@ -207,7 +233,7 @@ def _parse_seeds(seeds):
 def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None,
               shape_function: str = "auto", interpolation: str = "quintic",
               seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
-              max_iterations: int = 50, tolerance: float = 3e-3, min_texture: float = 0.0,
+              max_iterations: int = 50, tolerance: float = 0.02, min_texture: float = 0.0,
               max_sigma: float = 0.2, initial: DisplacementField | None = None, workers: int | None = None,
               image_noise=None, _prepared=None, _points=None) -> DisplacementField:
     """Measure the displacement field between a reference and a deformed image.
@@ -246,7 +272,10 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     search : int, optional
         Search radius (px) of the FFT starting guess at seed points.
     min_zncc : float, optional
-        Matches with a lower zero-normalised cross-correlation are rejected.
+        Matches with a lower zero-normalised cross-correlation are rejected, unless their ZNCC
+        is at least 0.5 and their standard deviation from the fit (see ``max_sigma``) at most
+        half of ``max_sigma``: on noisy, low-texture images a well-determined match can have
+        a low ZNCC.
     max_iterations : int, optional
         Gauss-Newton iteration cap.
     tolerance : float, optional
@@ -336,7 +365,8 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
                                 max_iterations=max_iterations, tolerance=tolerance,
                                 min_std=min_std, reference_gradients=_prepared)
         t1 = time.perf_counter()
-        prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc)
+        prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc,
+                            WEAK_SIGMA * max_sigma)
         prop.mark_flat(min_std, max_sigma, noise)
         _solve(prop, ref, dfm, search, seed_list, initial)
         t2 = time.perf_counter()
@@ -579,7 +609,8 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
     start[:, 3:6] = c[:, 0]
     start[:, 9:12] = c[:, 1]
     res = m2.match(prop.px[idx], prop.py[idx], start)
-    ok = (res.status == Reason.MEASURED) & (res.zncc >= prop.min_zncc)
+    # at least as good as the first-order match it replaces (which may be a weak one)
+    ok = (res.status == Reason.MEASURED) & (res.zncc >= np.fmin(prop.min_zncc, prop.zncc[idx]))
     k = idx[ok]
     p12[k] = res.params[ok]
     prop.zncc[k] = res.zncc[ok]
@@ -591,15 +622,7 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
 
 def _subset_std(prop, good):
     """Grey-level standard deviation of the reference subsets at the points ``good``."""
-    from dic.matching._icgn_kernel import subset_std
-
-    std = np.full(good.size, np.nan)
-    k = np.flatnonzero(good)
-    if k.size:
-        tmp = np.empty(k.size)
-        subset_std(prop.m.reference, prop.px[k], prop.py[k], prop.m.half, tmp)
-        std[k] = tmp
-    return std
+    return np.where(good, prop.std, np.nan)
 
 
 def _finish(prop, shape_order, noise, order, max_sigma):

@@ -183,27 +183,33 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
     y = np.asarray(y, dtype=np.float64)
     offs = [(dr, dc) for dr in (-1, 0, 1) for dc in (-1, 0, 1) if (dr, dc) != (0, 0)]
 
-    def shifted(a, dr, dc):
-        pad = np.pad(a, 1, constant_values=np.nan)
-        return pad[1 + dr:1 + dr + ny, 1 + dc:1 + dc + nx]
+    def padded(a):
+        return np.pad(np.asarray(a, dtype=np.float64), 1, constant_values=np.nan)
 
+    def shifted(p, dr, dc):
+        return p[1 + dr:1 + dr + ny, 1 + dc:1 + dc + nx]
+
+    xp, yp = padded(x), padded(y)
+    dd = {o: (x - shifted(xp, *o), y - shifted(yp, *o)) for o in offs}
     for i, comp in enumerate((u, v)):
         a = np.where(valid, comp, np.nan)
-        gxx = np.where(valid, grad[..., i, 0], np.nan)
-        gyy = np.where(valid, grad[..., i, 1], np.nan)
+        ap = padded(a)
+        gxp = padded(np.where(valid, grad[..., i, 0], np.nan))
+        gyp = padded(np.where(valid, grad[..., i, 1], np.nan))
         if grad2 is None:
-            h = np.zeros(valid.shape + (3,))
+            hp = None
         else:
             h = np.nan_to_num(np.asarray(grad2, dtype=np.float64)[..., i, :])
+            hp = [padded(h[..., k]) for k in range(3)]
         preds = []
-        for dr, dc in offs:
-            ddx = x - shifted(x, dr, dc)
-            ddy = y - shifted(y, dr, dc)
-            preds.append(shifted(a, dr, dc) + shifted(gxx, dr, dc) * ddx
-                         + shifted(gyy, dr, dc) * ddy
-                         + 0.5 * shifted(h[..., 0], dr, dc) * ddx * ddx
-                         + shifted(h[..., 1], dr, dc) * ddx * ddy
-                         + 0.5 * shifted(h[..., 2], dr, dc) * ddy * ddy)
+        for o in offs:
+            ddx, ddy = dd[o]
+            pr = shifted(ap, *o) + shifted(gxp, *o) * ddx + shifted(gyp, *o) * ddy
+            if hp is not None:
+                pr = pr + (0.5 * shifted(hp[0], *o) * ddx * ddx
+                           + shifted(hp[1], *o) * ddx * ddy
+                           + 0.5 * shifted(hp[2], *o) * ddy * ddy)
+            preds.append(pr)
         nb = np.stack(preds)
         count = np.isfinite(nb).sum(axis=0)
         if ny >= 3 and nx >= 3:
@@ -213,13 +219,24 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
         ok = valid & (count >= min_neighbours)
         if not ok.any():
             continue
-        sub = nb[:, ok]
+        sub = nb[:, ok].T
         with np.errstate(invalid="ignore"):
-            med = np.nanmedian(sub, axis=0)
-            rm = np.nanmedian(np.abs(sub - med), axis=0)
+            med = _nanmedian_rows(sub)
+            rm = _nanmedian_rows(np.abs(sub - med[:, None]))
         r0 = np.abs(a[ok] - med) / (rm + eps)
         out[ok] |= r0 > threshold
     return out
+
+
+def _nanmedian_rows(a):
+    """Median of the finite entries of each row (as ``np.nanmedian(a, axis=1)``; rows here
+    have at least one finite entry): a sort puts NaN last, so the median sits at the middle of
+    the finite part. Several times faster than nanmedian on many short rows."""
+    s = np.sort(a, axis=1)
+    k = np.isfinite(a).sum(axis=1)
+    lo = np.take_along_axis(s, np.maximum(k - 1, 0)[:, None] // 2, axis=1)[:, 0]
+    hi = np.take_along_axis(s, k[:, None] // 2, axis=1)[:, 0]
+    return np.where(k > 0, 0.5 * (lo + hi), np.nan)
 
 
 def translation_sigma(gx, gy, xs, ys, half, noise):

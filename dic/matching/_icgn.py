@@ -132,8 +132,7 @@ class SubsetMatcher:
         self.border = edge_margin(self.order)
         self.fast = True
         if reference_gradients is None:
-            reference_gradients = interp.reference_gradients(
-                interp.prefilter(self.reference, self.order))
+            reference_gradients = interp.image_gradients(self.reference, self.order)
         self.gx, self.gy = reference_gradients
         if deformed_spline is None:
             deformed_spline = interp.prefilter(deformed, self.order)
@@ -144,9 +143,7 @@ class SubsetMatcher:
 
     def match(self, xs, ys, p0) -> MatchResult:
         """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
-        from numba import get_num_threads
-
-        from dic.matching._icgn_kernel import match_batch
+        from dic.matching import _icgn_kernel as kern
 
         xs = np.ascontiguousarray(xs, dtype=np.int64)
         ys = np.ascontiguousarray(ys, dtype=np.int64)
@@ -159,10 +156,17 @@ class SubsetMatcher:
 
         t0 = time.perf_counter()
         if n:
-            match_batch(self.reference, self.gx, self.gy, self.spline.coef, self.spline.pad,
-                        self.order, xs, ys, p0, self.half, self.second, self.max_iterations,
-                        self.tolerance, self.min_std, float(self.border),
-                        64 * get_num_threads(), self.fast, out.params, out.status, out.zncc,
-                        out.iterations, out.sigma_factor, self.smat, out.uncertainty)
+            from dic.images.parallel import run_chunks
+
+            common = (self.reference, self.gx, self.gy, self.spline.coef, self.spline.pad,
+                      self.order, xs, ys, p0, self.half)
+            tail = (self.max_iterations, self.tolerance, self.min_std, float(self.border),
+                    out.params, out.status, out.zncc, out.iterations, out.sigma_factor,
+                    self.smat, out.uncertainty)
+            # only the solver a run uses gets compiled (first-order moment sums by default)
+            if self.fast and not self.second:
+                run_chunks(kern.match_first, n, *common, *tail, min_chunk=8)
+            else:
+                run_chunks(kern.match_general, n, *common, self.second, *tail, min_chunk=8)
         self.kernel_time += time.perf_counter() - t0
         return out

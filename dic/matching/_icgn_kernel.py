@@ -1,4 +1,5 @@
-"""Compiled IC-GN subset matching (numba), parallel over points.
+"""Compiled IC-GN subset matching (numba); the batch kernels release the GIL and handle a
+range of points, so :func:`dic.images.parallel.run_chunks` runs them in threads.
 
 Private: call it through :func:`dic.matching._icgn.match_points`, which checks the input.
 
@@ -14,7 +15,7 @@ Status codes follow :class:`dic.field.Reason`.
 """
 
 import numpy as np
-from numba import njit, prange
+from numba import njit
 
 MEASURED = 0
 OUTSIDE_IMAGE = 2
@@ -23,7 +24,7 @@ NO_CONVERGENCE = 4
 DEGENERATE = 7
 
 
-@njit(cache=True, inline="always", fastmath=True)
+@njit(cache=True, fastmath=True)
 def _eval_cubic(c, pad, x, y):
     ix = int(np.floor(x))
     iy = int(np.floor(y))
@@ -53,7 +54,7 @@ def _eval_cubic(c, pad, x, y):
     return acc
 
 
-@njit(cache=True, inline="always", fastmath=True)
+@njit(cache=True, fastmath=True)
 def _w5(t):
     """120 x the quintic B-spline weights of the samples at offsets -2..3, fraction t in [0, 1).
 
@@ -70,13 +71,13 @@ def _w5(t):
     return w0, w1, w2, w3, w4, w5
 
 
-@njit(cache=True, inline="always", fastmath=True)
+@njit(cache=True, fastmath=True)
 def _row6(c, r, q, x0, x1, x2, x3, x4, x5):
     return (x0 * c[r, q] + x1 * c[r, q + 1] + x2 * c[r, q + 2] + x3 * c[r, q + 3]
             + x4 * c[r, q + 4] + x5 * c[r, q + 5])
 
 
-@njit(cache=True, inline="always", fastmath=True)
+@njit(cache=True, fastmath=True)
 def _eval_quintic(c, pad, x, y):
     ix = int(np.floor(x))
     iy = int(np.floor(y))
@@ -688,59 +689,84 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
     return NO_CONVERGENCE, zncc, it, sigma_factor
 
 
-@njit(cache=True, parallel=True, fastmath=True)
-def match_batch(ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second, max_iter, tol,
-                min_std, border, nchunk, fast, out_p, out_status, out_zncc, out_iter, out_sigma,
-                smat, out_unc):
-    """Match the subsets centred on integer pixels (xs[k], ys[k]), in parallel.
+@njit(cache=True, nogil=True, fastmath=True)
+def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max_iter, tol,
+                min_std, border, out_p, out_status, out_zncc, out_iter, out_sigma, smat,
+                out_unc):
+    """Match the subsets centred on integer pixels (xs[k], ys[k]), k = lo..hi-1, first order.
 
-    ``fast`` selects the moment-sum first-order solver; False runs the general one (used by the
-    tests to check the two against each other). ``out_unc[k]`` receives the uncertainty terms of
-    :func:`_uncertainty_terms` (NaN where the Hessian was not inverted); ``smat`` is the subset
-    sum of the outer products of the shape-function vectors."""
-    npts = xs.shape[0]
+    The moment-sum solver :func:`_match_affine`. ``out_unc[k]`` receives the uncertainty terms
+    of :func:`_uncertainty_terms` (NaN where the Hessian was not inverted); ``smat`` is the
+    subset sum of the outer products of the shape-function vectors. Kept apart from
+    :func:`match_general` so that a run compiles only the solver it uses."""
+    p = np.empty(6)
+    for k in range(lo, hi):
+        for a in range(6):
+            p[a] = p_init[k, a]
+        unc = out_unc[k]
+        for a in range(6):
+            unc[a] = np.nan
+        st, zn, it, sf = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
+                                       half, max_iter, tol, min_std, border, smat, unc)
+        for a in range(6):
+            out_p[k, a] = p[a]
+        out_status[k] = st
+        out_zncc[k] = zn
+        out_iter[k] = it
+        out_sigma[k] = sf
+
+
+@njit(cache=True, nogil=True, fastmath=True)
+def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second,
+                  max_iter, tol, min_std, border, out_p, out_status, out_zncc, out_iter,
+                  out_sigma, smat, out_unc):
+    """As :func:`match_first` with the general solver :func:`_match_one` (second order, or
+    first order through the steepest-descent images, which the tests compare with the
+    moment-sum solver)."""
     npar = 12 if second else 6
     ns = 2 * half + 1
     # scratch arrays are allocated once per chunk of points, not once per point
-    nchunk = max(1, min(npts, nchunk))
-    for ch in prange(nchunk):
-        fn = np.empty(ns * ns)
-        jac = np.empty((ns * ns, npar))
-        p = np.empty(npar)
-        for k in range(ch * npts // nchunk, (ch + 1) * npts // nchunk):
-            for a in range(npar):
-                p[a] = p_init[k, a]
-            unc = out_unc[k]
-            for a in range(6):
-                unc[a] = np.nan
-            if second or not fast:
-                st, zn, it, sf = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p, half,
-                                            second, max_iter, tol, min_std, border, fn, jac,
-                                            smat, unc)
-            else:
-                st, zn, it, sf = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
-                                               half, max_iter, tol, min_std, border, smat, unc)
-            for a in range(npar):
-                out_p[k, a] = p[a]
-            out_status[k] = st
-            out_zncc[k] = zn
-            out_iter[k] = it
-            out_sigma[k] = sf
+    fn = np.empty(ns * ns)
+    jac = np.empty((ns * ns, npar))
+    p = np.empty(npar)
+    for k in range(lo, hi):
+        for a in range(npar):
+            p[a] = p_init[k, a]
+        unc = out_unc[k]
+        for a in range(6):
+            unc[a] = np.nan
+        st, zn, it, sf = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p, half,
+                                    second, max_iter, tol, min_std, border, fn, jac,
+                                    smat, unc)
+        for a in range(npar):
+            out_p[k, a] = p[a]
+        out_status[k] = st
+        out_zncc[k] = zn
+        out_iter[k] = it
+        out_sigma[k] = sf
 
 
-@njit(cache=True, parallel=True)
-def subset_std(ref, xs, ys, half, out):
-    """Grey-level standard deviation of the subsets centred on (xs[k], ys[k])."""
+@njit(cache=True, nogil=True)
+def subset_stats(lo, hi, ref, gx, gy, xs, ys, half, out_std, out_sxx, out_syy):
+    """Per subset centred on (xs[k], ys[k]), k = lo..hi-1: grey-level standard deviation and
+    the sums of squared x and y gradients (SSSIG, Pan et al. 2008)."""
     ns = 2 * half + 1
     npix = ns * ns
-    for k in prange(xs.shape[0]):
+    for k in range(lo, hi):
         s = 0.0
         s2 = 0.0
+        sxx = 0.0
+        syy = 0.0
         for j in range(ns):
             r = np.uint64(ys[k] - half + j)
             for i in range(ns):
-                f = ref[r, np.uint64(xs[k] - half + i)]
+                q = np.uint64(xs[k] - half + i)
+                f = ref[r, q]
                 s += f
                 s2 += f * f
+                sxx += gx[r, q] * gx[r, q]
+                syy += gy[r, q] * gy[r, q]
         m = s / npix
-        out[k] = np.sqrt(max(s2 / npix - m * m, 0.0))
+        out_std[k] = np.sqrt(max(s2 / npix - m * m, 0.0))
+        out_sxx[k] = sxx
+        out_syy[k] = syy

@@ -10,6 +10,10 @@ QUEUED = 2
 GOOD = 3
 BAD = 4
 
+# neighbour offsets (rows, columns): the four along the grid, then the diagonals
+_DR = (-1, 1, 0, 0, -1, -1, 1, 1)
+_DC = (0, 0, -1, 1, -1, 1, -1, 1)
+
 
 @njit(cache=True)
 def shift_params(p, ddx, ddy, second, out):
@@ -41,32 +45,41 @@ def shift_params(p, ddx, ddy, second, out):
 
 
 @njit(cache=True)
-def next_wave(state, zncc, params, nx, ny, px, py, second, new_good, stride):
+def next_wave(state, zncc, params, nx, ny, px, py, second, new_good, stride, nbrs):
     """Queue the unmatched neighbours of newly matched points.
 
     Points form a grid topologically (``nx`` by ``ny``); their pixel positions ``px, py`` need
-    not be regular. Neighbours are the four points ``stride`` grid places away. Each queued point gets, as its
-    starting guess, the parameters of its best-correlated (highest ZNCC) matched neighbour,
-    carried over to its own position.
+    not be regular. Neighbours are the four (``nbrs`` 4) or eight (``nbrs`` 8, with the
+    diagonals) points ``stride`` grid places away. Each queued point gets, as its starting
+    guess, the parameters of its best-correlated (highest ZNCC) matched neighbour, carried over
+    to its own position.
     """
     npar = params.shape[1]
-    buf = np.empty(4 * new_good.shape[0] + 1, np.int64)
     m = 0
+    lo = state.shape[0]
+    hi = -1
     for t in range(new_good.shape[0]):
         k = new_good[t]
         r = k // nx
         c = k - r * nx
-        for d in range(4):
-            rr = r + stride * ((d == 0) - (d == 1))
-            cc = c + stride * ((d == 2) - (d == 3))
+        for d in range(nbrs):
+            rr = r + stride * _DR[d]
+            cc = c + stride * _DC[d]
             if rr < 0 or rr >= ny or cc < 0 or cc >= nx:
                 continue
             q = rr * nx + cc
             if state[q] == TODO:
                 state[q] = QUEUED
-                buf[m] = q
                 m += 1
-    idx = np.sort(buf[:m])
+                lo = min(lo, q)
+                hi = max(hi, q)
+    # the queued points in index order (a scan instead of a sort: it compiles much faster)
+    idx = np.empty(m, np.int64)
+    t = 0
+    for q in range(lo, hi + 1):
+        if state[q] == QUEUED:
+            idx[t] = q
+            t += 1
     p0 = np.empty((m, npar))
     for t in range(m):
         q = idx[t]
@@ -74,9 +87,9 @@ def next_wave(state, zncc, params, nx, ny, px, py, second, new_good, stride):
         c = q - r * nx
         best = -1
         bz = -2.0
-        for d in range(4):
-            rr = r + stride * ((d == 0) - (d == 1))
-            cc = c + stride * ((d == 2) - (d == 3))
+        for d in range(nbrs):
+            rr = r + stride * _DR[d]
+            cc = c + stride * _DC[d]
             if rr < 0 or rr >= ny or cc < 0 or cc >= nx:
                 continue
             nb = rr * nx + cc
