@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from dic.field import DisplacementField
-from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, extrapolate,
-                       needs_new_reference)
+from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, as_stored,
+                                 extrapolate, needs_new_reference)
 
 __all__ = ["track", "load_results", "resolve_images"]
 
@@ -353,6 +353,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
             bar = tqdm(total=len(order), initial=writer.n_done, unit="frame", desc="tracking",
                        dynamic_ncols=True)
+        if strain:
+            _fill_strain(writer, strain)
         _drive(items, order, reference, settings, mask, writer, executor, threads, bar,
                strain)
         stopped = False
@@ -410,8 +412,8 @@ def _drive(items, order, reference, settings, mask, writer, executor, threads, b
                                                 executor, threads, bar, settings, strain)
         if new_stage is None:
             break
-        # a new reference: the last good frame
-        base = last_total
+        # a new reference: the last good frame, as stored (as a resume would read it back)
+        base = as_stored(last_total)
         log.debug("new stage at %d from base with %d valid points", end, base.n_valid)
         ref_index = order[end - 1]
         stage = _Stage(items[ref_index], None, base, settings, int(ref_index))
@@ -526,9 +528,28 @@ def _stage_matcher(stage, key, local):
     return local if local is not None else _worker_matcher(stage, key)
 
 
-def _write_strain(writer, k, total, strain):
+def _strain_of(total, strain):
     from dic.strain import strain_field
 
-    s = strain_field(total, window=int(strain.get("window", 9)),
-                     measure=strain.get("measure", "green-lagrange"))
-    writer.write_strain_frame(k, s)
+    return strain_field(total, window=int(strain.get("window", 9)),
+                        measure=strain.get("measure", "green-lagrange"))
+
+
+def _write_strain(writer, k, total, strain):
+    writer.write_strain_frame(k, _strain_of(total, strain))
+
+
+def _fill_strain(writer, strain):
+    """Store the strain of completed frames that lack it (a stop between a frame and its
+    strain, or a strain write that failed): from the stored displacements."""
+    flags = None
+    for k in range(writer.n_done):
+        if flags is not None and flags[k]:
+            continue
+        s = _strain_of(writer.read_field(k), strain)
+        if flags is None:
+            flags = writer.strain_written(s.measure, int(s.window))
+            if flags[k]:
+                continue
+        log.info("frame %d: storing its strain, missing after the last stop", k)
+        writer.write_strain_frame(k, s)

@@ -1,0 +1,252 @@
+"""The fault catalogue: what a user meets when things go wrong, one case per line of the table.
+
+Each case stands for one line of the reliability issue's table (D1 .. D13, signals, cosmetic
+items) or a case added beside it. The expected behaviour is the project's rule for bad input
+and failures (one ``dic: error:`` line, exit code 2, no traceback; the results file never
+claims a frame that is not whole on disk), so most checks compare against that rule and
+against an uninterrupted run of the same analysis, number for number.
+
+Signal and kill tests wait on conditions (a file's ``n_done``, a process's state) with
+generous time limits, never on fixed sleeps, so that a slow, loaded machine does not fail them.
+"""
+
+from __future__ import annotations
+
+import errno
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import h5py
+import numpy as np
+import pytest
+
+import dic
+from dic.cli import main
+from dic.images import synth
+from dic.sequence import Results, set_write_hook
+
+ROOT = Path(__file__).resolve().parent.parent
+SHAPE = (120, 200)
+N_FRAMES = 8
+STEP = 8
+posix_only = pytest.mark.skipif(sys.platform == "win32", reason="needs POSIX signals")
+
+
+def _write_sequence(folder, n=N_FRAMES, shape=SHAPE):
+    """Uniform stretch growing 0.4 % per image (analytic speckle, exactly known motion)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    pattern = synth.make_speckle(shape, radius=2.5, seed=5, contrast=600)
+    for k in range(n):
+        e = 0.004 * k
+        field = synth.homogeneous([[1 + e, 0.0], [0.0, 1.0]],
+                                  centre=(shape[1] / 2, shape[0] / 2)) if k else None
+        img = synth.render(pattern, shape, field, noise=0.5, seed=k)
+        dic.images.io.write_image(folder / f"img{k:02d}.tif", img * 16, bits=16)
+    return folder
+
+
+@pytest.fixture(scope="module")
+def frames(tmp_path_factory):
+    return _write_sequence(tmp_path_factory.mktemp("faults") / "frames")
+
+
+def _cmd(frames, out, *more):
+    return ["run", str(frames), "--out", str(out), "--step", str(STEP), "-q", *more]
+
+
+@pytest.fixture(scope="module")
+def reference_run(frames, tmp_path_factory):
+    """An undisturbed run: the file that every disturbed and resumed run must equal."""
+    out = tmp_path_factory.mktemp("ref") / "run.h5"
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 0
+    return out
+
+
+def _one_error_line(err):
+    """stderr of a failed command: exactly one line 'dic: error: ...', no traceback."""
+    assert "Traceback" not in err
+    lines = [ln for ln in err.strip().splitlines() if ln.strip()]
+    assert len(lines) == 1, err
+    assert lines[0].startswith("dic: error: "), err
+    return lines[0]
+
+
+def _n_done(path):
+    with h5py.File(path, "r", locking=False) as f:
+        return int(f["n_done"][()])
+
+
+FRAME_DATA = ("u", "v", "grad", "zncc", "reason", "iterations", "sigma_u", "sigma_v",
+              "reference", "reference_update")
+
+
+def _assert_same_frames(a_path, b_path, n=None):
+    """Frames 0..n-1 of two files equal number for number (NaN == NaN), strain included."""
+    with h5py.File(a_path, "r", locking=False) as a, h5py.File(b_path, "r",
+                                                                 locking=False) as b:
+        n = int(a["n_done"][()]) if n is None else n
+        assert int(b["n_done"][()]) >= n
+        for name in FRAME_DATA:
+            np.testing.assert_array_equal(a["frames"][name][:n], b["frames"][name][:n],
+                                          err_msg=name)
+        for key in a["strain"]:
+            if key in b["strain"]:
+                ga, gb = a["strain"][key], b["strain"][key]
+                wa, wb = ga["written"][:n], gb["written"][:n]
+                both = (wa == 1) & (wb == 1)
+                for c in ("xx", "yy", "xy"):
+                    np.testing.assert_array_equal(ga[c][:n][both], gb[c][:n][both],
+                                                  err_msg=f"strain {key} {c}")
+
+
+class _FullDiskAt:
+    """A writer hook: OSError(ENOSPC) at one point of one frame (common practice, no source:
+    errno ENOSPC is how POSIX write(2) reports a full disk)."""
+
+    def __init__(self, point, frame):
+        self.point, self.frame, self.hits = point, frame, 0
+
+    def __call__(self, point, k):
+        if point == self.point and (self.frame is None or k >= self.frame):
+            self.hits += 1
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+
+@pytest.fixture
+def full_disk():
+    installed = []
+
+    def install(point, frame):
+        hook = _FullDiskAt(point, frame)
+        installed.append(set_write_hook(hook))
+        return hook
+
+    yield install
+    set_write_hook(None)
+
+
+# --------------------------------------------------------------------------------------------
+# D1: a full disk
+# --------------------------------------------------------------------------------------------
+@pytest.mark.parametrize("point", ["reserve", "data", "commit"])
+def test_d1_full_disk_mid_run_keeps_only_whole_frames_and_resumes(point, frames, reference_run,
+                                                                 tmp_path, capsys, full_disk):
+    out = tmp_path / "r.h5"
+    hook = full_disk(point, 3)
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 2
+    assert hook.hits == 1
+    line = _one_error_line(capsys.readouterr().err)
+    assert "No space left on device" in line and "r.h5" in line and "frame 3" in line
+    assert _n_done(out) == 3                       # only the frames written and flushed
+    _assert_same_frames(reference_run, out, n=3)
+    set_write_hook(None)                           # space freed: the same command finishes
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 0
+    assert _n_done(out) == N_FRAMES
+    _assert_same_frames(reference_run, out)
+
+
+def test_d1_full_disk_at_creation_is_one_line(frames, tmp_path, capsys, full_disk):
+    full_disk("create", None)
+    out = tmp_path / "r.h5"
+    assert main(_cmd(frames, out)) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "No space left on device" in line and "r.h5" in line
+    assert not out.exists()
+    assert [p.name for p in tmp_path.iterdir()] == []    # no temporary left behind
+
+
+def test_d1_full_disk_while_storing_strain_resumes_the_strain(frames, reference_run, tmp_path,
+                                                             capsys, full_disk):
+    out = tmp_path / "r.h5"
+    full_disk("strain", 2)
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 2
+    _one_error_line(capsys.readouterr().err)
+    n = _n_done(out)
+    assert n == 3                                  # frame 2 is whole, its strain is not
+    with h5py.File(out, "r", locking=False) as f:
+        assert list(f["strain/green-lagrange_w5/written"][:n]) == [1, 1, 0]
+    set_write_hook(None)
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 0
+    with h5py.File(out, "r", locking=False) as f:
+        assert f["strain/green-lagrange_w5/written"][:].all()
+    _assert_same_frames(reference_run, out)
+
+
+def _can_mount_tmpfs(where):
+    if not hasattr(os, "geteuid") or os.geteuid() != 0 or shutil.which("mount") is None:
+        return False
+    where.mkdir(exist_ok=True)
+    r = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=64k", "tmpfs", str(where)],
+                       capture_output=True)
+    if r.returncode:
+        return False
+    subprocess.run(["umount", str(where)], capture_output=True)
+    return True
+
+
+def test_d1_real_full_tmpfs(frames, reference_run, tmp_path, capsys):
+    """A real small disk (tmpfs) fills in the middle of a run (runs as root, e.g. in CI)."""
+    disk = tmp_path / "disk"
+    if not _can_mount_tmpfs(disk):
+        pytest.skip("needs root and mount -t tmpfs")
+    with h5py.File(reference_run, "r") as f:
+        per_frame = sum(f["frames"][n][0].nbytes for n in f["frames"]) + \
+            sum(f["strain"][k][c][0].nbytes for k in f["strain"] for c in ("xx", "yy", "xy"))
+    size = 4 << 20
+    subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(disk)],
+                   check=True)
+    try:
+        # leave room for the file's structure and about half of the frames
+        free = 96 * 1024 + (N_FRAMES // 2) * per_frame
+        with open(disk / "filler", "wb") as fh:
+            fh.write(b"\1" * (size - free))
+        out = disk / "r.h5"
+        assert main(_cmd(frames, out, "--strain-window", "5")) == 2
+        line = _one_error_line(capsys.readouterr().err)
+        assert "No space left on device" in line
+        n = _n_done(out)
+        assert n < N_FRAMES
+        _assert_same_frames(reference_run, out, n=n)
+        # the file moved to a disk with space: the same command finishes it
+        moved = tmp_path / "moved.h5"
+        shutil.copyfile(out, moved)
+        assert main(_cmd(frames, moved, "--strain-window", "5")) == 0
+        _assert_same_frames(reference_run, moved)
+        # space freed where it was: the same command finishes there too
+        (disk / "filler").unlink()
+        assert main(_cmd(frames, out, "--strain-window", "5")) == 0
+        _assert_same_frames(reference_run, out)
+    finally:
+        subprocess.run(["umount", "-l", str(disk)], capture_output=True)
+
+
+# --------------------------------------------------------------------------------------------
+# D4: a stop between a frame and its strain
+# --------------------------------------------------------------------------------------------
+def test_d4_resume_fills_strain_missing_after_a_stop(frames, reference_run, tmp_path, capsys,
+                                                     monkeypatch):
+    from dic.sequence import ResultsWriter
+
+    out = tmp_path / "r.h5"
+    real = ResultsWriter.write_strain_frame
+
+    def killed_after_commit(self, k, strain):      # the run stops right after frame 4 commits
+        if k == 4:
+            raise KeyboardInterrupt
+        return real(self, k, strain)
+
+    monkeypatch.setattr(ResultsWriter, "write_strain_frame", killed_after_commit)
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 130
+    capsys.readouterr()
+    monkeypatch.setattr(ResultsWriter, "write_strain_frame", real)
+    with h5py.File(out, "r", locking=False) as f:
+        assert int(f["n_done"][()]) == 5 and f["strain/green-lagrange_w5/written"][4] == 0
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 0
+    with h5py.File(out, "r", locking=False) as f:
+        assert f["strain/green-lagrange_w5/written"][:].all()
+    _assert_same_frames(reference_run, out)
+    assert main(["info", str(out)]) == 0
+    assert f"{N_FRAMES} of {N_FRAMES}" in capsys.readouterr().out
