@@ -250,3 +250,75 @@ def test_d4_resume_fills_strain_missing_after_a_stop(frames, reference_run, tmp_
     _assert_same_frames(reference_run, out)
     assert main(["info", str(out)]) == 0
     assert f"{N_FRAMES} of {N_FRAMES}" in capsys.readouterr().out
+
+
+# --------------------------------------------------------------------------------------------
+# D2: a damaged image copied again
+# --------------------------------------------------------------------------------------------
+def test_d2_repaired_image_resumes(frames, reference_run, tmp_path, capsys):
+    own = tmp_path / "frames"
+    shutil.copytree(frames, own)
+    good = (own / "img05.tif").read_bytes()
+    (own / "img05.tif").write_bytes(good[: len(good) // 2])      # a copy cut short
+    out = tmp_path / "r.h5"
+    assert main(_cmd(own, out, "--strain-window", "5")) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "img05.tif" in line
+    n = _n_done(out)
+    assert 0 < n <= 5
+    (own / "img05.tif").write_bytes(good)                          # copied again, as advised
+    assert main(_cmd(own, out, "--strain-window", "5")) == 0, capsys.readouterr().err
+    _assert_same_frames(reference_run, out)
+    # an image of a completed frame that changes is still refused, naming it
+    (own / "img01.tif").write_bytes((own / "img02.tif").read_bytes())
+    assert main(_cmd(own, out, "--strain-window", "5")) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "img01.tif" in line and "SHA-256" in line
+
+
+# --------------------------------------------------------------------------------------------
+# D6: settings checked against each other before anything is written
+# --------------------------------------------------------------------------------------------
+def test_d6_strain_window_larger_than_grid_is_refused_before_writing(frames, tmp_path,
+                                                                     capsys):
+    out = tmp_path / "r.h5"
+    # step 40 on 120 x 200 px leaves a grid about 2 x 4 points: a 9 x 9 window cannot fit
+    assert main(["run", str(frames), "--out", str(out), "--step", "40", "--strain-window", "9",
+                 "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "--strain-window" in line and "grid" in line
+    assert not out.exists()
+    assert main(_cmd(frames, out, "--strain-window", "5")) == 0   # corrected: runs
+
+
+# --------------------------------------------------------------------------------------------
+# D5: report and export use the stored strain window
+# --------------------------------------------------------------------------------------------
+def test_d5_export_uses_the_stored_strain_window(reference_run, tmp_path, capsys):
+    import json
+
+    out = tmp_path / "exp"
+    assert main(["export", str(reference_run), "--format", "npz", "--out", str(out)]) == 0
+    capsys.readouterr()
+    with np.load(out / "results.npz") as z:
+        assert json.loads(str(z["strain_settings"]))["window"] == 5
+        exx = z["strain_xx"]
+    with h5py.File(reference_run, "r") as f:       # the strain stored by the run (window 5)
+        stored = f["strain/green-lagrange_w5/xx"][:]
+    np.testing.assert_allclose(exx, stored, rtol=0, atol=1e-12)
+    # an explicit --window still wins
+    assert main(["export", str(reference_run), "--format", "npz", "--out", str(tmp_path / "e3"),
+                 "--window", "3"]) == 0
+    with np.load(tmp_path / "e3" / "results.npz") as z:
+        assert json.loads(str(z["strain_settings"]))["window"] == 3
+
+
+@pytest.mark.parametrize("command", ["report", "export"])
+def test_foreign_file_names_the_input_not_out(command, tmp_path, capsys):
+    foreign = tmp_path / "other.h5"
+    with h5py.File(foreign, "w") as f:
+        f["x"] = np.arange(3)
+    assert main([command, str(foreign), "--out", str(tmp_path / "o")]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "--out" not in line.split("other.h5")[0] and "other.h5" in line
+    assert line.startswith("dic: error: RESULTS:")

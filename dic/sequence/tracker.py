@@ -332,6 +332,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
                           edge_margin(INTERPOLATIONS[settings.interpolation]))[:2]
     grid_x, grid_y = (a.astype(np.float64) for a in np.meshgrid(xs, ys))
+    if strain:
+        _check_strain_window(strain, grid_x.shape, settings.step)
     first_stage = _Stage(items[reference], mask, None, settings, int(reference))
     matcher0 = first_stage.matcher()
     # the first stage's matcher lives in the cache only, so that it is dropped when the
@@ -526,6 +528,20 @@ def _run_stage(items, order, start, stage, key, writer, executor, threads, bar, 
 
 def _stage_matcher(stage, key, local):
     return local if local is not None else _worker_matcher(stage, key)
+
+
+def _check_strain_window(strain, shape, step):
+    """The strain window against the grid, before anything is written (SettingsConflict)."""
+    from dic.errors import SettingsConflict
+
+    w = int(strain.get("window", 9))
+    most = min(shape) - (1 - min(shape) % 2)  # the largest odd window that fits
+    if w > min(shape):
+        fix = (f"use --strain-window {most} or less, or a smaller --step" if most >= 3 else
+               "use a smaller --step or a larger region of interest")
+        raise SettingsConflict(f"--strain-window: a window of {w} x {w} points does not fit "
+                               f"the grid of {shape[0]} x {shape[1]} points (step {step} px); "
+                               f"{fix}")
 
 
 def _strain_of(total, strain):

@@ -307,6 +307,11 @@ class ResultsWriter:
                                       f"settings ({parts}); {FIX_SETTINGS}", fix=FIX_SETTINGS)
             old_names = list(f["images/name"].asstr()[()])
             old_digests = list(f["images/sha256"].asstr()[()])
+            n_done = int(f["n_done"][()])
+            # the images completed frames depend on: their own and their reference images
+            order = old.get("frames", list(range(len(old_names)))) \
+                if isinstance(old, dict) else list(range(len(old_names)))
+            used = {int(r) for r in f["frames/reference"][:n_done]} if n_done else set()
         if len(old_names) != len(names):
             raise ResultsMismatch(f"image_names: results file '{p}' was made from "
                                   f"{len(old_names)} images, {len(names)} given now; "
@@ -316,13 +321,26 @@ class ResultsWriter:
                 raise ResultsMismatch(f"image_names: results file '{p}' was made from other "
                                       f"images (image {i}: {a!r} in file, {b!r} now); "
                                       f"{FIX_IMAGES}", fix=FIX_IMAGES)
+        renewed = {}
         for i, (a, b) in enumerate(zip(old_digests, digests)):
-            if a != b:
+            if a == b:
+                continue
+            image = order[i] if i < len(order) else i
+            if i < n_done or image in used:
                 raise ResultsMismatch(f"image_sha256: image {i} ({names[i]!r}) has changed "
-                                      f"since results file '{p}' was made (SHA-256 differs); "
-                                      f"{FIX_IMAGES}", fix=FIX_IMAGES)
+                                      f"since frame {i} was stored in results file '{p}' "
+                                      f"(SHA-256 differs); {FIX_IMAGES}", fix=FIX_IMAGES)
+            renewed[i] = b  # not used yet (e.g. a damaged image copied again): take the new one
         remove_stale_partials(p)
-        return cls(p, fsync=fsync, _token=_TOKEN)
+        w = cls(p, fsync=fsync, _token=_TOKEN)
+        if renewed:
+            try:
+                w._restructure("record the new image digests in",
+                               lambda h: _set_digests(h, renewed))
+            except BaseException:
+                w.close()
+                raise
+        return w
 
     @classmethod
     def reopen(cls, path, *, fsync=True) -> "ResultsWriter":
@@ -709,6 +727,14 @@ class ResultsWriter:
             self._open()
         finally:
             unlock_file(old_lock)
+
+
+def _set_digests(h, renewed: dict) -> None:
+    d = h["images/sha256"]
+    digests = list(d.asstr()[()])
+    for i, b in renewed.items():
+        digests[i] = b
+    d[...] = np.array(digests, dtype=object)
 
 
 def open_for_writing(path, *, settings, grid_x, grid_y, n_frames, image_names, image_sha256,
