@@ -322,3 +322,110 @@ def test_foreign_file_names_the_input_not_out(command, tmp_path, capsys):
     line = _one_error_line(capsys.readouterr().err)
     assert "--out" not in line.split("other.h5")[0] and "other.h5" in line
     assert line.startswith("dic: error: RESULTS:")
+
+
+# --------------------------------------------------------------------------------------------
+# D3 and signals: real processes, stopped; every wait is on a condition, with generous limits
+# --------------------------------------------------------------------------------------------
+def _spawn(args):
+    env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    return subprocess.Popen([sys.executable, "-m", "dic", *args], cwd=ROOT, env=env,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+
+
+def _wait_for(condition, what, timeout=180.0):
+    import time
+
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        value = condition()
+        if value:
+            return value
+        time.sleep(0.01)
+    pytest.fail(f"waited {timeout:.0f} s for {what}")
+
+
+def _n_done_or_0(path):
+    try:
+        return _n_done(path)
+    except (OSError, KeyError):
+        return 0
+
+
+def _alive(pid):
+    """True while process ``pid`` exists and is not a zombie (Linux /proc)."""
+    try:
+        with open(f"/proc/{pid}/stat") as fh:
+            return fh.read().rsplit(")", 1)[1].split()[0] != "Z"
+    except OSError:
+        return False
+
+
+def _children(pid):
+    try:
+        with open(f"/proc/{pid}/task/{pid}/children") as fh:
+            return [int(c) for c in fh.read().split()]
+    except OSError:
+        return []
+
+
+def _slow_command(frames, out, *more):
+    # 2 px step, one image per block: frames take long enough to be caught half-way
+    return ["run", str(frames), "--out", str(out), "--step", "2", "--block", "1", "-q", *more]
+
+
+@posix_only
+@pytest.mark.parametrize("sig", ["SIGTERM", "SIGHUP"])
+def test_sigterm_and_sighup_stop_like_ctrl_c(sig, frames, tmp_path):
+    import signal
+
+    out = tmp_path / "r.h5"
+    proc = _spawn(_slow_command(frames, out))
+    try:
+        _wait_for(lambda: _n_done_or_0(out) >= 1 or proc.poll() is not None,
+                  "the first frame")
+        if proc.poll() is not None:
+            pytest.fail(f"the run ended early: {proc.communicate()}")
+        proc.send_signal(getattr(signal, sig))
+        _, err = proc.communicate(timeout=300)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    # like Ctrl-C (common practice, no source: 130 = 128 + SIGINT is the shell's code for an
+    # interrupted command, and this tool's documented exit code for a stopped run)
+    assert proc.returncode == 130, err
+    assert "Traceback" not in err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith(f"dic: stopped by {sig}; "), err
+    n = _n_done(out)
+    assert f"{n} of {N_FRAMES} frames are saved" in lines[0]
+
+
+@posix_only
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads /proc")
+def test_d3_workers_exit_when_the_parent_is_killed(frames, tmp_path):
+    import signal
+
+    out = tmp_path / "r.h5"
+    # blocks of 4 images: the rest of each block goes to the workers
+    proc = _spawn(["run", str(frames), "--out", str(out), "--step", "2", "--block", "4", "-q",
+                   "--workers", "2"])
+    try:
+        # the pool is up: two workers (and the resource tracker) are children of the run
+        _wait_for(lambda: len(_children(proc.pid)) >= 3 or proc.poll() is not None,
+                  "the workers")
+        if proc.poll() is not None:
+            pytest.fail(f"the run ended early: {proc.communicate()}")
+        family = _children(proc.pid)
+        proc.send_signal(signal.SIGKILL)
+        proc.communicate(timeout=60)
+        _wait_for(lambda: not any(_alive(p) for p in family), "the workers to exit",
+                  timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+        for p in _children(proc.pid):
+            try:
+                os.kill(p, signal.SIGKILL)
+            except OSError:
+                pass

@@ -468,10 +468,14 @@ def _run(args, out=None):
             raise ResultsMismatch(f"{exc}, or add --overwrite to replace it",
                                   fix=f"{exc.fix}, or add --overwrite to replace it") from None
     except KeyboardInterrupt:
+        from dic.sequence.tracker import stop_signal
+
         done = _frames_done(h5)
         kept = (f"{done[0]} of {done[1]} frames are saved in '{h5}'; run the same command "
                 f"again to carry on" if done else "nothing was saved")
-        print(f"dic: interrupted; {kept}", file=sys.stderr)
+        by = stop_signal()
+        how = f"stopped by {by}" if by and by != "SIGINT" else "interrupted"
+        print(f"dic: {how}; {kept}", file=sys.stderr)
         return EXIT_INTERRUPTED
     except BaseException:
         if made_folder is not None:

@@ -113,13 +113,15 @@ class _Stage:
 _WORKER_CACHE: dict = {}
 
 # a stop asked for (e.g. by Ctrl-C, see stop_on_interrupt): honoured after the next frame written
-_STOP = {"asked": False}
+_STOP = {"asked": False, "signal": None}
 
 
 def stop_on_interrupt():
     """A context manager: Ctrl-C during :func:`track` stops it after the frame being written.
 
-    The first SIGINT only asks for a stop, which the tracker honours at its next safe point (a
+    SIGTERM and SIGHUP (a closed terminal, ``kill``) are treated the same way. The name of
+    the last such signal is in ``stop_signal()`` afterwards. The first signal only asks for a
+    stop, which the tracker honours at its next safe point (a
     frame completely written) by raising KeyboardInterrupt there; a second SIGINT interrupts at
     once. A KeyboardInterrupt raised wherever the signal happens to land could be swallowed (for
     example inside a garbage-collection callback) and the run would go on.
@@ -135,19 +137,29 @@ def stop_on_interrupt():
             return
 
         def handler(signum, frame):
+            _STOP["signal"] = signal.Signals(signum).name
             if _STOP["asked"]:
                 raise KeyboardInterrupt
             _STOP["asked"] = True
 
         _STOP["asked"] = False
-        old = signal.signal(signal.SIGINT, handler)
+        _STOP["signal"] = None
+        kinds = [signal.SIGINT, signal.SIGTERM] + ([signal.SIGHUP]
+                                                   if hasattr(signal, "SIGHUP") else [])
+        old = {sig: signal.signal(sig, handler) for sig in kinds}
         try:
             yield
         finally:
-            signal.signal(signal.SIGINT, old)
+            for sig, h in old.items():
+                signal.signal(sig, h)
             _STOP["asked"] = False
 
     return guard()
+
+
+def stop_signal():
+    """Name of the signal that last stopped :func:`track` under :func:`stop_on_interrupt`."""
+    return _STOP["signal"]
 
 
 def _worker_matcher(stage: _Stage, key) -> FrameMatcher:
@@ -205,10 +217,50 @@ class _Local:
 
 
 def _ignore_ctrl_c():
-    """Worker processes leave Ctrl-C to the main process, which stops the pool."""
+    """Set up a worker process: it leaves Ctrl-C to the main process, which stops the pool,
+    and ends itself when the main process dies (a SIGKILL leaves no one to stop it)."""
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _exit_with_parent()
+
+
+def _exit_with_parent(poll_s: float = 0.5):
+    """End this process when its parent ends.
+
+    On Linux the kernel sends SIGKILL at once (``prctl(PR_SET_PDEATHSIG)``); everywhere a
+    daemon thread also polls ``os.getppid()``, which changes when the parent dies (the
+    process is adopted by another).
+    """
+    import signal
+    import sys
+    import threading
+    import time
+
+    import multiprocessing
+
+    # the parent as multiprocessing recorded it when it started this process: os.getppid()
+    # here could already name the process that adopted an orphan
+    known = multiprocessing.parent_process()
+    parent = known.pid if known is not None and known.pid else os.getppid()
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+        except (OSError, AttributeError):  # pragma: no cover - no prctl: the thread remains
+            pass
+
+    def watch():
+        while True:
+            if os.getppid() != parent:
+                os._exit(1)
+            time.sleep(poll_s)
+
+    if os.getppid() != parent:  # pragma: no cover - the parent died during set-up
+        os._exit(1)
+    threading.Thread(target=watch, name="dic-parent-watch", daemon=True).start()
 
 
 def _make_executor(workers, cluster):
