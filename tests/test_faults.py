@@ -429,3 +429,28 @@ def test_d3_workers_exit_when_the_parent_is_killed(frames, tmp_path):
                 os.kill(p, signal.SIGKILL)
             except OSError:
                 pass
+
+
+# --------------------------------------------------------------------------------------------
+# D9: analysis files that are not plain UTF-8
+# --------------------------------------------------------------------------------------------
+_TOML = 'out = "r.h5"\n# réglages\n[matching]\nstep = 8\n'
+
+
+def test_d9_byte_order_mark_is_accepted(tmp_path):
+    from dic.workflow.config import load_analysis
+
+    # TOML 1.0.0 specification: a TOML file is UTF-8; a byte-order mark is an editor's habit
+    p = tmp_path / "a.toml"
+    p.write_bytes(b"\xef\xbb\xbf" + _TOML.encode("utf-8"))
+    assert load_analysis(p)["step"] == 8
+
+
+@pytest.mark.parametrize("encoding, named", [("utf-16", "UTF-16"), ("latin-1", "Latin-1")])
+def test_d9_other_encodings_name_the_file_and_the_encoding(encoding, named, frames, tmp_path,
+                                                          capsys):
+    p = tmp_path / "a.toml"
+    p.write_bytes(_TOML.encode(encoding))
+    assert main(["run", str(frames), "--config", str(p), "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "a.toml" in line and named in line and "save it as UTF-8" in line
