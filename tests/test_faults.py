@@ -454,3 +454,22 @@ def test_d9_other_encodings_name_the_file_and_the_encoding(encoding, named, fram
     assert main(["run", str(frames), "--config", str(p), "-q"]) == 2
     line = _one_error_line(capsys.readouterr().err)
     assert "a.toml" in line and named in line and "save it as UTF-8" in line
+
+
+# --------------------------------------------------------------------------------------------
+# D11: a read-only location
+# --------------------------------------------------------------------------------------------
+def test_d11_read_only_location_says_not_writable(frames, tmp_path, capsys, monkeypatch):
+    real = h5py.File
+
+    def read_only(name, mode="r", *a, **kw):       # as HDF5 reports EROFS (h5py >= 3)
+        if mode != "r":
+            raise OSError(errno.EROFS, "Unable to synchronously create file: "
+                          + os.strerror(errno.EROFS))
+        return real(name, mode, *a, **kw)
+
+    monkeypatch.setattr(h5py, "File", read_only)
+    out = tmp_path / "r.h5"
+    assert main(_cmd(frames, out)) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "not writable" in line and "r.h5" in line and "HDF5 results file" not in line
