@@ -473,3 +473,38 @@ def test_d11_read_only_location_says_not_writable(frames, tmp_path, capsys, monk
     assert main(_cmd(frames, out)) == 2
     line = _one_error_line(capsys.readouterr().err)
     assert "not writable" in line and "r.h5" in line and "HDF5 results file" not in line
+
+
+# --------------------------------------------------------------------------------------------
+# D7, D12 and a folder name with [ ]: which images a run reads
+# --------------------------------------------------------------------------------------------
+def test_d7_own_maps_in_the_image_folder_are_not_read_as_images(frames, tmp_path, capsys):
+    own = tmp_path / "frames"
+    shutil.copytree(frames, own)
+    for _ in range(2):                              # the second run must not trip over the maps
+        assert main(["run", str(own), "--out", str(own), "--step", str(STEP), "-q",
+                     "--frames", "0:4"]) == 0, capsys.readouterr().err
+        assert list(own.glob("displacements_*.png"))
+    with Results.open(own / "results.h5") as r:
+        assert all("displacements_" not in n for n in r.image_names)
+
+
+def test_d12_files_out_of_natural_order_warn(frames, tmp_path, capsys):
+    files = sorted((str(p) for p in frames.glob("img*.tif")),
+                   key=lambda s: s.replace("img0", "img"))  # img0, img1, img10-like shuffles
+    shell_order = [files[0], files[5], files[1], files[2]]   # not natural order
+    assert main(["run", *shell_order, "--out", str(tmp_path / "r.h5"), "--step",
+                 str(STEP)]) == 0
+    err = capsys.readouterr().err
+    assert "not in natural order" in err and "quote" in err
+    assert main(["run", *sorted(shell_order), "--out", str(tmp_path / "s.h5"), "--step",
+                 str(STEP)]) == 0
+    assert "natural order" not in capsys.readouterr().err
+
+
+def test_folder_name_with_brackets_hints_to_escape(frames, tmp_path, capsys):
+    odd = tmp_path / "run [3]"
+    shutil.copytree(frames, odd)
+    assert main(["run", str(odd / "*.tif"), "--out", str(tmp_path / "r.h5"), "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "escape" in line and "[[]3]" in line       # glob.escape (Python docs, glob module)

@@ -181,15 +181,38 @@ def _add_info(commands):
 # --------------------------------------------------------------------------------------------
 # the run command: settings
 # --------------------------------------------------------------------------------------------
-def _collect_images(arguments):
+def _own_output(path, folder):
+    """True for a displacement map or table this command wrote into ``folder``."""
+    return (folder is not None and path.parent == folder.resolve()
+            and path.name.startswith("displacements_")
+            and path.suffix.lower() in (".png", ".csv"))
+
+
+def _warn_order(files):
+    """Warn when image files named one by one are not in natural order (a shell's glob)."""
+    from dic.images.io import natural_sorted
+
+    if len(files) > 2 and natural_sorted(files) != files:
+        shown = ", ".join(p.name for p in files[:4])
+        log.warning("images: the %d files named one by one are not in natural order (%s, ...), "
+                    "so they are analysed in the order given; an unquoted pattern is sorted "
+                    "letter by letter by the shell: quote it ('frames/img*.png') for natural "
+                    "order (img2 before img10)", len(files), shown)
+
+
+def _collect_images(arguments, folder=None):
     """Image paths from files, folders and patterns: argument order, natural order within each.
 
     Paths are made absolute, so that the same images give the same results file (and resume)
-    whether named on the command line or in an analysis file.
+    whether named on the command line or in an analysis file. The displacement maps and
+    tables a run writes into its output folder ``folder`` are left out.
     """
     from dic.images.io import list_images
 
     found, seen = [], set()
+    files = [Path(a) for a in arguments if Path(a).is_file()]
+    if len(files) == len(arguments):
+        _warn_order(files)
     for arg in arguments:
         p = Path(arg)
         if p.is_file():
@@ -204,6 +227,8 @@ def _collect_images(arguments):
             raise FileNotFoundError(f"images: no such file or folder '{arg}'; check the path")
         for q in paths:
             key = q.resolve()
+            if _own_output(key, folder) and not p.is_file():
+                continue  # this tool's own output, not an image of the test
             if key not in seen:
                 seen.add(key)
                 found.append(key)
@@ -438,7 +463,7 @@ def _run(args, out=None):
 
     images, target, kw, after = _analysis(args)
     h5, folder = _outputs(target)
-    paths = _collect_images(images)
+    paths = _collect_images(images, folder)
     _check_plan(paths, kw, folder)
     show = not args.quiet
     bar = show and _terminal()

@@ -618,5 +618,12 @@ def list_images(pattern_or_folder):
                     f"no image files ({', '.join(IMAGE_EXTENSIONS)}) match it; check the "
                     f"folder and the pattern, e.g. 'frames/*.tif'"
                 )
+                folder = p.parent
+                if glob.has_magic(str(folder)) and folder.is_dir():
+                    # a folder whose name holds [ ] (or * ?): the pattern reads them as wildcards
+                    fixed = os.path.join(glob.escape(str(folder)), p.name)
+                    hint = (f"no image files match it: the folder name '{folder}' holds "
+                            f"characters a pattern reads as wildcards ([ ] * ?); escape them, "
+                            f"e.g. '{fixed}', or give the folder itself")
             raise FileNotFoundError(f"pattern_or_folder: '{text}': {hint}")
     return natural_sorted(found)
