@@ -508,3 +508,31 @@ def test_folder_name_with_brackets_hints_to_escape(frames, tmp_path, capsys):
     assert main(["run", str(odd / "*.tif"), "--out", str(tmp_path / "r.h5"), "-q"]) == 2
     line = _one_error_line(capsys.readouterr().err)
     assert "escape" in line and "[[]3]" in line       # glob.escape (Python docs, glob module)
+
+
+# --------------------------------------------------------------------------------------------
+# D13: dic noise on moving images or the same image twice
+# --------------------------------------------------------------------------------------------
+def test_d13_noise_refuses_the_same_image_twice(frames, capsys):
+    img = str(frames / "img00.tif")
+    assert main(["noise", img, img]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "same image twice" in line
+
+
+def test_d13_noise_warns_on_moving_images(frames, tmp_path, capsys):
+    # static: one pattern, new camera noise per shot -> no warning
+    pattern = synth.make_speckle(SHAPE, radius=2.5, seed=5, contrast=600)
+    static = []
+    for k in range(3):
+        p = tmp_path / f"still{k}.tif"
+        dic.images.io.write_image(p, synth.render(pattern, SHAPE, None, noise=0.5, seed=20 + k)
+                                  * 16, bits=16)
+        static.append(str(p))
+    assert main(["noise", *static]) == 0
+    out = capsys.readouterr()
+    assert "warning" not in out.out + out.err
+    # stretched by 2.8 % between the images: motion, not noise
+    assert main(["noise", str(frames / "img00.tif"), str(frames / "img07.tif")]) == 0
+    out = capsys.readouterr()
+    assert "move or deform" in out.err and "times the predicted noise" in out.err
