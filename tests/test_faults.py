@@ -536,3 +536,31 @@ def test_d13_noise_warns_on_moving_images(frames, tmp_path, capsys):
     assert main(["noise", str(frames / "img00.tif"), str(frames / "img07.tif")]) == 0
     out = capsys.readouterr()
     assert "move or deform" in out.err and "times the predicted noise" in out.err
+
+
+# --------------------------------------------------------------------------------------------
+# cosmetic: what a damaged image and a wrong type in the analysis file print
+# --------------------------------------------------------------------------------------------
+def test_damaged_png_prints_one_line_with_the_path_once(frames, tmp_path, capfd):
+    own = tmp_path / "png"
+    own.mkdir()
+    for k in range(4):
+        img = dic.images.io.read_image(frames / f"img{k:02d}.tif")
+        dic.images.io.write_image(own / f"img{k:02d}.png", img, bits=16)
+    data = (own / "img02.png").read_bytes()
+    (own / "img02.png").write_bytes(data[: len(data) // 2])
+    assert main(["run", str(own), "--out", str(tmp_path / "r.h5"), "--step", str(STEP),
+                 "-q"]) == 2
+    err = capfd.readouterr().err                   # descriptor 2 too: no libpng line
+    line = _one_error_line(err)
+    assert "libpng" not in err
+    assert line.count("img02.png") == 1
+
+
+def test_type_errors_in_the_analysis_file_read_as_plain_words(frames, tmp_path, capsys):
+    p = tmp_path / "a.toml"
+    p.write_text('[matching]\nstep = "8"\n', encoding="utf-8")
+    assert main(["run", str(frames), "--config", str(p), "--out", str(tmp_path / "r.h5"),
+                 "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "must be a whole number" in line and "a int" not in line

@@ -90,7 +90,7 @@ def _load(item):
 
     if isinstance(item, np.ndarray):
         return read_image(item, name="image")
-    return read_image(item, name=str(item))
+    return read_image(item, name="image")  # the message names the path itself
 
 
 # ------------------------------------------------------------------------------------------

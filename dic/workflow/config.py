@@ -114,11 +114,17 @@ def _check_table(table, section, where):
             raise ValueError(f"{where}: unknown key {name!r}{_closest(key, options)}")
         types = allowed[key]
         if (isinstance(value, bool) and bool not in types) or not isinstance(value, types):
-            want = " or ".join(t.__name__ for t in types)
+            kinds = [t for t in types if not (t is int and float in types)]  # int: a number
+            want = " or ".join(_TYPE_WORDS.get(t, t.__name__) for t in kinds)
             name = key if section is None else f"{section}.{key}"
-            raise ValueError(f"{where}: {name} must be a {want}, got {value!r}")
+            raise ValueError(f"{where}: {name} must be {want}, got {value!r}")
         if key == "frames":
             _check_table(value, "frames", where)
+
+
+# plain words for the value types of the analysis file (TOML names in brackets)
+_TYPE_WORDS = {int: "a whole number", float: "a number", str: "a text in quotes",
+               bool: "true or false", list: "a list [...]", dict: "a table"}
 
 
 def scale_from_line(line, length_mm) -> float:
