@@ -564,3 +564,30 @@ def test_type_errors_in_the_analysis_file_read_as_plain_words(frames, tmp_path, 
                  "-q"]) == 2
     line = _one_error_line(capsys.readouterr().err)
     assert "must be a whole number" in line and "a int" not in line
+
+
+# --------------------------------------------------------------------------------------------
+# D10: the grid is laid out where subsets fit
+# --------------------------------------------------------------------------------------------
+def test_d10_no_grid_line_is_always_outside_the_image(frames):
+    from dic.field import Reason
+    from dic.images.io import read_image
+
+    ref, cur = read_image(frames / "img00.tif"), read_image(frames / "img01.tif")
+    f = dic.correlate(ref, cur, subset=21, step=20)
+    # common practice, no source: a point is measurable only if its subset (plus the
+    # interpolation margin) lies inside the image; on a static-edge stretch of 0.4 % none
+    # of the laid-out points should be outside the image
+    assert not np.any(f.reason == Reason.OUTSIDE_IMAGE)
+    assert f.n_valid > 0.9 * f.n_points
+    half = 21 // 2
+    assert f.x.min() >= half and f.x.max() <= ref.shape[1] - 1 - half
+    assert f.y.min() >= half and f.y.max() <= ref.shape[0] - 1 - half
+
+
+def test_d10_too_large_step_advises_a_smaller_step(frames, tmp_path, capsys):
+    assert main(["run", str(frames), "--out", str(tmp_path / "r.h5"), "--step", "115",
+                 "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "smaller step" in line and "smaller subset" not in line
+    assert not (tmp_path / "r.h5").exists()
