@@ -199,15 +199,27 @@ def test_d1_real_full_tmpfs(frames, reference_run, tmp_path, capsys):
     subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(disk)],
                    check=True)
     try:
+        # a disk full from the start: the file cannot even be made (one line, no file left)
+        with open(disk / "filler", "wb") as fh:
+            try:
+                fh.write(b"\1" * size)
+            except OSError:
+                pass
+        out = disk / "r.h5"
+        assert main(_cmd(frames, out, "--strain-window", "5")) == 2
+        line = _one_error_line(capsys.readouterr().err)
+        assert "No space left on device" in line and not out.exists()
+        (disk / "filler").unlink()
         # leave room for the file's structure and about half of the frames
         free = 96 * 1024 + (N_FRAMES // 2) * per_frame
         with open(disk / "filler", "wb") as fh:
             fh.write(b"\1" * (size - free))
-        out = disk / "r.h5"
         assert main(_cmd(frames, out, "--strain-window", "5")) == 2
         line = _one_error_line(capsys.readouterr().err)
         assert "No space left on device" in line
         n = _n_done(out)
+        assert main(["info", str(out)]) == 0      # info counts only the whole frames
+        assert f"{n} of {N_FRAMES}" in capsys.readouterr().out
         assert n < N_FRAMES
         _assert_same_frames(reference_run, out, n=n)
         # the file moved to a disk with space: the same command finishes it
