@@ -603,3 +603,12 @@ def test_d10_too_large_step_advises_a_smaller_step(frames, tmp_path, capsys):
     line = _one_error_line(capsys.readouterr().err)
     assert "smaller step" in line and "smaller subset" not in line
     assert not (tmp_path / "r.h5").exists()
+
+
+def test_d6_other_strain_window_on_an_existing_file_names_the_option(reference_run, frames,
+                                                                    tmp_path, capsys):
+    out = tmp_path / "r.h5"
+    shutil.copyfile(reference_run, out)
+    assert main(_cmd(frames, out, "--strain-window", "7")) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "--strain-window" in line and "--overwrite" in line

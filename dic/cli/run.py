@@ -97,7 +97,8 @@ def _add_run(commands):
                "(img2 before img10); separate arguments keep the order given. Points are in "
                "reference-image pixels: x is the column, y the row (downwards). Options "
                "override the analysis file (--config). Exit codes: 0 done, 2 bad input, "
-               "130 interrupted.")
+               "130 interrupted (Ctrl-C, SIGTERM or SIGHUP: the run stops after the frame "
+               "being written).")
     run.add_argument("images", nargs="*", metavar="IMAGES",
                      help="image files, folders or glob patterns (PNG, TIFF, BMP, JPEG); "
                           "default: 'images' of the analysis file")
@@ -455,6 +456,22 @@ def _frames_done(path):
         return None
 
 
+# stored setting names -> the options that set them (for messages)
+_SETTING_OPTIONS = {"strain.window": "--strain-window", "strain.measure": "--strain-measure",
+                    "subset": "--subset", "step": "--step", "shape_function": "--shape-function",
+                    "interpolation": "--interpolation", "min_zncc": "--min-zncc",
+                    "search": "--search", "block": "--block", "reference": "--reference",
+                    "frames": "--frames", "roi": "--roi"}
+
+
+def _with_options(message):
+    """A settings mismatch with each differing setting followed by its option."""
+    for name, option in _SETTING_OPTIONS.items():
+        for lead in ("(", "; "):
+            message = message.replace(f"{lead}{name}: ", f"{lead}{name} ({option}): ")
+    return message
+
+
 def _run(args, out=None):
     from dic.errors import ResultsMismatch
     from dic.sequence.tracker import track
@@ -490,8 +507,9 @@ def _run(args, out=None):
             with stop_on_interrupt():
                 results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
         except ResultsMismatch as exc:  # another analysis's file: --overwrite replaces it
-            raise ResultsMismatch(f"{exc}, or add --overwrite to replace it",
-                                  fix=f"{exc.fix}, or add --overwrite to replace it") from None
+            raise ResultsMismatch(f"{_with_options(str(exc))}, or add --overwrite to replace "
+                                  f"it", fix=f"{exc.fix}, or add --overwrite to replace it") \
+                from None
     except KeyboardInterrupt:
         from dic.sequence.tracker import stop_signal
 
