@@ -148,6 +148,20 @@ def test_d1_full_disk_mid_run_keeps_only_whole_frames_and_resumes(point, frames,
     _assert_same_frames(reference_run, out)
 
 
+def test_d1_full_disk_with_workers(frames, reference_run, tmp_path, capsys, full_disk):
+    out = tmp_path / "r.h5"
+    cmd = _cmd(frames, out, "--strain-window", "5", "--workers", "2")
+    full_disk("reserve", 4)
+    assert main(cmd) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "No space left on device" in line and "frames 0..3 are saved" in line
+    assert _n_done(out) == 4
+    _assert_same_frames(reference_run, out, n=4)
+    set_write_hook(None)
+    assert main(cmd) == 0
+    _assert_same_frames(reference_run, out)
+
+
 def test_d1_full_disk_at_creation_is_one_line(frames, tmp_path, capsys, full_disk):
     full_disk("create", None)
     out = tmp_path / "r.h5"

@@ -21,7 +21,8 @@ def load_h5py():
 
 def one_line(exc: BaseException) -> str:
     """The gist of an exception on one line (HDF5's long I/O errors cut to their cause)."""
-    text = " ".join(str(exc).split())
+    raw = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+    text = " ".join(str(raw).split())  # without the "[Errno N]" prefix of OSError
     m = re.search(r"error message = '([^']*)'", text)
     if m:  # HDF5: "... errno = 28, error message = 'No space left on device' (time = ..."
         head = text.split(",")[0].split("(")[0].strip()

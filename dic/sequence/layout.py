@@ -146,7 +146,8 @@ FORMAT_VERSION = 1
 FIX_SETTINGS = "use a new --out file or the same settings"
 FIX_IMAGES = "use a new --out file or the same images"
 #: advice after a failed frame write
-FIX_SPACE = "free disk space or choose another --out folder, then resume"
+FIX_SPACE = ("free disk space (or move the file to a disk with space and point --out at it), "
+             "then run the same command again to carry on")
 TIME_FORMAT_LEN = 24  # "2026-05-09T07:35:25.123Z"
 #: stored strain tensor components (``xy`` is tensor shear)
 STRAIN_COMPONENTS = ("xx", "yy", "xy")
