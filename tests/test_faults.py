@@ -6,6 +6,30 @@ and failures (one ``dic: error:`` line, exit code 2, no traceback; the results f
 claims a frame that is not whole on disk), so most checks compare against that rule and
 against an uninterrupted run of the same analysis, number for number.
 
+The catalogue (issue line -> cases below):
+
+=========================================== ===============================================
+D1 a full disk marks wrong numbers complete test_d1_* (writer hook at each point, workers,
+                                            strain, creation; a real tmpfs when root)
+D2 a repaired image cannot be resumed       test_d2_repaired_image_resumes
+D3 workers outlive their parent             test_d3_workers_exit_when_the_parent_is_killed
+D4 a kill after a frame leaves no strain    test_d4_resume_fills_strain_missing_after_a_stop
+D5 report/export ignore the stored window   test_d5_export_uses_the_stored_strain_window
+D6 the strain window is checked too late    test_d6_* (before writing; option named)
+D7 the tool reads its own outputs           test_d7_own_maps_in_the_image_folder_...
+D9 analysis files that are not UTF-8        test_d9_* (byte-order mark; UTF-16, Latin-1)
+D10 a too-large step advises a smaller      test_d10_* (no always-outside grid line; step
+    subset; outermost grid lines outside    advice)
+D11 read-only location                      test_d11_read_only_location_says_not_writable
+D12 unquoted glob in the shell's order      test_d12_files_out_of_natural_order_warn
+D13 dic noise reports motion as noise       test_d13_* (same image twice; moving images)
+SIGTERM and SIGHUP end a run silently       test_sigterm_and_sighup_stop_like_ctrl_c
+stray libpng line; path printed twice       test_damaged_png_prints_one_line_with_the_...
+report/export of a foreign file say --out   test_foreign_file_names_the_input_not_out
+"must be a int"                             test_type_errors_in_the_analysis_file_...
+a folder with [ ] in a glob                 test_folder_name_with_brackets_hints_to_escape
+=========================================== ===============================================
+
 Signal and kill tests wait on conditions (a file's ``n_done``, a process's state) with
 generous time limits, never on fixed sleeps, so that a slow, loaded machine does not fail them.
 """
