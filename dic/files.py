@@ -144,10 +144,48 @@ def check_folder(path, action: str) -> None:
 
 def is_disk_full(exc: BaseException) -> bool:
     """True if ``exc`` reports a full disk (``ENOSPC``, also inside HDF5's error text)."""
-    if isinstance(exc, OSError) and exc.errno == errno.ENOSPC:
+    if isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, errno.EDQUOT):
         return True
     text = str(exc)
     return f"errno = {errno.ENOSPC}," in text or os.strerror(errno.ENOSPC) in text
+
+
+def reserve_space(path, ranges) -> None:
+    """Make the file system allocate disk blocks for byte ranges of an existing file now.
+
+    A later write into a reserved range cannot fail for want of space, so a full disk shows
+    up here, before anything is written, instead of in a library that buffers the write.
+    The contents of the file do not change (unwritten ranges keep reading as zeros).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file.
+    ranges : iterable of (int, int)
+        ``(offset, length)`` pairs in bytes, inside the file.
+
+    Raises
+    ------
+    OSError
+        ``ENOSPC`` (or ``EDQUOT``) when the disk or quota is full; other errors of the system.
+        File systems that cannot reserve space are skipped silently.
+    """
+    fallocate = getattr(os, "posix_fallocate", None)
+    if fallocate is None:  # pragma: no cover - not on this system
+        return
+    fd = os.open(os.fspath(path), os.O_WRONLY)
+    try:
+        for offset, length in ranges:
+            if length <= 0:
+                continue
+            try:
+                fallocate(fd, int(offset), int(length))
+            except OSError as exc:
+                if exc.errno in (errno.EOPNOTSUPP, errno.EINVAL, errno.ENOSYS):
+                    return  # no reservation on this file system: the writes will tell
+                raise
+    finally:
+        os.close(fd)
 
 
 def lock_file(path, label: str = "file"):

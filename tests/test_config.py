@@ -50,7 +50,7 @@ block = 4
 @pytest.mark.parametrize("text, match", [
     ('subsett = 21', "did you mean"),
     ('[matching]\nsubsett = 21', "matching.subsett.*did you mean 'subset'"),
-    ('[matching]\nsubset = "21"', "subset must be a int"),
+    ('[matching]\nsubset = "21"', "subset must be a whole number"),
     ('[roi]\nrectangle = [1, 2, 3, 4]\nmask = "m.png"', "one of rectangle"),
     ('[scale]\nmm_per_px = -1', "positive"),
     ('[scale]\nline = [0, 0, 1, 1]', "length_mm"),

@@ -549,8 +549,9 @@ def test_resume_refuses_other_settings_or_images(tmp_path):
     names, digests = sw.images(6)
     with pytest.raises(ValueError, match=r"image 3: 'specimen_0003.tif' in file, 'z.tif' now"):
         _resume(path, names=names[:3] + ["z.tif"] + names[4:])
-    with pytest.raises(ValueError, match="image 2 .* has changed"):
-        _resume(path, digests=digests[:2] + ["f" * 64] + digests[3:])
+    # a completed frame's image that changed is refused (frames 0 and 1 are done) ...
+    with pytest.raises(ValueError, match="image 1 .* has changed"):
+        _resume(path, digests=digests[:1] + ["f" * 64] + digests[2:])
     with pytest.raises(ValueError, match="made from 6 images, 7 given"):
         _resume(path, names=names + ["x.tif"], digests=digests + ["0"])
     assert path.read_bytes() == before  # refused resumes change nothing
@@ -558,6 +559,12 @@ def test_resume_refuses_other_settings_or_images(tmp_path):
         assert w.n_done == 2
         w.write_frame(2, sw.frame(2, 4, 5), reference_index=0)
     assert _n_done_plain(path) == 3
+    # ... one not yet used (a damaged image copied again) is taken, and recorded
+    renewed = digests[:4] + ["e" * 64] + digests[5:]
+    with _resume(path, digests=renewed) as w:
+        assert w.n_done == 3
+    with h5py.File(path, "r") as f:
+        assert list(f["images/sha256"].asstr()[()]) == renewed
 
 
 def test_create_over_existing_file(tmp_path):

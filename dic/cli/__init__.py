@@ -20,8 +20,8 @@ the analysis file's ``[tensile]`` and ``[report]`` tables ask for (:func:`dic.wo
 
 Exit codes: 0 success, 2 bad input (unreadable or missing files, bad options, images of
 another size or bit depth, a results file made with other settings, a full disk; one line
-``dic: error: ...`` on stderr, no traceback), 130 interrupted (Ctrl-C). Whatever was completed
-before an error or an interruption stays in the results file.
+``dic: error: ...`` on stderr, no traceback), 130 interrupted (Ctrl-C, SIGTERM, SIGHUP).
+Whatever was completed before an error or an interruption stays in the results file.
 """
 
 from __future__ import annotations

@@ -91,11 +91,13 @@ def register(subparsers):
 
 def _common(p, frames_help):
     p.add_argument("--frames", metavar="N,N,...", help=frames_help)
-    p.add_argument("--window", type=int, default=9, metavar="N",
-                   help="strain window in grid points, odd, at least 3 (default: 9)")
-    p.add_argument("--measure", default="green-lagrange", metavar="NAME",
+    p.add_argument("--window", type=int, default=None, metavar="N",
+                   help="strain window in grid points, odd, at least 3 (default: the one "
+                        "stored by 'dic run --strain-window', else 9)")
+    p.add_argument("--measure", default=None, metavar="NAME",
                    help="strain measure: green-lagrange, infinitesimal, euler-almansi, hencky "
-                        "or engineering (default: green-lagrange)")
+                        "or engineering (default: the one stored by 'dic run', else "
+                        "green-lagrange)")
 
 
 def _results_file(text):
@@ -151,9 +153,11 @@ def _expand(frames, n):
     return out
 
 
-def _as_option(exc):
+def _as_option(exc, results=None):
     """The same error with library argument names replaced by the command-line options."""
     msg = str(exc)
+    if results is not None and msg.startswith("path:") and str(results) in msg:
+        msg = "RESULTS:" + msg[len("path:"):]  # the input file, not --out
     for lib, opt in _OPTION_NAMES:
         if msg.startswith(lib):
             msg = opt + msg[len(lib):]
@@ -171,6 +175,24 @@ def _count(path):
         return len(r)
 
 
+def _stored_strain(path, window, measure):
+    """``--window`` and ``--measure``, defaulting to the strain stored with the results."""
+    from dic.sequence import Results
+
+    stored = {}
+    try:
+        with Results.open(path) as r:
+            st = r.settings.get("strain") or {}
+            stored = st if isinstance(st, dict) else {}
+    except (OSError, ValueError, KeyError) as exc:
+        raise _as_option(exc, path) from None
+    if window is None:
+        window = stored.get("window", 9)
+    if measure is None:
+        measure = stored.get("measure", "green-lagrange")
+    return window, measure
+
+
 def _check_window(window):
     if isinstance(window, bool) or not isinstance(window, int) or window < 3 or window % 2 == 0:
         raise ValueError(f"--window: {window!r} is not an odd whole number of at least 3; use "
@@ -184,8 +206,9 @@ def run_report(args) -> int:
     from dic.strain import canonical_measure
 
     results = _results_file(args.results)
-    window = _check_window(args.window)
-    measure = canonical_measure(args.measure)
+    window, measure = _stored_strain(results, args.window, args.measure)
+    window = _check_window(window)
+    measure = canonical_measure(measure)
     out = Path(args.out) if args.out is not None else results.parent
     try:
         n = _count(results)
@@ -200,7 +223,7 @@ def run_report(args) -> int:
                                  window=window, measure=measure, metrology=check,
                                  title=getattr(args, "title", None))
     except (ValueError, OSError) as exc:
-        raise _as_option(exc) from None
+        raise _as_option(exc, results) from None
     print(f"report: {html}")
     print(f"report: {pdf}")
     return 0
@@ -216,8 +239,9 @@ def run_export(args) -> int:
         raise ValueError(f"--format: unknown {args.format!r}; use one of: "
                          f"{', '.join(EXPORT_FORMATS)}")
     results = _results_file(args.results)
-    window = _check_window(args.window)
-    measure = canonical_measure(args.measure)
+    window, measure = _stored_strain(results, args.window, args.measure)
+    window = _check_window(window)
+    measure = canonical_measure(measure)
     try:
         components = check_components(args.components)
     except ValueError as exc:
@@ -232,7 +256,7 @@ def run_export(args) -> int:
                                  frames=_expand(_frames(args.frames), n),
                                  components=components, window=window, measure=measure)
     except (ValueError, OSError) as exc:
-        raise _as_option(exc) from None
+        raise _as_option(exc, results) from None
     print(f"export: {len(written)} file{'s' if len(written) != 1 else ''} in {out}"
           + (f" (open {written[-1].name} in ParaView)" if fmt == "vtk" else ""))
     return 0

@@ -97,7 +97,8 @@ def _add_run(commands):
                "(img2 before img10); separate arguments keep the order given. Points are in "
                "reference-image pixels: x is the column, y the row (downwards). Options "
                "override the analysis file (--config). Exit codes: 0 done, 2 bad input, "
-               "130 interrupted.")
+               "130 interrupted (Ctrl-C, SIGTERM or SIGHUP: the run stops after the frame "
+               "being written).")
     run.add_argument("images", nargs="*", metavar="IMAGES",
                      help="image files, folders or glob patterns (PNG, TIFF, BMP, JPEG); "
                           "default: 'images' of the analysis file")
@@ -181,15 +182,38 @@ def _add_info(commands):
 # --------------------------------------------------------------------------------------------
 # the run command: settings
 # --------------------------------------------------------------------------------------------
-def _collect_images(arguments):
+def _own_output(path, folder):
+    """True for a displacement map or table this command wrote into ``folder``."""
+    return (folder is not None and path.parent == folder.resolve()
+            and path.name.startswith("displacements_")
+            and path.suffix.lower() in (".png", ".csv"))
+
+
+def _warn_order(files):
+    """Warn when image files named one by one are not in natural order (a shell's glob)."""
+    from dic.images.io import natural_sorted
+
+    if len(files) > 2 and natural_sorted(files) != files:
+        shown = ", ".join(p.name for p in files[:4])
+        log.warning("images: the %d files named one by one are not in natural order (%s, ...), "
+                    "so they are analysed in the order given; an unquoted pattern is sorted "
+                    "letter by letter by the shell: quote it ('frames/img*.png') for natural "
+                    "order (img2 before img10)", len(files), shown)
+
+
+def _collect_images(arguments, folder=None):
     """Image paths from files, folders and patterns: argument order, natural order within each.
 
     Paths are made absolute, so that the same images give the same results file (and resume)
-    whether named on the command line or in an analysis file.
+    whether named on the command line or in an analysis file. The displacement maps and
+    tables a run writes into its output folder ``folder`` are left out.
     """
     from dic.images.io import list_images
 
     found, seen = [], set()
+    files = [Path(a) for a in arguments if Path(a).is_file()]
+    if len(files) == len(arguments):
+        _warn_order(files)
     for arg in arguments:
         p = Path(arg)
         if p.is_file():
@@ -204,6 +228,8 @@ def _collect_images(arguments):
             raise FileNotFoundError(f"images: no such file or folder '{arg}'; check the path")
         for q in paths:
             key = q.resolve()
+            if _own_output(key, folder) and not p.is_file():
+                continue  # this tool's own output, not an image of the test
             if key not in seen:
                 seen.add(key)
                 found.append(key)
@@ -430,6 +456,22 @@ def _frames_done(path):
         return None
 
 
+# stored setting names -> the options that set them (for messages)
+_SETTING_OPTIONS = {"strain.window": "--strain-window", "strain.measure": "--strain-measure",
+                    "subset": "--subset", "step": "--step", "shape_function": "--shape-function",
+                    "interpolation": "--interpolation", "min_zncc": "--min-zncc",
+                    "search": "--search", "block": "--block", "reference": "--reference",
+                    "frames": "--frames", "roi": "--roi"}
+
+
+def _with_options(message):
+    """A settings mismatch with each differing setting followed by its option."""
+    for name, option in _SETTING_OPTIONS.items():
+        for lead in ("(", "; "):
+            message = message.replace(f"{lead}{name}: ", f"{lead}{name} ({option}): ")
+    return message
+
+
 def _run(args, out=None):
     from dic.errors import ResultsMismatch
     from dic.sequence.tracker import track
@@ -438,7 +480,7 @@ def _run(args, out=None):
 
     images, target, kw, after = _analysis(args)
     h5, folder = _outputs(target)
-    paths = _collect_images(images)
+    paths = _collect_images(images, folder)
     _check_plan(paths, kw, folder)
     show = not args.quiet
     bar = show and _terminal()
@@ -465,13 +507,18 @@ def _run(args, out=None):
             with stop_on_interrupt():
                 results = track(paths, h5, overwrite=args.overwrite, progress=bar, **kw)
         except ResultsMismatch as exc:  # another analysis's file: --overwrite replaces it
-            raise ResultsMismatch(f"{exc}, or add --overwrite to replace it",
-                                  fix=f"{exc.fix}, or add --overwrite to replace it") from None
+            raise ResultsMismatch(f"{_with_options(str(exc))}, or add --overwrite to replace "
+                                  f"it", fix=f"{exc.fix}, or add --overwrite to replace it") \
+                from None
     except KeyboardInterrupt:
+        from dic.sequence.tracker import stop_signal
+
         done = _frames_done(h5)
         kept = (f"{done[0]} of {done[1]} frames are saved in '{h5}'; run the same command "
                 f"again to carry on" if done else "nothing was saved")
-        print(f"dic: interrupted; {kept}", file=sys.stderr)
+        by = stop_signal()
+        how = f"stopped by {by}" if by and by != "SIGINT" else "interrupted"
+        print(f"dic: {how}; {kept}", file=sys.stderr)
         return EXIT_INTERRUPTED
     except BaseException:
         if made_folder is not None:

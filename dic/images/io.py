@@ -191,6 +191,32 @@ def _check_file(p, name):
     return fmt
 
 
+def _quiet_decode(cv2, data):
+    """``cv2.imdecode`` with the C library's own complaints kept off the terminal.
+
+    libpng and libjpeg print their error (``libpng error: ...``) straight to file
+    descriptor 2 before OpenCV returns None; the caller reports the damage in its own words,
+    so descriptor 2 is pointed at the null device for the decode and restored after.
+    """
+    import sys
+
+    try:
+        sys.stderr.flush()
+        saved = os.dup(2)
+    except (OSError, ValueError, AttributeError):  # no descriptor 2 to guard
+        return cv2.imdecode(data, cv2.IMREAD_UNCHANGED)
+    try:
+        null = os.open(os.devnull, os.O_WRONLY)
+        try:
+            os.dup2(null, 2)
+        finally:
+            os.close(null)
+        return cv2.imdecode(data, cv2.IMREAD_UNCHANGED)
+    finally:
+        os.dup2(saved, 2)
+        os.close(saved)
+
+
 def _read_file(p, name):
     """Decode file ``p`` into its raw samples: (rows, cols) or (rows, cols, channels)."""
     fmt = _check_file(p, name)
@@ -205,7 +231,7 @@ def _read_file(p, name):
         raise ImageError(
             f"{name}: cannot read '{p}' ({exc.strerror or exc}); check the file permissions"
         ) from None
-    raw = cv2.imdecode(data, cv2.IMREAD_UNCHANGED) if data.size else None
+    raw = _quiet_decode(cv2, data) if data.size else None
     if raw is None:
         raise ImageError(
             f"{name}: cannot decode '{p}' as {fmt.upper()} (damaged, truncated or not really "
@@ -618,5 +644,12 @@ def list_images(pattern_or_folder):
                     f"no image files ({', '.join(IMAGE_EXTENSIONS)}) match it; check the "
                     f"folder and the pattern, e.g. 'frames/*.tif'"
                 )
+                folder = p.parent
+                if glob.has_magic(str(folder)) and folder.is_dir():
+                    # a folder whose name holds [ ] (or * ?): the pattern reads them as wildcards
+                    fixed = os.path.join(glob.escape(str(folder)), p.name)
+                    hint = (f"no image files match it: the folder name '{folder}' holds "
+                            f"characters a pattern reads as wildcards ([ ] * ?); escape them, "
+                            f"e.g. '{fixed}', or give the folder itself")
             raise FileNotFoundError(f"pattern_or_folder: '{text}': {hint}")
     return natural_sorted(found)

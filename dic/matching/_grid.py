@@ -85,6 +85,19 @@ def prepare_grid(shape, roi, subset, step, border=0):
     rows, cols = shape
     lo_x, hi_x = border + half, cols - 1 - border - half
     lo_y, hi_y = border + half, rows - 1 - border - half
+    # the grid is laid out where subsets fit: grid lines whose subsets would cross the image
+    # margin (always "outside image") are left out; the others keep their positions
+    for name, lines, lo, hi in (("column", xs, lo_x, hi_x), ("row", ys, lo_y, hi_y)):
+        if hi < lo:
+            raise RegionTooSmall(f"subset: {subset} px subsets (plus a {border} px margin for "
+                                 f"interpolation) do not fit in the image ({cols} x {rows} px); "
+                                 f"use a smaller subset")
+        if not ((lines >= lo) & (lines <= hi)).any():
+            raise RegionTooSmall(f"step: a {step} px step puts no grid {name} where a "
+                                 f"{subset} px subset fits (between {lo} and {hi} px); use a "
+                                 f"smaller step")
+    xs = xs[(xs >= lo_x) & (xs <= hi_x)]
+    ys = ys[(ys >= lo_y) & (ys <= hi_y)]
     in_image = (((xs >= lo_x) & (xs <= hi_x))[None, :] & ((ys >= lo_y) & (ys <= hi_y))[:, None])
     if mask[y0:y1 + 1, x0:x1 + 1].all():
         # a rectangular ROI: every subset inside the bounding box is inside the ROI

@@ -3,11 +3,19 @@
 from __future__ import annotations
 
 import os
-from dataclasses import dataclass
+import logging
+from dataclasses import dataclass, field as dc_field
 
 import numpy as np
 
+from dic.errors import InputError
+
 __all__ = ["noise_floor", "NoiseFloor", "COMPONENTS"]
+
+log = logging.getLogger(__name__)
+
+#: spatial scatter of u or v above this many times the predicted noise means motion, not noise
+MOTION_FACTOR = 10.0
 
 #: the quantities whose noise is reported (xy is tensor shear)
 COMPONENTS = ("u", "v", "xx", "yy", "xy")
@@ -80,6 +88,7 @@ class NoiseFloor:
     n_points: int
     x: np.ndarray
     y: np.ndarray
+    warnings: list = dc_field(default_factory=list)
 
     def summary(self) -> str:
         """A few lines of plain text for a report."""
@@ -102,6 +111,7 @@ class NoiseFloor:
                          f"xy {t['xy'] * 1e6:.0f} microstrain")
         else:
             lines.append("  temporal standard deviation: needs at least three images")
+        lines.extend(f"  warning: {w}" for w in self.warnings)
         return "\n".join(lines)
 
     def as_dict(self) -> dict:
@@ -164,6 +174,11 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
             raise ValueError(f"images[{k}] is {img.shape[1]} x {img.shape[0]} px but images[0] "
                              f"is {ref.shape[1]} x {ref.shape[0]} px; use images of one camera "
                              f"and size")
+        if np.array_equal(img, ref):
+            shown = f" ('{item}')" if isinstance(item, (str, os.PathLike)) else ""
+            raise InputError(f"images[{k}]{shown} has exactly the pixels of images[0]: the same "
+                             f"image twice shows no noise (camera noise differs from shot to "
+                             f"shot); give separate images of the static specimen")
         f = correlate(ref, img, subset=subset, step=step, roi=roi,
                       shape_function=shape_function, interpolation=interpolation,
                       image_noise=image_noise)
@@ -205,6 +220,18 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
     sv = np.concatenate([f.sigma_v[f.valid] for f in fields if f.sigma_v is not None])
     predicted = (float(np.sqrt(np.nanmean(su ** 2))) if su.size else float("nan"),
                  float(np.sqrt(np.nanmean(sv ** 2))) if sv.size else float("nan"))
+    warnings = []
+    for c, pred in zip(("u", "v"), predicted):
+        # not static: a deformation or a non-rigid motion scatters u, v far beyond the noise
+        # the subsets predict (common practice, no source: a noise floor needs static images)
+        if np.isfinite(pred) and pred > 0 and spatial[c] > MOTION_FACTOR * pred:
+            warnings.append(f"the scatter of {c} ({spatial[c]:.4f} px) is "
+                            f"{spatial[c] / pred:.0f} times the predicted noise: the specimen "
+                            f"seems to move or deform between the images, which then measure "
+                            f"motion, not noise; use images of the static, unloaded specimen")
+            break
+    for w in warnings:
+        log.warning("%s", w)
     all_valid = np.all([f.valid for f in fields], axis=0)
     vsg = (window - 1) * step + subset
     return NoiseFloor(
@@ -214,5 +241,5 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
                   "interpolation": f0.settings.get("interpolation")},
         spatial=spatial, spatial_each=spatial_each, mean=mean, temporal=temporal,
         temporal_rms=temporal_rms, predicted=predicted, n_points=int(all_valid.sum()),
-        x=f0.x, y=f0.y)
+        x=f0.x, y=f0.y, warnings=warnings)
 

@@ -25,9 +25,9 @@ import importlib
 # public name -> module that defines it (PEP 562)
 _NAMES = {
     "track": "tracker", "load_results": "tracker", "resolve_images": "tracker",
-    "stop_on_interrupt": "tracker",
+    "stop_on_interrupt": "tracker", "stop_signal": "tracker",
     "Results": "reader", "results_info": "reader",
-    "ResultsWriter": "writer", "open_for_writing": "writer",
+    "ResultsWriter": "writer", "open_for_writing": "writer", "set_write_hook": "writer",
     "FORMAT": "layout", "FORMAT_VERSION": "layout", "STRAIN_COMPONENTS": "layout",
     "strain_key": "layout",
 }

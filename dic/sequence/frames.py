@@ -201,6 +201,20 @@ class FrameMatcher:
         return compose_increment(self.base, raw, dx, dy), raw
 
 
+def as_stored(field: DisplacementField) -> DisplacementField:
+    """The field as the results file holds it (``sigma_u``, ``sigma_v`` in float32).
+
+    A new reference stage starts from this, so that a run resumed from the file (which reads
+    the base field back) carries on with exactly the numbers an uninterrupted run uses.
+    """
+    out = replace(field)
+    for name in ("sigma_u", "sigma_v"):
+        a = getattr(field, name)
+        if a is not None:
+            setattr(out, name, np.asarray(a).astype(np.float32).astype(np.float64))
+    return out
+
+
 def extrapolate(prev: DisplacementField | None, last: DisplacementField) -> DisplacementField:
     """Linear extrapolation of a raw field one interval ahead (a starting guess only)."""
     if prev is None:

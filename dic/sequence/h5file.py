@@ -2,10 +2,11 @@
 
 from __future__ import annotations
 
+import errno
 import re
 from pathlib import Path
 
-from dic.errors import DiskFull, ResultsFileError
+from dic.errors import DiskFull, NotWritable, ResultsFileError
 from dic.files import is_disk_full
 
 __all__ = ["load_h5py", "one_line", "open_h5"]
@@ -20,7 +21,8 @@ def load_h5py():
 
 def one_line(exc: BaseException) -> str:
     """The gist of an exception on one line (HDF5's long I/O errors cut to their cause)."""
-    text = " ".join(str(exc).split())
+    raw = exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc)
+    text = " ".join(str(raw).split())  # without the "[Errno N]" prefix of OSError
     m = re.search(r"error message = '([^']*)'", text)
     if m:  # HDF5: "... errno = 28, error message = 'No space left on device' (time = ..."
         head = text.split(",")[0].split("(")[0].strip()
@@ -63,10 +65,17 @@ def open_h5(p: Path, mode: str, what: str, **kw):
         if isinstance(exc, FileNotFoundError) or "errno = 2," in msg:
             raise FileNotFoundError(f"cannot {what} results file '{p}': no such "
                                     "file; check the path") from None
-        if isinstance(exc, PermissionError) or "errno = 13," in msg or "errno = 30," in msg:
+        code = exc.errno if isinstance(exc.errno, int) else None
+        if code == errno.EROFS or "errno = 30," in msg:
+            raise NotWritable(f"cannot {what} results file '{p}': the location is not "
+                              "writable (read-only file system); choose a writable --out "
+                              "folder, or copy the file to one") from None
+        if isinstance(exc, PermissionError) or code in (errno.EACCES, errno.EPERM) \
+                or "errno = 13," in msg:
+            where = "the location is not writable" if mode != "r" else "not readable"
             raise PermissionError(f"cannot {what} results file '{p}': permission "
-                                  "denied; choose a writable --out folder or fix its "
-                                  "permissions") from None
+                                  f"denied ({where}); choose a writable --out folder or fix "
+                                  "its permissions") from None
         error = DiskFull if is_disk_full(exc) else ResultsFileError
         raise error(f"cannot {what} results file '{p}' ({msg}); check that it is an HDF5 "
                     "results file and not damaged") from None

@@ -80,6 +80,13 @@ A frame is committed in this order:
 3. write ``n_done = k + 1``, one 8-byte integer at an 8-byte-aligned offset (so within one
    page: the kernel cannot tear it), and flush.
 
+Before step 1 the disk blocks of the frame's slots are reserved (``posix_fallocate``; the
+datasets are otherwise left sparse, so a file takes disk space only as frames arrive). The
+reservation covers the window HDF5's sieve buffer writes back for small writes, so a full
+disk is reported there, as an error before anything of the frame is written, and never from
+inside HDF5's buffers, which report a failed write only when they are freed, too late for the
+writer to know.
+
 A process stopped at any instant (SIGKILL, a crash, Ctrl-C, a full disk) therefore leaves a file
 whose structure is exactly as it was made and whose ``n_done`` counts only frames whose numbers
 were already in the file. Data in the operating system's page cache survives the death of the
@@ -139,7 +146,8 @@ FORMAT_VERSION = 1
 FIX_SETTINGS = "use a new --out file or the same settings"
 FIX_IMAGES = "use a new --out file or the same images"
 #: advice after a failed frame write
-FIX_SPACE = "free disk space or choose another --out folder, then resume"
+FIX_SPACE = ("free disk space (or move the file to a disk with space and point --out at it), "
+             "then run the same command again to carry on")
 TIME_FORMAT_LEN = 24  # "2026-05-09T07:35:25.123Z"
 #: stored strain tensor components (``xy`` is tensor shear)
 STRAIN_COMPONENTS = ("xx", "yy", "xy")

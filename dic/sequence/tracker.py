@@ -17,8 +17,8 @@ from pathlib import Path
 import numpy as np
 
 from dic.field import DisplacementField
-from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, extrapolate,
-                       needs_new_reference)
+from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, as_stored,
+                                 extrapolate, needs_new_reference)
 
 __all__ = ["track", "load_results", "resolve_images"]
 
@@ -90,7 +90,7 @@ def _load(item):
 
     if isinstance(item, np.ndarray):
         return read_image(item, name="image")
-    return read_image(item, name=str(item))
+    return read_image(item, name="image")  # the message names the path itself
 
 
 # ------------------------------------------------------------------------------------------
@@ -113,13 +113,15 @@ class _Stage:
 _WORKER_CACHE: dict = {}
 
 # a stop asked for (e.g. by Ctrl-C, see stop_on_interrupt): honoured after the next frame written
-_STOP = {"asked": False}
+_STOP = {"asked": False, "signal": None}
 
 
 def stop_on_interrupt():
     """A context manager: Ctrl-C during :func:`track` stops it after the frame being written.
 
-    The first SIGINT only asks for a stop, which the tracker honours at its next safe point (a
+    SIGTERM and SIGHUP (a closed terminal, ``kill``) are treated the same way. The name of
+    the last such signal is in ``stop_signal()`` afterwards. The first signal only asks for a
+    stop, which the tracker honours at its next safe point (a
     frame completely written) by raising KeyboardInterrupt there; a second SIGINT interrupts at
     once. A KeyboardInterrupt raised wherever the signal happens to land could be swallowed (for
     example inside a garbage-collection callback) and the run would go on.
@@ -135,19 +137,29 @@ def stop_on_interrupt():
             return
 
         def handler(signum, frame):
+            _STOP["signal"] = signal.Signals(signum).name
             if _STOP["asked"]:
                 raise KeyboardInterrupt
             _STOP["asked"] = True
 
         _STOP["asked"] = False
-        old = signal.signal(signal.SIGINT, handler)
+        _STOP["signal"] = None
+        kinds = [signal.SIGINT, signal.SIGTERM] + ([signal.SIGHUP]
+                                                   if hasattr(signal, "SIGHUP") else [])
+        old = {sig: signal.signal(sig, handler) for sig in kinds}
         try:
             yield
         finally:
-            signal.signal(signal.SIGINT, old)
+            for sig, h in old.items():
+                signal.signal(sig, h)
             _STOP["asked"] = False
 
     return guard()
+
+
+def stop_signal():
+    """Name of the signal that last stopped :func:`track` under :func:`stop_on_interrupt`."""
+    return _STOP["signal"]
 
 
 def _worker_matcher(stage: _Stage, key) -> FrameMatcher:
@@ -205,10 +217,50 @@ class _Local:
 
 
 def _ignore_ctrl_c():
-    """Worker processes leave Ctrl-C to the main process, which stops the pool."""
+    """Set up a worker process: it leaves Ctrl-C to the main process, which stops the pool,
+    and ends itself when the main process dies (a SIGKILL leaves no one to stop it)."""
     import signal
 
     signal.signal(signal.SIGINT, signal.SIG_IGN)
+    _exit_with_parent()
+
+
+def _exit_with_parent(poll_s: float = 0.5):
+    """End this process when its parent ends.
+
+    On Linux the kernel sends SIGKILL at once (``prctl(PR_SET_PDEATHSIG)``); everywhere a
+    daemon thread also polls ``os.getppid()``, which changes when the parent dies (the
+    process is adopted by another).
+    """
+    import signal
+    import sys
+    import threading
+    import time
+
+    import multiprocessing
+
+    # the parent as multiprocessing recorded it when it started this process: os.getppid()
+    # here could already name the process that adopted an orphan
+    known = multiprocessing.parent_process()
+    parent = known.pid if known is not None and known.pid else os.getppid()
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # 1 = PR_SET_PDEATHSIG
+        except (OSError, AttributeError):  # pragma: no cover - no prctl: the thread remains
+            pass
+
+    def watch():
+        while True:
+            if os.getppid() != parent:
+                os._exit(1)
+            time.sleep(poll_s)
+
+    if os.getppid() != parent:  # pragma: no cover - the parent died during set-up
+        os._exit(1)
+    threading.Thread(target=watch, name="dic-parent-watch", daemon=True).start()
 
 
 def _make_executor(workers, cluster):
@@ -332,6 +384,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     xs, ys = prepare_grid(ref_img.shape, mask, settings.subset, settings.step,
                           edge_margin(INTERPOLATIONS[settings.interpolation]))[:2]
     grid_x, grid_y = (a.astype(np.float64) for a in np.meshgrid(xs, ys))
+    if strain:
+        _check_strain_window(strain, grid_x.shape, settings.step)
     first_stage = _Stage(items[reference], mask, None, settings, int(reference))
     matcher0 = first_stage.matcher()
     # the first stage's matcher lives in the cache only, so that it is dropped when the
@@ -353,6 +407,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
             bar = tqdm(total=len(order), initial=writer.n_done, unit="frame", desc="tracking",
                        dynamic_ncols=True)
+        if strain:
+            _fill_strain(writer, strain)
         _drive(items, order, reference, settings, mask, writer, executor, threads, bar,
                strain)
         stopped = False
@@ -410,8 +466,8 @@ def _drive(items, order, reference, settings, mask, writer, executor, threads, b
                                                 executor, threads, bar, settings, strain)
         if new_stage is None:
             break
-        # a new reference: the last good frame
-        base = last_total
+        # a new reference: the last good frame, as stored (as a resume would read it back)
+        base = as_stored(last_total)
         log.debug("new stage at %d from base with %d valid points", end, base.n_valid)
         ref_index = order[end - 1]
         stage = _Stage(items[ref_index], None, base, settings, int(ref_index))
@@ -526,9 +582,42 @@ def _stage_matcher(stage, key, local):
     return local if local is not None else _worker_matcher(stage, key)
 
 
-def _write_strain(writer, k, total, strain):
+def _check_strain_window(strain, shape, step):
+    """The strain window against the grid, before anything is written (SettingsConflict)."""
+    from dic.errors import SettingsConflict
+
+    w = int(strain.get("window", 9))
+    most = min(shape) - (1 - min(shape) % 2)  # the largest odd window that fits
+    if w > min(shape):
+        fix = (f"use --strain-window {most} or less, or a smaller --step" if most >= 3 else
+               "use a smaller --step or a larger region of interest")
+        raise SettingsConflict(f"--strain-window: a window of {w} x {w} points does not fit "
+                               f"the grid of {shape[0]} x {shape[1]} points (step {step} px); "
+                               f"{fix}")
+
+
+def _strain_of(total, strain):
     from dic.strain import strain_field
 
-    s = strain_field(total, window=int(strain.get("window", 9)),
-                     measure=strain.get("measure", "green-lagrange"))
-    writer.write_strain_frame(k, s)
+    return strain_field(total, window=int(strain.get("window", 9)),
+                        measure=strain.get("measure", "green-lagrange"))
+
+
+def _write_strain(writer, k, total, strain):
+    writer.write_strain_frame(k, _strain_of(total, strain))
+
+
+def _fill_strain(writer, strain):
+    """Store the strain of completed frames that lack it (a stop between a frame and its
+    strain, or a strain write that failed): from the stored displacements."""
+    flags = None
+    for k in range(writer.n_done):
+        if flags is not None and flags[k]:
+            continue
+        s = _strain_of(writer.read_field(k), strain)
+        if flags is None:
+            flags = writer.strain_written(s.measure, int(s.window))
+            if flags[k]:
+                continue
+        log.info("frame %d: storing its strain, missing after the last stop", k)
+        writer.write_strain_frame(k, s)

@@ -16,7 +16,7 @@ from dic import __version__
 from dic.errors import DiskFull, InputError, ResultsFileError, ResultsMismatch
 from dic.field import DisplacementField, Reason
 from dic.files import (atomic_write, check_folder, is_disk_full, lock_file, partial_name,
-                       remove_stale_partials, sparse_copy, unlock_file)
+                       remove_stale_partials, reserve_space, sparse_copy, unlock_file)
 from dic.sequence.checks import (check_path, differences, same_value, settings_json, short,
                                  strain_spec, string_list)
 from dic.sequence.h5file import load_h5py, one_line, open_h5
@@ -25,9 +25,45 @@ from dic.sequence.layout import (FIX_IMAGES, FIX_SETTINGS, FIX_SPACE, FORMAT, FO
                                  build_strain_group, fixed_dataset, frame_layout, group_attrs,
                                  now_utc, read_field, read_format, set_attrs)
 
-__all__ = ["ResultsWriter", "open_for_writing"]
+__all__ = ["ResultsWriter", "open_for_writing", "set_write_hook"]
 
 _TOKEN = object()
+
+# the write hook (see set_write_hook): a fault injector for tests, None in normal use
+_HOOK = {"hook": None}
+
+
+def set_write_hook(hook):
+    """Install a function called at fixed points of every write; returns the previous one.
+
+    Meant for tests that make writes fail where they choose (a full disk, an I/O error)
+    without a real full disk: ``hook(point, k)`` may raise, e.g.
+    ``OSError(errno.ENOSPC, "No space left on device")``. The points are ``"create"`` (the
+    new file is being built), ``"reserve"`` (before disk space for frame ``k`` is reserved),
+    ``"data"`` (frame ``k`` half written), ``"commit"`` (frame ``k`` written and flushed,
+    ``n_done`` not yet advanced) and ``"strain"`` (strain of frame ``k`` about to be written).
+
+    Parameters
+    ----------
+    hook : callable or None
+        ``hook(point: str, k: int)``; None removes the hook.
+
+    Returns
+    -------
+    callable or None
+        The hook installed before.
+    """
+    if hook is not None and not callable(hook):
+        raise InputError(f"hook: expected a function hook(point, k) or None, got "
+                         f"{type(hook).__name__}")
+    old, _HOOK["hook"] = _HOOK["hook"], hook
+    return old
+
+
+def _at(point: str, k: int) -> None:
+    hook = _HOOK["hook"]
+    if hook is not None:
+        hook(point, k)
 
 
 class ResultsWriter:
@@ -174,6 +210,7 @@ class ResultsWriter:
         try:
             with atomic_write(p, None, fsync=fsync) as tmp, \
                     open_h5(tmp, "w", "create", **WRITE_KW) as f:
+                _at("create", -1)
                 a = f.attrs
                 a["format"] = FORMAT
                 a["format_version"] = np.int64(FORMAT_VERSION)
@@ -270,6 +307,11 @@ class ResultsWriter:
                                       f"settings ({parts}); {FIX_SETTINGS}", fix=FIX_SETTINGS)
             old_names = list(f["images/name"].asstr()[()])
             old_digests = list(f["images/sha256"].asstr()[()])
+            n_done = int(f["n_done"][()])
+            # the images completed frames depend on: their own and their reference images
+            order = old.get("frames", list(range(len(old_names)))) \
+                if isinstance(old, dict) else list(range(len(old_names)))
+            used = {int(r) for r in f["frames/reference"][:n_done]} if n_done else set()
         if len(old_names) != len(names):
             raise ResultsMismatch(f"image_names: results file '{p}' was made from "
                                   f"{len(old_names)} images, {len(names)} given now; "
@@ -279,13 +321,26 @@ class ResultsWriter:
                 raise ResultsMismatch(f"image_names: results file '{p}' was made from other "
                                       f"images (image {i}: {a!r} in file, {b!r} now); "
                                       f"{FIX_IMAGES}", fix=FIX_IMAGES)
+        renewed = {}
         for i, (a, b) in enumerate(zip(old_digests, digests)):
-            if a != b:
+            if a == b:
+                continue
+            image = order[i] if i < len(order) else i
+            if i < n_done or image in used:
                 raise ResultsMismatch(f"image_sha256: image {i} ({names[i]!r}) has changed "
-                                      f"since results file '{p}' was made (SHA-256 differs); "
-                                      f"{FIX_IMAGES}", fix=FIX_IMAGES)
+                                      f"since frame {i} was stored in results file '{p}' "
+                                      f"(SHA-256 differs); {FIX_IMAGES}", fix=FIX_IMAGES)
+            renewed[i] = b  # not used yet (e.g. a damaged image copied again): take the new one
         remove_stale_partials(p)
-        return cls(p, fsync=fsync, _token=_TOKEN)
+        w = cls(p, fsync=fsync, _token=_TOKEN)
+        if renewed:
+            try:
+                w._restructure("record the new image digests in",
+                               lambda h: _set_digests(h, renewed))
+            except BaseException:
+                w.close()
+                raise
+        return w
 
     @classmethod
     def reopen(cls, path, *, fsync=True) -> "ResultsWriter":
@@ -363,6 +418,27 @@ class ResultsWriter:
         if self._f is None:
             raise InputError(f"results file '{self.path}' is closed; open a new writer")
         return self._f
+
+    def _reserve(self, group, names, k0: int, k1: int) -> None:
+        """Reserve disk blocks for frames ``k0 .. k1-1`` of the named datasets of ``group``.
+
+        HDF5 passes writes smaller than its sieve buffer through that buffer, which it later
+        writes back whole (up to the buffer's size from the first byte written, within the
+        dataset): that window is reserved too, or its write-back could meet a full disk.
+        """
+        sieve = int(self._f.id.get_access_plist().get_sieve_buf_size())
+        ranges = []
+        for name in names:
+            d = group[name]
+            offset = d.id.get_offset()
+            if offset is None:  # no storage yet (cannot happen with fixed_dataset)
+                continue
+            size = d.id.get_storage_size()
+            per = size // max(d.shape[0], 1)
+            start = offset + k0 * per
+            end = min(offset + size, max(offset + k1 * per, start + sieve))
+            ranges.append((start, end - start))
+        reserve_space(self.path, ranges)
 
     def _sync(self, f) -> None:
         f.flush()
@@ -452,18 +528,28 @@ class ResultsWriter:
             f = self._f
         try:
             fr = f["frames"]
-            for name, a in arrays.items():
+            names = [*arrays, "reference", "reference_update", "finished"]
+            # disk blocks for the frame's slots first: a full disk stops here, before HDF5
+            # buffers a write it could not carry out (it would report that only when the
+            # buffer is dropped, too late to keep n_done honest)
+            _at("reserve", k)
+            self._reserve(fr, names, k, k + 1)
+            for j, (name, a) in enumerate(arrays.items()):
                 fr[name][k] = a
+                if j == 0:
+                    _at("data", k)
             fr["reference"][k] = np.int32(reference_index)
             fr["reference_update"][k] = np.uint8(self._pending_update == k)
             fr["finished"][k] = np.bytes_(now_utc(ms=True))
             self._sync(f)
+            _at("commit", k)
             f["n_done"][()] = np.int64(k + 1)
             f.flush()
         except OSError as exc:
             error = DiskFull if is_disk_full(exc) else ResultsFileError
+            kept = (f"frames 0..{k - 1} are saved" if k else "no frame is saved yet")
             raise error(f"cannot write frame {k} to results file '{self.path}' "
-                          f"({one_line(exc)}); {FIX_SPACE}") from None
+                        f"({one_line(exc)}); {kept}; {FIX_SPACE}") from None
         self.n_done = k + 1
         self._pending_update = None
 
@@ -542,6 +628,8 @@ class ResultsWriter:
         g = f["strain"][key]
         s = int(start)
         try:
+            _at("strain", s)
+            self._reserve(g, list(comps), s, s + m)
             for c, a in comps.items():
                 g[c][s:s + m] = a
             self._sync(f)
@@ -579,6 +667,18 @@ class ResultsWriter:
             if value is not None:
                 attrs[name] = value.item() if isinstance(value, np.generic) else value
         self.write_strain(measure, window, comps, start=k, attrs=attrs)
+
+    def strain_written(self, measure, window) -> np.ndarray:
+        """Flags (0/1) of the completed frames whose strain ``measure``/``window`` is stored.
+
+        Zeros for every frame when the file has no such strain group yet; a run stopped
+        between a frame and its strain leaves a 0 there, which a resume fills.
+        """
+        f = self._need_open()
+        key = strain_spec(measure, window, None)[0]
+        if key not in f["strain"]:
+            return np.zeros(self.n_done, np.uint8)
+        return f["strain"][key]["written"][: self.n_done]
 
     @property
     def reference_updates(self) -> np.ndarray:
@@ -627,6 +727,14 @@ class ResultsWriter:
             self._open()
         finally:
             unlock_file(old_lock)
+
+
+def _set_digests(h, renewed: dict) -> None:
+    d = h["images/sha256"]
+    digests = list(d.asstr()[()])
+    for i, b in renewed.items():
+        digests[i] = b
+    d[...] = np.array(digests, dtype=object)
 
 
 def open_for_writing(path, *, settings, grid_x, grid_y, n_frames, image_names, image_sha256,

@@ -59,6 +59,8 @@ import math
 import tomllib
 from pathlib import Path
 
+from dic.errors import InputError
+
 __all__ = ["load_analysis", "scale_from_line", "SCHEMA"]
 
 #: section -> key -> expected Python type(s); None as section means the top level
@@ -112,11 +114,17 @@ def _check_table(table, section, where):
             raise ValueError(f"{where}: unknown key {name!r}{_closest(key, options)}")
         types = allowed[key]
         if (isinstance(value, bool) and bool not in types) or not isinstance(value, types):
-            want = " or ".join(t.__name__ for t in types)
+            kinds = [t for t in types if not (t is int and float in types)]  # int: a number
+            want = " or ".join(_TYPE_WORDS.get(t, t.__name__) for t in kinds)
             name = key if section is None else f"{section}.{key}"
-            raise ValueError(f"{where}: {name} must be a {want}, got {value!r}")
+            raise ValueError(f"{where}: {name} must be {want}, got {value!r}")
         if key == "frames":
             _check_table(value, "frames", where)
+
+
+# plain words for the value types of the analysis file (TOML names in brackets)
+_TYPE_WORDS = {int: "a whole number", float: "a number", str: "a text in quotes",
+               bool: "true or false", list: "a list [...]", dict: "a table"}
 
 
 def scale_from_line(line, length_mm) -> float:
@@ -138,6 +146,33 @@ def scale_from_line(line, length_mm) -> float:
     if not d > 0 or not float(length_mm) > 0:
         raise ValueError("scale line needs two different points and a positive length in mm")
     return float(length_mm) / d
+
+
+def _decode(raw: bytes, p: Path) -> str:
+    """The text of an analysis file: UTF-8, with or without a byte-order mark.
+
+    TOML files are UTF-8 (TOML 1.0.0 specification, "Spec"); a file saved in another encoding
+    is refused with a message that names the encoding it seems to be in.
+    """
+    import codecs
+
+    if raw.startswith(codecs.BOM_UTF8):
+        raw = raw[len(codecs.BOM_UTF8):]  # some editors put a byte-order mark first: skip it
+    elif raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)) or (
+            len(raw) >= 2 and (raw[0] == 0) != (raw[1] == 0)):
+        raise InputError(f"analysis file '{p}': saved as UTF-16; save it as UTF-8 (in the "
+                         f"editor's 'Save as' encoding choice) and run again")
+    try:
+        return raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        line = raw[:exc.start].count(b"\n") + 1
+        try:
+            raw.decode("cp1252")
+            guess = "a one-byte encoding such as Latin-1 or Windows-1252"
+        except UnicodeDecodeError:
+            guess = "an encoding other than UTF-8"
+        raise InputError(f"analysis file '{p}': line {line} is not UTF-8 (the file seems to "
+                         f"be saved in {guess}); save it as UTF-8 and run again") from None
 
 
 def load_analysis(path) -> dict:
@@ -165,10 +200,11 @@ def load_analysis(path) -> dict:
     """
     p = Path(path)
     try:
-        text = p.read_text(encoding="utf-8")
+        raw = p.read_bytes()
     except OSError as exc:
         raise OSError(f"cannot read the analysis file {str(p)!r}: {exc.strerror or exc}; "
                       f"check the path") from None
+    text = _decode(raw, p)
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
