@@ -55,12 +55,13 @@ def _build_parser():
     commands = parser.add_subparsers(title="commands", dest="command", metavar="COMMAND",
                                      required=True)
     # each command group in a module of its own
+    from dic.cli import calibrate as _cli_calibrate
     from dic.cli import metrology as _cli_metrology
     from dic.cli import report as _cli_report
     from dic.cli import run as _cli_run
     from dic.cli import tensile as _cli_tensile
 
-    for module in (_cli_run, _cli_tensile, _cli_report, _cli_metrology):
+    for module in (_cli_run, _cli_tensile, _cli_report, _cli_metrology, _cli_calibrate):
         module.register(commands)
     return parser
 

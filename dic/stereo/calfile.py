@@ -104,8 +104,11 @@ def save_calibration(calibration: Calibration, path):
         _table(lines, "[[view]]", {"name": name, "used": i not in why,
                                    "rms_px": cal.view_rms.get(i, float("nan")),
                                    "reason": why.get(i, "")})
+    from dic.files import atomic_write
+
     try:
-        Path(path).write_text("\n".join(lines) + "\n", encoding="utf-8")
+        with atomic_write(path, newline="\n") as fh:
+            fh.write("\n".join(lines) + "\n")
     except OSError as exc:
         raise FileProblem(f"cannot write the calibration file {path}: {exc.strerror}; "
                           "choose a writable location") from exc
