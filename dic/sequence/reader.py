@@ -297,4 +297,7 @@ def results_info(path) -> str:
             lines.append(f"strain {key}: {a.get('measure')}, window {a.get('window')}"
                          + (f", {more}" if more else "")
                          + f"; {int(r.strain_written(key).sum())} of {n} frames")
+        from dic.sequence.stereofile import info_lines
+
+        lines.extend(info_lines(r._file))
         return "\n".join(lines)

@@ -45,7 +45,7 @@ import numpy as np
 from dic.errors import FileProblem, InputError
 from dic.stereo.calibration import Calibration, CameraFit, Rejected
 
-__all__ = ["save_calibration", "load_calibration"]
+__all__ = ["save_calibration", "load_calibration", "calibration_text", "as_calibration"]
 
 _KIND = "dic camera calibration"
 _VERSION = 1
@@ -79,13 +79,16 @@ def _table(lines, header, items):
         lines.append(f"{k} = {_value(v)}")
 
 
-def save_calibration(calibration: Calibration, path):
-    """Write a calibration to a TOML file (layout in the module docstring).
+def calibration_text(calibration: Calibration) -> str:
+    """The calibration file's text (TOML, layout in the module docstring).
 
     Parameters
     ----------
     calibration : Calibration
-    path : str or Path
+
+    Returns
+    -------
+    str
     """
     cal = calibration
     lines = [f"kind = {_value(_KIND)}", f"version = {_VERSION}", f"rms_px = {_value(cal.rms)}"]
@@ -104,11 +107,23 @@ def save_calibration(calibration: Calibration, path):
         _table(lines, "[[view]]", {"name": name, "used": i not in why,
                                    "rms_px": cal.view_rms.get(i, float("nan")),
                                    "reason": why.get(i, "")})
+    return "\n".join(lines) + "\n"
+
+
+def save_calibration(calibration: Calibration, path):
+    """Write a calibration to a TOML file (layout in the module docstring).
+
+    Parameters
+    ----------
+    calibration : Calibration
+    path : str or Path
+    """
     from dic.files import atomic_write
 
+    text = calibration_text(calibration)
     try:
         with atomic_write(path, newline="\n") as fh:
-            fh.write("\n".join(lines) + "\n")
+            fh.write(text)
     except OSError as exc:
         raise FileProblem(f"cannot write the calibration file {path}: {exc.strerror}; "
                           "choose a writable location") from exc
@@ -190,3 +205,19 @@ def load_calibration(path) -> Calibration:
                   "square_mm": float(t.get("square_mm", float("nan")))}
     return Calibration(fits, R, T, float(doc.get("rms_px", float("nan"))), view_rms, rejected,
                        target, names)
+
+
+def as_calibration(calibration) -> Calibration:
+    """A :class:`Calibration` from itself or from the path of a calibration file.
+
+    Raises
+    ------
+    InputError
+        For anything else.
+    """
+    if isinstance(calibration, Calibration):
+        return calibration
+    if isinstance(calibration, (str, Path)):
+        return load_calibration(calibration)
+    raise InputError(f"calibration must be a Calibration (dic.calibrate) or the path of a "
+                     f"calibration file; got {type(calibration).__name__}")

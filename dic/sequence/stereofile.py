@@ -1,0 +1,184 @@
+"""The optional groups of a results file for calibrated cameras: ``/stereo`` and ``/lens``.
+
+A results file of two cameras is first an ordinary results file of the LEFT camera's images
+(``/frames``: 2-D displacements in px, see :mod:`dic.sequence.layout`); the surface strain is
+stored under ``/strain`` like any strain (group attribute ``kind = "surface"``). The 3-D results
+are in the group ``/stereo`` (``F`` = frames, ``(ny, nx)`` = grid)::
+
+    /stereo/X, Y, Z      (F, ny, nx) float64  positions, mm, in the left camera's frame
+    /stereo/U, V, W      (F, ny, nx) float64  displacements from the reference state, mm
+    /stereo/gap          (F, ny, nx) float32  distance between the two rays, mm
+    /stereo/right_u, right_v (F, ny, nx) float64  position in the right image minus the grid
+                                              position, px
+    /stereo/reason       (F, ny, nx) int8     dic.Reason per point (0 = measured in 3-D;
+                                              ONE_CAMERA, POOR_TRIANGULATION, or the left
+                                              image's own reason)
+    attributes: frame (the coordinate frame in words), units "mm", n_done (frames held),
+                calibration (the calibration file's text), rms_px, baseline_mm, angle_deg,
+                right_images (JSON list),
+                key (fingerprint of calibration and right images), strain_key, max_gap_px
+
+The left camera's frame: origin at its optical centre, ``X`` along image columns, ``Y`` along
+image rows, ``Z`` along the optical axis toward the scene.
+
+One camera with a calibration adds ``/lens``: displacements corrected for lens distortion::
+
+    /lens/x, /lens/y     (ny, nx) float64     grid positions an ideal pinhole camera would see, px
+    /lens/u, /lens/v     (F, ny, nx) float64  displacements between ideal positions, px
+    attributes: n_done, calibration, key
+
+Both groups are written whole, when tracking is done, on a copy of the file that then replaces
+it atomically (:func:`dic.files.atomic_write`); a file without them reads as before.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from dic.field import Reason
+from dic.files import atomic_write, sparse_copy
+from dic.sequence.h5file import open_h5
+from dic.sequence.layout import WRITE_KW, group_attrs
+
+__all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
+           "info_lines", "FRAME_WORDS"]
+
+#: the coordinate frame of /stereo, in words (also stored with the group)
+FRAME_WORDS = ("left camera: origin at its optical centre, X along image columns, Y along "
+               "image rows, Z along the optical axis toward the scene, mm")
+
+
+@dataclass
+class StereoData:
+    """The ``/stereo`` group of a results file (frames ``0 .. n_done - 1``).
+
+    Attributes
+    ----------
+    X, Y, Z, U, V, W : ndarray, shape (n, ny, nx)
+        Positions and displacements in the left camera's frame, mm (NaN where not measured).
+    gap : ndarray, shape (n, ny, nx)
+        Distance between the two rays, mm.
+    right_u, right_v : ndarray, shape (n, ny, nx)
+        Position in the right image minus the grid position, px.
+    reason : ndarray of int8, shape (n, ny, nx)
+        :class:`dic.Reason` per point.
+    attrs : dict
+        The group's attributes (``frame``, ``units``, ``calibration``, ...).
+    """
+
+    X: np.ndarray
+    Y: np.ndarray
+    Z: np.ndarray
+    U: np.ndarray
+    V: np.ndarray
+    W: np.ndarray
+    gap: np.ndarray
+    right_u: np.ndarray
+    right_v: np.ndarray
+    reason: np.ndarray
+    attrs: dict
+
+
+@dataclass
+class LensData:
+    """The ``/lens`` group: grid positions and displacements corrected for lens distortion."""
+
+    x: np.ndarray
+    y: np.ndarray
+    u: np.ndarray
+    v: np.ndarray
+    attrs: dict
+
+
+def write_group(path, name, arrays, attrs) -> None:
+    """Replace group ``name`` of a results file with ``arrays`` and ``attrs``, atomically.
+
+    Parameters
+    ----------
+    path : str or Path
+        A results file no writer has open.
+    name : {'stereo', 'lens'}
+    arrays : dict of ndarray
+    attrs : dict
+        Values: numbers, strings, or lists/dicts (stored as JSON text).
+    """
+    p = Path(path)
+    with atomic_write(p, None) as tmp:
+        sparse_copy(p, tmp)
+        with open_h5(tmp, "r+", "update", **WRITE_KW) as h:
+            if name in h:
+                del h[name]
+            g = h.create_group(name)
+            for k, a in arrays.items():
+                g.create_dataset(k, data=a)
+            for k, v in attrs.items():
+                g.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) else v
+
+
+def read_stored(path, name):
+    """Attributes of group ``name``, or None when the file has none."""
+    with open_h5(Path(path), "r", "read", locking=False) as f:
+        return group_attrs(f[name]) if name in f else None
+
+
+def _load(path, name, fields, cls):
+    p = Path(path)
+    with open_h5(p, "r", "read", locking=False) as f:
+        if name not in f:
+            from dic.errors import InputError
+
+            raise InputError(f"path: '{p}' holds no /{name} results; track with "
+                             + ("right_images and a two-camera calibration" if name == "stereo"
+                                else "a calibration"))
+        g = f[name]
+        n = int(g.attrs["n_done"])
+        data = {k: (g[k][:n] if g[k].ndim == 3 else g[k][()]) for k in fields}
+        return cls(**data, attrs=group_attrs(g))
+
+
+def load_stereo(path) -> StereoData:
+    """The 3-D results of a two-camera results file (see the module docstring).
+
+    Raises
+    ------
+    InputError
+        When the file has no ``/stereo`` group.
+    """
+    return _load(path, "stereo", ("X", "Y", "Z", "U", "V", "W", "gap", "right_u", "right_v",
+                                  "reason"), StereoData)
+
+
+def load_lens(path) -> LensData:
+    """The lens-corrected displacements of a one-camera results file with a calibration."""
+    return _load(path, "lens", ("x", "y", "u", "v"), LensData)
+
+
+def info_lines(f) -> list:
+    """Lines for ``dic info`` about the ``/stereo`` and ``/lens`` groups of an open file."""
+    lines = []
+    if "stereo" in f:
+        g = f["stereo"]
+        n = int(g.attrs["n_done"])
+        lines.append(f"two cameras: 3-D positions X, Y, Z and displacements U, V, W in mm for "
+                     f"{n} frames ({g.attrs.get('frame', '')})")
+        if n:
+            why = g["reason"][n - 1]
+            W = g["W"][n - 1]
+            ok = why == 0
+            lines.append(f"last frame 3-D: {int(ok.sum())} of {ok.size} points; W "
+                         + (f"{np.nanmin(W):.4g}..{np.nanmax(W):.4g} mm" if ok.any() else "-")
+                         + f"; seen by one camera only {int((why == Reason.ONE_CAMERA).sum())}"
+                         f", rays too far apart {int((why == Reason.POOR_TRIANGULATION).sum())}")
+        a = group_attrs(g)
+        lines.append(f"calibration: reprojection {a.get('rms_px', float('nan')):.3f} px RMS, "
+                     f"baseline {a.get('baseline_mm', float('nan')):.2f} mm, angle "
+                     f"{a.get('angle_deg', float('nan')):.2f} degrees")
+    if "lens" in f:
+        g = f["lens"]
+        lines.append(f"lens distortion: displacements corrected for {int(g.attrs['n_done'])} "
+                     "frames (/lens/u, /lens/v; stored strain uses them)")
+    return lines
