@@ -142,3 +142,46 @@ def run(args) -> int:
     print(verdict(cal))
     print(f"calibration file: {args.out}")
     return 0
+
+
+# --------------------------------------------------------------------------------------------
+# the camera options of 'dic run' (kept here so that the run command changes by two lines)
+# --------------------------------------------------------------------------------------------
+def add_camera_options(run_parser):
+    """Add ``--right-images`` and ``--calibration`` to the ``dic run`` parser."""
+    c = run_parser.add_argument_group(
+        "calibrated cameras",
+        "with a calibration file from 'dic calibrate': one camera is corrected for lens "
+        "distortion; with --right-images as well, two cameras give 3-D positions, "
+        "displacements U, V, W in mm (left camera's frame) and surface strain")
+    c.add_argument("--right-images", nargs="+", metavar="IMAGES",
+                   help="the right camera's images, one per left image taken at the same "
+                        "instant (files, a folder or a glob pattern)")
+    c.add_argument("--calibration", type=Path, metavar="TOML",
+                   help="calibration file written by 'dic calibrate'")
+
+
+def camera_settings(args, conf) -> dict:
+    """``right_images`` and ``calibration`` for :func:`dic.track` from the options and the
+    analysis file's ``[stereo]`` table (options win)."""
+    table = conf.get("stereo", {})
+    right = args.right_images if args.right_images is not None else table.get("right_images")
+    cal = args.calibration if args.calibration is not None else table.get("calibration")
+    if right is not None and cal is None:
+        raise ValueError("--right-images: two cameras need --calibration cameras.toml (from "
+                         "'dic calibrate ... --right-images ...')")
+    out = {}
+    if right is not None:
+        out["right_images"] = [right] if isinstance(right, str) else list(right)
+    if cal is not None:
+        out["calibration"] = Path(cal)
+    return out
+
+
+def camera_summary(results_path) -> list:
+    """Lines about the 3-D or lens-corrected results of a results file (none without them)."""
+    from dic.sequence.h5file import open_h5
+    from dic.sequence.stereofile import info_lines
+
+    with open_h5(Path(results_path), "r", "read", locking=False) as f:
+        return info_lines(f)
