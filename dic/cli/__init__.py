@@ -11,8 +11,10 @@ Commands
     Running the same command again resumes after the last completed frame.
 ``dic info RESULTS``
     Summarise a results file (or the ``results.h5`` of an output folder).
-``dic tensile``, ``dic report``, ``dic export``, ``dic pattern``, ``dic noise``, ``dic advise``
-    Defined in ``dic.cli.tensile``, ``dic.cli.report`` and ``dic.cli.metrology``.
+``dic tensile``, ``dic report``, ``dic export``, ``dic pattern``, ``dic noise``, ``dic advise``,
+``dic calibrate``
+    Defined in ``dic.cli.tensile``, ``dic.cli.report``, ``dic.cli.metrology`` and
+    ``dic.cli.calibrate``.
 
 With ``--config`` and an output folder, ``dic run`` goes on, once every frame is done, to what
 the analysis file's ``[tensile]`` and ``[report]`` tables ask for (:func:`dic.workflow.run.finish`).
