@@ -9,7 +9,9 @@ decoder.
 
 from __future__ import annotations
 
+import base64
 import importlib.util
+import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import numpy as np
@@ -52,10 +54,15 @@ def test_shipped_sample_is_what_the_generator_makes(gen, tmp_path):
     assert total < 10e6
 
 
-def test_sample_runs_from_one_command(gen, tmp_path, capsys):
-    out = tmp_path / "stereo_results"
-    code = main(["run", "--config", str(SAMPLE / "analysis.toml"), "--out", str(out), "-q"])
-    assert code == 0
+@pytest.fixture(scope="module")
+def sample_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("sample") / "stereo_results"
+    assert main(["run", "--config", str(SAMPLE / "analysis.toml"), "--out", str(out), "-q"]) == 0
+    return out
+
+
+def test_sample_runs_from_one_command(gen, sample_run, capsys):
+    out = sample_run
     code = main(["info", str(out)])
     text = capsys.readouterr().out
     assert code == 0 and "two cameras: 3-D positions" in text
@@ -84,6 +91,61 @@ def test_sample_runs_from_one_command(gen, tmp_path, capsys):
                 false = np.nanmean(two_d.xx) - exx
                 # one camera reads about dZ/Z more (from memory; within a factor 2)
                 assert dz / 300 / 2 < false < 2 * dz / 300
+
+
+def _read_array(el):
+    """A VTK XML DataArray, format="binary": base64 of a UInt32 byte count, then the raw
+    little-endian values (Kitware, VTK File Formats, "XML File Formats")."""
+    raw = base64.b64decode("".join(el.text.split()))
+    assert int(np.frombuffer(raw[:4], "<u4")[0]) == len(raw) - 4
+    dtype = {"Float64": "<f8", "Int8": "i1", "UInt8": "u1"}[el.get("type")]
+    values = np.frombuffer(raw[4:], dtype)
+    n = int(el.get("NumberOfComponents", "1"))
+    return values.reshape(-1, n) if n > 1 else values
+
+
+def test_sample_maps_and_vtk_surface(sample_run, tmp_path, capsys):
+    out = sample_run
+    for name in ("surface_W.png", "surface_shape.png"):
+        img = cv2.imread(str(out / name))
+        assert img is not None and img.shape[0] > 300          # a real picture was drawn
+    assert main(["export", str(out), "--format", "vtk", "--out", str(tmp_path / "vtk")]) == 0
+    capsys.readouterr()
+    st = load_stereo(out / "results.h5")
+    with dic.load_results(out / "results.h5") as r:
+        key = r.strain_keys()[0]
+        stored = r.stored_strain(3, key)
+    root = ET.parse(tmp_path / "vtk" / "results_0003.vts").getroot()
+    arrays = {el.get("Name"): _read_array(el) for el in root.iter("DataArray")}
+    pts = _read_array(root.find(".//Points/DataArray"))
+    # a surface: the reference positions in mm, left camera's frame, about 300 mm away
+    ok = (st.reason[0] == 0).ravel()
+    np.testing.assert_allclose(pts[ok], np.stack([st.X[0], st.Y[0], st.Z[0]], -1)
+                               .reshape(-1, 3)[ok])
+    assert np.all(np.isfinite(pts)) and 290 < np.median(pts[:, 2]) < 310
+    disp = arrays["displacement_mm"]
+    good = (st.reason[3] == 0).ravel()
+    np.testing.assert_allclose(disp[good, 2], st.W[3].ravel()[good])
+    np.testing.assert_allclose(arrays["W_mm"][good], st.W[3].ravel()[good])
+    # the strain is the stored surface strain (same window and measure)
+    both = np.isfinite(arrays["strain_xx"]) & np.isfinite(stored["xx"].ravel())
+    assert both.mean() > 0.6
+    np.testing.assert_allclose(arrays["strain_xx"][both], stored["xx"].ravel()[both],
+                               atol=1e-12)
+    assert {"shape_mm", "ray_gap_mm", "u_px", "v_px", "reason"} <= set(arrays)
+
+
+def test_sample_report_has_a_calibration_section(sample_run, tmp_path, capsys):
+    assert main(["report", str(sample_run), "--out", str(tmp_path / "rep")]) == 0
+    capsys.readouterr()
+    html = next((tmp_path / "rep").glob("*.html")).read_text(encoding="utf-8")
+    cal = dic.stereo.load_calibration(SAMPLE / "cameras.toml")
+    assert "Cameras and calibration" in html
+    # the numbers of the calibration file the run used (stored in the results file)
+    assert f"{cal.baseline:.2f} mm" in html and f"{cal.angle_deg:.2f} degrees" in html
+    assert f"{cal.rms:.3f} px RMS" in html
+    assert "left_00.png + right_00.png" in html
+    assert "Out-of-plane displacement W" in html
 
 
 def test_run_with_calibration_bad_input(tmp_path, capsys):

@@ -185,3 +185,24 @@ def camera_summary(results_path) -> list:
 
     with open_h5(Path(results_path), "r", "read", locking=False) as f:
         return info_lines(f)
+
+
+def write_camera_maps(results_path, folder, reference_path) -> list:
+    """Two cameras: ``surface_W.png`` (last frame) and ``surface_shape.png`` into the output
+    folder; nothing for other results files. Returns the files written."""
+    from dic.figures import save_figure
+    from dic.figures.surface import surface_map
+    from dic.files import atomic_write
+    from dic.images.io import read_image
+    from dic.sequence.stereofile import has_stereo
+
+    if not has_stereo(results_path):
+        return []
+    image = read_image(reference_path, name="reference image")
+    written = []
+    for quantity, name in (("W", "surface_W.png"), ("shape", "surface_shape.png")):
+        fig, _ = surface_map(results_path, -1, quantity, image=image)
+        with atomic_write(Path(folder) / name, None) as tmp:   # never half a file
+            save_figure(fig, tmp)
+        written.append(Path(folder) / name)
+    return written

@@ -15,7 +15,8 @@ import sys
 import time
 from pathlib import Path
 
-from dic.cli.calibrate import add_camera_options, camera_settings, camera_summary
+from dic.cli.calibrate import (add_camera_options, camera_settings, camera_summary,
+                               write_camera_maps)
 from dic.cli.types import numbers, positive_float, positive_int, rectangle
 
 __all__ = ["register", "RESULTS_NAME"]
@@ -493,6 +494,7 @@ def _run(args, out=None):
             written = _export(results, folder, paths[kw.get("reference", 0)],
                               redo=before is None, bar=bar,
                               verbose=args.verbose and show, out=out)
+            written += len(write_camera_maps(h5, folder, paths[kw.get("reference", 0)]))
         elif args.verbose and show:
             for k in range(n):
                 _write_line(f"frame {k} ({Path(results.image_names[k]).name}): "

@@ -45,7 +45,7 @@ from dic.sequence.h5file import open_h5
 from dic.sequence.layout import WRITE_KW, group_attrs
 
 __all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
-           "info_lines", "FRAME_WORDS"]
+           "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo"]
 
 #: the coordinate frame of /stereo, in words (also stored with the group)
 FRAME_WORDS = ("left camera: origin at its optical centre, X along image columns, Y along "
@@ -81,6 +81,62 @@ class StereoData:
     right_v: np.ndarray
     reason: np.ndarray
     attrs: dict
+
+    def shape_mm(self) -> np.ndarray:
+        """Distance (mm) of the reference positions from their best-fit plane, + toward the
+        camera (:func:`shape_deviation`)."""
+        return shape_deviation(self.X[0], self.Y[0], self.Z[0])
+
+
+def shape_deviation(X, Y, Z):
+    """Signed distance (mm) of 3-D points from their least-squares plane, + toward the camera.
+
+    Parameters
+    ----------
+    X, Y, Z : ndarray
+        Positions in the left camera's frame (NaN where not measured).
+
+    Returns
+    -------
+    ndarray
+        Same shape as ``X``; NaN where not measured.
+    """
+    P = np.stack([X, Y, Z], -1)
+    ok = np.all(np.isfinite(P), -1)
+    out = np.full(X.shape, np.nan)
+    if ok.sum() < 3:
+        return out
+    c = P[ok].mean(0)
+    n = np.linalg.svd(P[ok] - c, full_matrices=False)[2][2]
+    n = n if n[2] < 0 else -n                  # toward the camera (at the origin, Z > 0)
+    out[ok] = (P[ok] - c) @ n
+    return out
+
+
+def vtk_points(data) -> np.ndarray:
+    """Reference 3-D positions as an (ny * nx, 3) array with no hole, for a surface mesh.
+
+    Unmeasured points get ``X, Y, Z`` of a quadratic least-squares fit, over the grid indices,
+    of the measured ones (their data stay NaN).
+    """
+    P = np.stack([data.X[0], data.Y[0], data.Z[0]], -1)
+    ny, nx, _ = P.shape
+    ok = np.all(np.isfinite(P), -1)
+    if ok.all() or ok.sum() < 6:
+        return np.nan_to_num(P).reshape(-1, 3)
+    j, i = np.meshgrid(np.arange(nx, dtype=float), np.arange(ny, dtype=float))
+    A = np.column_stack([np.ones(ok.size), j.ravel(), i.ravel(), j.ravel() ** 2,
+                         (i * j).ravel(), i.ravel() ** 2])
+    coef = np.linalg.lstsq(A[ok.ravel()], P[ok], rcond=None)[0]
+    out = P.reshape(-1, 3).copy()
+    out[~ok.ravel()] = A[~ok.ravel()] @ coef
+    return out
+
+
+def has_stereo(path) -> bool:
+    """True when the results file holds a ``/stereo`` group."""
+    with open_h5(Path(path), "r", "read", locking=False) as f:
+        return "stereo" in f
 
 
 @dataclass

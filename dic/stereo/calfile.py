@@ -45,7 +45,8 @@ import numpy as np
 from dic.errors import FileProblem, InputError
 from dic.stereo.calibration import Calibration, CameraFit, Rejected
 
-__all__ = ["save_calibration", "load_calibration", "calibration_text", "as_calibration"]
+__all__ = ["save_calibration", "load_calibration", "calibration_text", "calibration_from_text",
+           "as_calibration"]
 
 _KIND = "dic camera calibration"
 _VERSION = 1
@@ -161,12 +162,25 @@ def load_calibration(path) -> Calibration:
     InputError
         When it is not a calibration file of this layout.
     """
-    import tomllib
 
     try:
         text = Path(path).read_text(encoding="utf-8")
     except OSError as exc:
         raise FileProblem(f"cannot read the calibration file {path}: {exc.strerror}") from exc
+    return calibration_from_text(text, path)
+
+
+def calibration_from_text(text, path="(text)") -> Calibration:
+    """A :class:`Calibration` from the text of a calibration file (e.g. as stored in a
+    results file); ``path`` names it in error messages.
+
+    Raises
+    ------
+    InputError
+        When it is not a calibration of this layout.
+    """
+    import tomllib
+
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
