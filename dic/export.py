@@ -579,7 +579,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
     A two-camera results file is written as a SURFACE: points are the reference 3-D positions
     (mm, left camera's frame; unmeasured points filled from a quadratic fit of the others, so
     the grid stays whole), ``displacement_mm`` is ``U, V, W``, the strain is the surface strain
-    (:func:`dic.sequence.stereo.surface_strain_field`), ``reason`` the 3-D reason, and
+    (:func:`dic.sequence.stereofile.surface_strain_field`), ``reason`` the 3-D reason, and
     ``W_mm``, ``shape_mm`` (distance from the best-fit plane), ``ray_gap_mm`` and the left
     image's ``u_px``, ``v_px`` are added.
 
@@ -612,8 +612,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
         entries = []
         for k in order:
             f = res.field(k)
-            s = (res.strain(k, window=window, measure=measure) if surface is None else
-                 surface["strain"](res, k, window=window, measure=measure))
+            s = res.strain(k, window=window, measure=measure)   # surface strain for 2 cameras
             disp = np.zeros((ny * nx, 3))
             disp[:, 0] = np.asarray(f.u, dtype=np.float64).ravel() * factor
             disp[:, 1] = np.asarray(f.v, dtype=np.float64).ravel() * factor
@@ -660,14 +659,13 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
 
 def _surface(res):
     """Two-camera results as VTK pieces (None for a 2-D results file)."""
-    from dic.sequence.stereo import surface_strain_field
     from dic.sequence.stereofile import has_stereo, load_stereo, vtk_points
 
     if not has_stereo(res.path):
         return None
     st = load_stereo(res.path)
     gap = st.gap.astype(np.float64)
-    return {"points": vtk_points(st), "strain": surface_strain_field,
+    return {"points": vtk_points(st),
             "displacement": lambda k: np.stack([st.U[k], st.V[k], st.W[k]], -1).reshape(-1, 3),
             "reason": lambda k: st.reason[k],
             "extra": lambda k: {"W_mm": st.W[k], "shape_mm": st.shape_mm(),

@@ -73,7 +73,7 @@ def test_sample_runs_from_one_command(gen, sample_run, capsys):
             s = r.stored_strain(k, key)
             exx, eyy = 0.5 * ((1 + e) ** 2 - 1), 0.5 * ((1 - gen.POISSON * e) ** 2 - 1)
             err = np.sqrt(np.nanmean((s["xx"] - exx) ** 2 + (s["yy"] - eyy) ** 2) / 2)
-            two_d = r.strain(k, window=9) if k else None
+            two_d = dic.strain_field(r.field(k), window=9) if k else None
             ok = st.reason[k] == 0
             w = np.nanmedian(st.W[k][ok])
             print(f"frame {k}: surface strain error {err * 1e6:.0f} µε RMS; median W "

@@ -105,7 +105,7 @@ def test_stereo_surface_strain_stored(stereo_run):
                             s["xy"][ok] - Et[0, 1]])
             rms = np.sqrt(np.mean(err ** 2))
             # the 2-D analysis of the same left images, for comparison (false strain ~ dZ/Z)
-            two_d = r.strain(j, window=5)
+            two_d = dic.strain_field(r.field(j), window=5)   # the left camera alone
             false_xx = np.nanmean(two_d.xx) - Et[0, 0]
             print(f"frame {j}: surface strain error {rms * 1e6:.0f} µε RMS; 2-D analysis of the "
                   f"left images: xx off by {false_xx * 1e6:.0f} µε")
@@ -174,3 +174,24 @@ def test_one_camera_lens_correction(tmp_path):
     # a rigid slide of a plate facing an ideal pinhole moves every point alike (common practice)
     assert np.nanstd(lens.u[2]) < 0.02 and np.nanstd(lens.v[2]) < 0.02
     assert "lens distortion: displacements corrected" in results_info(tmp_path / "lens.h5")
+
+
+def test_results_strain_is_the_surface_strain(stereo_run):
+    # every output that asks the results file for strain gets the surface strain of the two
+    # cameras, the same numbers as stored (same window and measure), in any measure
+    with dic.load_results(stereo_run["out"]) as r:
+        key = r.strain_keys()[0]
+        s = r.strain(2, window=5)
+        stored = r.stored_strain(2, key)
+        ok = np.isfinite(stored["xx"])
+        np.testing.assert_allclose(s.xx[ok], stored["xx"][ok], atol=1e-12)
+        np.testing.assert_allclose(s.xy[ok], stored["xy"][ok], atol=1e-12)
+        Et = true_strain(R1, F_PLATE)
+        # Hencky strain of the same F: 0.5 ln(C) (from memory), against the plate's known F
+        C = 2 * Et + np.eye(2)
+        w, v = np.linalg.eigh(C)
+        H = v @ np.diag(0.5 * np.log(w)) @ v.T
+        h = s.as_measure("hencky")
+        assert abs(np.nanmedian(h.xx) - H[0, 0]) < 50e-6
+        with pytest.raises(InputError, match="frame"):
+            dic.sequence.stereofile.surface_strain_field(r, 7)

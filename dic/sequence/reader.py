@@ -208,7 +208,8 @@ class Results:
         return g[key]
 
     def strain(self, k, *, window=9, measure="green-lagrange", fit="plane"):
-        """Strain field of frame ``k``, computed from its displacement field.
+        """Strain field of frame ``k``, computed from its displacement field (two cameras:
+        the surface strain from the 3-D positions, :mod:`dic.sequence.stereofile`).
 
         Parameters
         ----------
@@ -223,6 +224,11 @@ class Results:
         """
         from dic.strain import strain_field
 
+        if "stereo" in self._file:   # two cameras: surface strain from the 3-D positions
+            from dic.sequence.stereofile import surface_strain_field
+
+            return surface_strain_field(self, self._frame_index(k), window=window,
+                                        measure=measure, fit=fit)
         return strain_field(self.field(k), window=window, measure=measure, fit=fit)
 
     def stored_strain(self, k, key) -> dict[str, np.ndarray]:

@@ -43,7 +43,7 @@ import numpy as np
 from dic.errors import InputError
 from dic.field import Reason
 
-__all__ = ["track_calibrated", "surface_strain_field", "STEREO_STRAIN", "LENS_STRAIN"]
+__all__ = ["track_calibrated", "STEREO_STRAIN", "LENS_STRAIN"]
 
 log = logging.getLogger("dic.sequence")
 
@@ -293,60 +293,3 @@ def _stereo(results, cal, left_items, right_items, strain, max_gap_px):
              "strain_key": f"{measure}_w{window}"}
     return out, attrs, comps, window, measure
 
-
-def surface_strain_field(results, k, *, window=None, measure=None):
-    """The surface strain of frame ``k`` of a two-camera results file as a StrainField.
-
-    The deformation gradient in the tangent plane (:func:`dic.stereo.surface_gradient`) of the
-    stored 3-D positions, so every measure and derived quantity of :mod:`dic.strain` follows.
-
-    Parameters
-    ----------
-    results : str, os.PathLike or Results
-        A results file with a ``/stereo`` group.
-    k : int
-        Completed frame (negative counts from the end).
-    window, measure : optional
-        Default: those of the stored surface strain.
-
-    Returns
-    -------
-    dic.strain.StrainField
-        ``x, y`` are the left reference grid in px; ``step`` and ``vsg`` in px of that grid.
-    """
-    from dic.sequence.reader import Results
-    from dic.sequence.stereofile import load_stereo
-    from dic.stereo.surface import surface_gradient
-    from dic.strain import StrainField, canonical_measure, strain_tensor
-
-    res = results if isinstance(results, Results) else Results.open(results)
-    try:
-        st = load_stereo(res.path)
-        stored = str(st.attrs.get("strain_key", ""))
-        m0, _, w0 = stored.rpartition("_w")
-        window = int(w0) if window is None and w0.isdigit() else int(window or 5)
-        measure = canonical_measure(measure or m0 or "green-lagrange")
-        n = st.X.shape[0]
-        if not isinstance(k, (int, np.integer)) or not -n <= k < n:
-            raise InputError(f"k: frame {k!r} is not stored; use 0 to {n - 1}")
-        k = int(k) % n
-        P0 = np.stack([st.X[0], st.Y[0], st.Z[0]], -1)
-        P = np.stack([st.X[k], st.Y[k], st.Z[k]], -1)
-        F, _ = surface_gradient(P0, P, window=window)
-        valid = np.all(np.isfinite(F), axis=(-2, -1))
-        T = np.full(F.shape, np.nan)
-        T[valid] = strain_tensor(F[valid], measure)
-        step = float(res.settings.get("step", np.nan))
-        subset = int(res.settings.get("subset", 0))
-        from scipy.ndimage import correlate
-
-        both = (np.all(np.isfinite(P0), -1) & np.all(np.isfinite(P), -1)).astype(np.int64)
-        n_used = np.where(valid, correlate(both, np.ones((window, window), np.int64),
-                                           mode="constant"), 0)
-        return StrainField(xx=T[..., 0, 0], yy=T[..., 1, 1], xy=T[..., 0, 1], F=F, valid=valid,
-                           x=res.grid_x, y=res.grid_y, measure=measure, window=window,
-                           fit="plane", vsg=(window - 1) * step + subset, step=step,
-                           subset=subset, min_points=(window * window + 1) // 2, n_used=n_used)
-    finally:
-        if res is not results:
-            res.close()

@@ -45,7 +45,8 @@ from dic.sequence.h5file import open_h5
 from dic.sequence.layout import WRITE_KW, group_attrs
 
 __all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
-           "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo"]
+           "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo",
+           "surface_strain_field"]
 
 #: the coordinate frame of /stereo, in words (also stored with the group)
 FRAME_WORDS = ("left camera: origin at its optical centre, X along image columns, Y along "
@@ -238,3 +239,62 @@ def info_lines(f) -> list:
         lines.append(f"lens distortion: displacements corrected for {int(g.attrs['n_done'])} "
                      "frames (/lens/u, /lens/v; stored strain uses them)")
     return lines
+
+
+def surface_strain_field(res, k, *, window=None, measure=None, fit="plane"):
+    """The surface strain of frame ``k`` of a two-camera results file as a StrainField.
+
+    The deformation gradient in the tangent plane (:func:`dic.stereo.surface_gradient`) of the
+    stored 3-D positions, so every measure and derived quantity of :mod:`dic.strain` follows.
+
+    Parameters
+    ----------
+    res : dic.sequence.Results
+        An open results file with a ``/stereo`` group.
+    k : int
+        Completed frame (negative counts from the end).
+    window, measure : optional
+        Default: those of the stored surface strain.
+    fit : {'plane', 'quadratic'}, optional
+        As for :func:`dic.stereo.surface_gradient`.
+
+    Returns
+    -------
+    dic.strain.StrainField
+        ``x, y`` are the left reference grid in px; ``step`` and ``vsg`` in px of that grid.
+    """
+    from scipy.ndimage import correlate
+
+    from dic.errors import InputError
+    from dic.stereo.surface import surface_gradient
+    from dic.strain import StrainField, canonical_measure, strain_tensor
+
+    with open_h5(Path(res.path), "r", "read", locking=False) as f:
+        if "stereo" not in f:
+            raise InputError(f"res: '{res.path}' holds no /stereo results; track with "
+                             "right_images and a two-camera calibration")
+        g = f["stereo"]
+        n = int(g.attrs["n_done"])
+        if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not -n <= k < n:
+            raise InputError(f"k: frame {k!r} is not stored; use 0 to {n - 1}")
+        k = int(k) % n
+        P0 = np.stack([g[c][0] for c in "XYZ"], -1)
+        P = np.stack([g[c][k] for c in "XYZ"], -1)
+        stored = str(group_attrs(g).get("strain_key", ""))
+    m0, _, w0 = stored.rpartition("_w")
+    if window is None:
+        window = int(w0) if w0.isdigit() else 5
+    measure = canonical_measure(measure or m0 or "green-lagrange")
+    F, _ = surface_gradient(P0, P, window=int(window), fit=fit)
+    valid = np.all(np.isfinite(F), axis=(-2, -1))
+    T = np.full(F.shape, np.nan)
+    T[valid] = strain_tensor(F[valid], measure)
+    step = float(res.settings.get("step", np.nan))
+    subset = int(res.settings.get("subset", 0))
+    both = (np.all(np.isfinite(P0), -1) & np.all(np.isfinite(P), -1)).astype(np.int64)
+    n_used = np.where(valid, correlate(both, np.ones((window, window), np.int64),
+                                       mode="constant"), 0)
+    return StrainField(xx=T[..., 0, 0], yy=T[..., 1, 1], xy=T[..., 0, 1], F=F, valid=valid,
+                       x=res.grid_x, y=res.grid_y, measure=measure, window=int(window), fit=fit,
+                       vsg=(window - 1) * step + subset, step=step, subset=subset,
+                       min_points=(window * window + 1) // 2, n_used=n_used)
