@@ -209,7 +209,8 @@ class Results:
 
     def strain(self, k, *, window=9, measure="green-lagrange", fit="plane"):
         """Strain field of frame ``k``, computed from its displacement field (two cameras:
-        the surface strain from the 3-D positions, :mod:`dic.sequence.stereofile`).
+        the surface strain from the 3-D positions; one camera with a calibration: from the
+        lens-corrected displacements; :mod:`dic.sequence.stereofile`).
 
         Parameters
         ----------
@@ -229,6 +230,11 @@ class Results:
 
             return surface_strain_field(self, self._frame_index(k), window=window,
                                         measure=measure, fit=fit)
+        if "lens" in self._file:     # one camera with a calibration: lens-corrected
+            from dic.sequence.stereofile import lens_strain_field
+
+            return lens_strain_field(self, self._frame_index(k), window=window,
+                                     measure=measure, fit=fit)
         return strain_field(self.field(k), window=window, measure=measure, fit=fit)
 
     def stored_strain(self, k, key) -> dict[str, np.ndarray]:

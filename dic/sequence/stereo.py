@@ -33,7 +33,6 @@ References
 
 from __future__ import annotations
 
-import dataclasses
 import hashlib
 import json
 import logging
@@ -173,8 +172,8 @@ def track_calibrated(track_2d, images, out, *, right_images=None, calibration=No
 
 def _lens(results, cal, strain):
     """/lens arrays and the lens-corrected strain of every completed frame."""
+    from dic.sequence.stereofile import corrected_strain
     from dic.stereo.undistort import undistort_displacements, undistort_points
-    from dic.strain import displacement_gradient, strain_tensor
 
     window, measure = _strain_spec(strain, LENS_STRAIN)
     fit = cal.cameras[0]
@@ -185,24 +184,11 @@ def _lens(results, cal, strain):
     U = np.full((n, ny, nx), np.nan)
     V = np.full((n, ny, nx), np.nan)
     comps = {c: np.full((n, ny, nx), np.nan) for c in ("xx", "yy", "xy")}
-    eye = np.eye(2)
     for j in range(n):
         f = results.field(j)
-        _, _, uu, vu = undistort_displacements(X, Y, f.u, f.v, fit)
-        U[j], V[j] = uu, vu
-        # gradient of the undistortion itself over the SAME points as the deformed positions'
-        # (a window fitted over other points would carry another bias of the curved map)
-        meas = np.isfinite(uu) & np.isfinite(vu)
-        ref_map = eye + displacement_gradient(dataclasses.replace(
-            f, u=np.where(meas, xu - X, np.nan), v=np.where(meas, yu - Y, np.nan)),
-            window=window).grad
-        g = displacement_gradient(dataclasses.replace(f, u=xu + uu - X, v=yu + vu - Y),
-                                  window=window)
-        ok = g.valid & np.all(np.isfinite(ref_map), axis=(-2, -1))
-        F = (eye + g.grad[ok]) @ np.linalg.inv(ref_map[ok])
-        E = strain_tensor(F, measure)
-        comps["xx"][j][ok], comps["yy"][j][ok], comps["xy"][j][ok] = (
-            E[:, 0, 0], E[:, 1, 1], E[:, 0, 1])
+        _, _, U[j], V[j] = undistort_displacements(X, Y, f.u, f.v, fit)
+        s = corrected_strain(f, xu, yu, U[j], V[j], window=window, measure=measure)
+        comps["xx"][j], comps["yy"][j], comps["xy"][j] = s.xx, s.yy, s.xy
     attrs = {"strain_kind": "lens-corrected", "units": "px (ideal pinhole camera)"}
     return {"x": xu, "y": yu, "u": U, "v": V}, attrs, comps, window, measure
 

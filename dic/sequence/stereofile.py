@@ -46,7 +46,7 @@ from dic.sequence.layout import WRITE_KW, group_attrs
 
 __all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
            "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo",
-           "surface_strain_field"]
+           "surface_strain_field", "corrected_strain", "lens_strain_field"]
 
 #: the coordinate frame of /stereo, in words (also stored with the group)
 FRAME_WORDS = ("left camera: origin at its optical centre, X along image columns, Y along "
@@ -298,3 +298,68 @@ def surface_strain_field(res, k, *, window=None, measure=None, fit="plane"):
                        x=res.grid_x, y=res.grid_y, measure=measure, window=int(window), fit=fit,
                        vsg=(window - 1) * step + subset, step=step, subset=subset,
                        min_points=(window * window + 1) // 2, n_used=n_used)
+
+
+def corrected_strain(field, xu, yu, uu, vu, *, window=9, measure="green-lagrange", fit="plane"):
+    """Strain of a displacement field corrected for lens distortion, as a StrainField.
+
+    ``F = (I + grad_def) (I + grad_ref)^-1``: the gradient of the ideal-pinhole deformed
+    positions ``xu + uu`` and of the ideal reference positions ``xu`` with respect to the
+    measuring grid (pointwise least squares of :mod:`dic.strain`, over the same measured
+    points so that the bias of a plane fitted to the curved lens map cancels; chain rule).
+
+    Parameters
+    ----------
+    field : DisplacementField
+        As measured (its grid, reasons and settings are used).
+    xu, yu : ndarray
+        Ideal-pinhole reference positions of the grid points, px.
+    uu, vu : ndarray
+        Displacements between ideal-pinhole positions, px.
+    window, measure, fit
+        As for :func:`dic.strain_field`.
+
+    Returns
+    -------
+    dic.strain.StrainField
+    """
+    import dataclasses
+
+    from dic.strain import canonical_measure, displacement_gradient, strain_field, strain_tensor
+
+    X, Y = np.asarray(field.x, float), np.asarray(field.y, float)
+    meas = np.isfinite(uu) & np.isfinite(vu)
+    ref = displacement_gradient(dataclasses.replace(
+        field, u=np.where(meas, xu - X, np.nan), v=np.where(meas, yu - Y, np.nan)),
+        window=window, fit=fit)
+    moved = dataclasses.replace(field, u=xu + uu - X, v=yu + vu - Y)
+    base = strain_field(moved, window=window, measure=measure, fit=fit)
+    ok = base.valid & ref.valid
+    F = np.full(base.F.shape, np.nan)
+    F[ok] = base.F[ok] @ np.linalg.inv(np.eye(2) + ref.grad[ok])
+    T = np.full(F.shape, np.nan)
+    T[ok] = strain_tensor(F[ok], canonical_measure(measure))
+    return dataclasses.replace(base, xx=T[..., 0, 0], yy=T[..., 1, 1], xy=T[..., 0, 1], F=F,
+                               valid=ok, n_used=np.where(ok, base.n_used, 0))
+
+
+def lens_strain_field(res, k, *, window=9, measure="green-lagrange", fit="plane"):
+    """The lens-corrected strain of frame ``k`` of a one-camera results file with ``/lens``.
+
+    Parameters
+    ----------
+    res : dic.sequence.Results
+    k : int
+        Completed frame (non-negative).
+    window, measure, fit
+        As for :func:`dic.strain_field`.
+
+    Returns
+    -------
+    dic.strain.StrainField
+    """
+    with open_h5(Path(res.path), "r", "read", locking=False) as f:
+        g = f["lens"]
+        xu, yu, uu, vu = g["x"][()], g["y"][()], g["u"][k], g["v"][k]
+    return corrected_strain(res.field(k), xu, yu, uu, vu, window=window, measure=measure,
+                            fit=fit)
