@@ -90,7 +90,7 @@ def _write_png(path, img):
         raise OSError(f"cannot write {path}")
 
 
-ANALYSIS = """# Two-camera demo (scripts/make_stereo_sample.py): run from the repository's folder with
+ANALYSIS = """# Two-camera demo (scripts/make_stereo_sample.py): run from the repository with
 #   dic run --config sample_images/stereo/analysis.toml --out stereo_results
 images = "left/*.png"
 
