@@ -198,3 +198,30 @@ def test_results_strain_is_the_surface_strain(stereo_run):
         assert abs(np.nanmedian(h.xx) - H[0, 0]) < 50e-6
         with pytest.raises(InputError, match="frame"):
             dic.sequence.stereofile.surface_strain_field(r, 7)
+
+
+def test_gauge_line_reads_the_3d_distance(stereo_run):
+    # a 150 px gauge line along image rows' direction across the plate: its reading is the
+    # change of the 3-D distance between its two material points, against the plate's known
+    # motion (positions from dic.stereo.render, exact), unlike the 2-D reading of the left
+    # camera alone, which adds about dZ/Z (pinhole magnification f/Z; from memory)
+    from dic.tensile.gauges import GaugeLine, gauge_histories
+
+    left, _ = rig()
+    a, b = (125.0, 150.0), (275.0, 150.0)
+    o, d = left.rays(np.array([a[0], b[0]]), np.array([a[1], b[1]]))
+    s1, s2, _ = STATES[0].intersect(o, d)
+    gauge = GaugeLine(a, b, units="px", name="axial")
+    with dic.load_results(stereo_run["out"]) as r:
+        h = gauge_histories(r, gauge)
+        flat = gauge_histories([r.field(k) for k in range(len(r))], gauge)
+    for k in (1, 2):
+        T0, T1 = STATES[0].position(s1, s2), STATES[k].position(s1, s2)
+        true = np.linalg.norm(T1[1] - T1[0]) / np.linalg.norm(T0[1] - T0[0]) - 1
+        got = h["axial.engineering"][k]
+        print(f"frame {k}: gauge {got * 1e6:.0f} µε, true {true * 1e6:.0f} µε, left camera "
+              f"alone {flat['axial.engineering'][k] * 1e6:.0f} µε")
+        assert abs(got - true) < 100e-6
+        assert flat["axial.engineering"][k] - true > 20 * abs(got - true)
+    assert h.units["axial.length"] == "mm"
+    assert abs(h["axial.length"][0] - np.linalg.norm(T0[1] - T0[0])) < 0.05

@@ -46,7 +46,7 @@ from dic.sequence.layout import WRITE_KW, group_attrs
 
 __all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
            "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo",
-           "surface_strain_field", "corrected_strain", "lens_strain_field"]
+           "surface_strain_field", "corrected_strain", "lens_strain_field", "positions_at"]
 
 #: the coordinate frame of /stereo, in words (also stored with the group)
 FRAME_WORDS = ("left camera: origin at its optical centre, X along image columns, Y along "
@@ -363,3 +363,41 @@ def lens_strain_field(res, k, *, window=9, measure="green-lagrange", fit="plane"
         xu, yu, uu, vu = g["x"][()], g["y"][()], g["u"][k], g["v"][k]
     return corrected_strain(res.field(k), xu, yu, uu, vu, window=window, measure=measure,
                             fit=fit)
+
+
+def positions_at(res, k, x, y):
+    """3-D positions (mm, left camera's frame) in frame ``k`` of the material points seen at
+    left reference pixels ``(x, y)``: bilinear interpolation of the stored grid positions.
+
+    Parameters
+    ----------
+    res : dic.sequence.Results
+        With a ``/stereo`` group.
+    k : int
+        Completed frame (non-negative).
+    x, y : array_like
+        Reference positions, px (same shape).
+
+    Returns
+    -------
+    ndarray, shape (..., 3)
+        NaN outside the grid or where a grid point with non-zero weight has no position.
+    """
+    with open_h5(Path(res.path), "r", "read", locking=False) as f:
+        P = np.stack([f["stereo"][c][k] for c in "XYZ"], -1)
+    gx, gy = res.grid_x, res.grid_y
+    ny, nx = gx.shape
+    x = np.asarray(x, float)
+    y = np.asarray(y, float)
+    fj = (x - gx[0, 0]) / ((gx[0, -1] - gx[0, 0]) / (nx - 1))
+    fi = (y - gy[0, 0]) / ((gy[-1, 0] - gy[0, 0]) / (ny - 1))
+    inside = (fj >= -1e-9) & (fj <= nx - 1 + 1e-9) & (fi >= -1e-9) & (fi <= ny - 1 + 1e-9)
+    fj = np.clip(np.where(inside, fj, 0.0), 0, nx - 1)
+    fi = np.clip(np.where(inside, fi, 0.0), 0, ny - 1)
+    j0 = np.minimum(np.floor(fj).astype(np.intp), nx - 2)
+    i0 = np.minimum(np.floor(fi).astype(np.intp), ny - 2)
+    t, s = (fj - j0)[..., None], (fi - i0)[..., None]
+    out = ((1 - t) * (1 - s) * P[i0, j0] + t * (1 - s) * P[i0, j0 + 1]
+           + (1 - t) * s * P[i0 + 1, j0] + t * s * P[i0 + 1, j0 + 1])
+    out[~inside] = np.nan
+    return out
