@@ -46,7 +46,8 @@ from dic.sequence.layout import WRITE_KW, group_attrs
 
 __all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
            "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo",
-           "surface_strain_field", "corrected_strain", "lens_strain_field", "positions_at"]
+           "surface_strain_field", "corrected_strain", "lens_strain_field", "positions_at",
+           "mean_scale"]
 
 #: the coordinate frame of /stereo, in words (also stored with the group)
 FRAME_WORDS = ("left camera: origin at its optical centre, X along image columns, Y along "
@@ -401,3 +402,22 @@ def positions_at(res, k, x, y):
            + (1 - t) * s * P[i0 + 1, j0] + t * s * P[i0 + 1, j0 + 1])
     out[~inside] = np.nan
     return out
+
+
+def mean_scale(res) -> float | None:
+    """Median mm per px of the reference surface: 3-D distance between neighbouring grid
+    points over their distance in the left reference image (for placing gauges given in mm).
+
+    Returns None when it cannot be found.
+    """
+    with open_h5(Path(res.path), "r", "read", locking=False) as f:
+        P = np.stack([f["stereo"][c][0] for c in "XYZ"], -1)
+    gx, gy = res.grid_x, res.grid_y
+    parts = []
+    if gx.shape[1] > 1:
+        parts.append(np.linalg.norm(np.diff(P, axis=1), axis=-1) / np.diff(gx, axis=1))
+    if gx.shape[0] > 1:
+        parts.append(np.linalg.norm(np.diff(P, axis=0), axis=-1) / np.diff(gy, axis=0))
+    vals = np.concatenate([p.ravel() for p in parts]) if parts else np.array([])
+    vals = vals[np.isfinite(vals)]
+    return float(np.median(vals)) if vals.size else None

@@ -247,9 +247,11 @@ class _Frames:
             self.roi_mask = getattr(source, "roi_mask", None)
             self.grid_x, self.grid_y = source.grid_x, source.grid_y
             if hasattr(source, "path"):       # two cameras: gauges read 3-D positions
-                from dic.sequence.stereofile import has_stereo
+                from dic.sequence.stereofile import has_stereo, mean_scale
 
                 self.stereo = has_stereo(source.path)
+                if self.stereo and self.scale is None:   # to place gauges given in mm
+                    self.scale = mean_scale(source)
         else:
             raise ValueError(f"source: expected a results file (dic.load_results), a "
                              f"DisplacementField or a list of them, got {type(source).__name__}")
@@ -461,9 +463,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
             P = line_px[g.name]
             if src.stereo:    # two cameras: distance between the end points in 3-D, mm
                 from dic.sequence.stereofile import positions_at
-
-                Q0 = positions_at(src._results, 0, P[:, 0], P[:, 1])
-                Q = positions_at(src._results, int(k), P[:, 0], P[:, 1])
+                Q0, Q = (positions_at(src._results, j, P[:, 0], P[:, 1]) for j in (0, int(k)))
                 L0, L = math.dist(Q0[0], Q0[1]), math.dist(Q[0], Q[1])
                 lam = L / L0
                 cols[f"{g.name}.length"][row] = L
