@@ -23,8 +23,9 @@ Written into ``sample_images/stereo/``:
 
 Images are rendered exactly (:mod:`dic.stereo.render`: every pixel's ray meets the sheet, the
 hit is mapped back to the reference sheet where the analytic speckle is evaluated), plus
-Gaussian noise of 1 grey level (fixed seeds), rounded to 8 bits. Deterministic; about half a
-minute.
+Gaussian noise of 1 grey level (fixed seeds), rounded to 8 bits; the target photographs are
+anti-aliased (supersampled) and rounded to 8 bits without added noise, so that they stay
+small. Deterministic; about half a minute.
 
 Run: python scripts/make_stereo_sample.py [--out sample_images/stereo]
 """
@@ -79,8 +80,10 @@ def states():
 
 
 def _u8(img, seed):
-    rng = np.random.default_rng(seed)
-    return np.clip(np.rint(img + rng.normal(0.0, NOISE, img.shape)), 0, 255).astype(np.uint8)
+    """8-bit image, with Gaussian noise of NOISE grey levels unless ``seed`` is None."""
+    if seed is not None:
+        img = img + np.random.default_rng(seed).normal(0.0, NOISE, img.shape)
+    return np.clip(np.rint(img), 0, 255).astype(np.uint8)
 
 
 def _write_png(path, img):
@@ -144,8 +147,8 @@ def main(argv=None) -> int:
     names_l, names_r = [], []
     for k, pose in enumerate(poses):
         for cam, side, names in ((left, "left", names_l), (right, "right", names_r)):
-            img = _u8(render_chessboard(cam, pose, INNER_CORNERS, SQUARE_MM),
-                      1000 + 2 * k + (side == "right"))
+            # no added noise on the targets: flat squares compress to a few kB per image
+            img = _u8(render_chessboard(cam, pose, INNER_CORNERS, SQUARE_MM), None)
             p = out / "target" / f"{side}_{k:02d}.png"
             _write_png(p, img)
             names.append(p)
