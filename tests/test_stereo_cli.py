@@ -108,3 +108,25 @@ def test_calibrate_command_too_few_views(target_files, tmp_path, capsys):
     code = main(["calibrate", *map(str, left[:4]), "--inner-corners", "9x6", "--square", "10",
                  "--out", str(tmp_path / "c.json")])
     assert code == 2 and ".toml" in capsys.readouterr().err
+
+
+def test_calibrate_command_locates_the_specimen_plane(target_files, tmp_path, capsys):
+    # any target photograph can stand for the specimen plane: its pose is known from the rig
+    # (tests/stereo_rig.py), so the plane's distance along the camera axis is checked
+    folder, left, _ = target_files
+    poses, _, _ = target_views(10, seed=3)
+    out = tmp_path / "cam.toml"
+    code = main(["calibrate", *map(str, left[:10]), "--inner-corners", "9x6", "--square", "10",
+                 "--plane-image", str(left[4]), "--out", str(out)])
+    text = capsys.readouterr().out
+    assert code == 0 and "specimen plane:" in text and "mm/px" in text
+    cal = load_calibration(out)
+    R, t = cal.plane
+    Rt, tt = poses[4]
+    # the target's pose by cv2.solvePnP against the rendered pose (common practice)
+    assert np.degrees(np.arccos(np.clip(abs(R[:, 2] @ Rt[:, 2]), -1, 1))) < 0.2
+    assert np.linalg.norm(t - tt) < 1.0
+    code = main(["calibrate", *map(str, left[:10]), "--inner-corners", "9x6", "--square", "10",
+                 "--plane-image", str(left[-1]), "--out", str(tmp_path / "c2.toml")])
+    err = capsys.readouterr().err
+    assert code == 2 and "plane image" in err and err.count("\n") == 1

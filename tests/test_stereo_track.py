@@ -225,3 +225,50 @@ def test_gauge_line_reads_the_3d_distance(stereo_run):
         assert flat["axial.engineering"][k] - true > 20 * abs(got - true)
     assert h.units["axial.length"] == "mm"
     assert abs(h["axial.length"][0] - np.linalg.norm(T0[1] - T0[0])) < 0.05
+
+
+def test_one_camera_scale_from_the_specimen_plane(tmp_path):
+    # a camera with barrel distortion views a plate tilted by 5.7 degrees; a target photograph
+    # lying on the plate locates its plane (cv2.solvePnP), which gives the scale and
+    # displacements in mm. Oracle: the rendered plate's known pose and rigid slide.
+    from dic.stereo import locate_plane, plane_scale
+    from dic.stereo.calibration import Calibration, CameraFit
+    from dic.stereo.calfile import load_calibration
+
+    K = np.array([[700.0, 0, 203.0], [0, 702.0, 151.0], [0, 0, 1]])
+    cam = Camera(K, [-0.25, 0.08, 0.0, 0.0, 0.0], (400, 300))
+    Rp = rotation_matrix([0.0, 0.1, 0.0])
+    origin = np.array([0.0, 0.0, 300.0])
+    ctr = np.array([(IC[0] - 1) * SQ / 2, (IC[1] - 1) * SQ / 2, 0.0])
+    t_true = origin - Rp @ ctr
+    poses = target_poses(12, IC, SQ, lateral=35.0, seed=1)
+    cal = calibrate([render_chessboard(cam, p, IC, SQ) for p in poses], inner_corners=IC,
+                    square_mm=SQ)
+    cal = locate_plane(cal, render_chessboard(cam, (Rp, t_true), IC, SQ))
+    save_calibration(cal, tmp_path / "cam.toml")
+    cal = load_calibration(tmp_path / "cam.toml")
+    R, t = cal.plane
+    # the plane's normal and distance (common practice: solvePnP of a calibrated camera)
+    assert np.degrees(np.arccos(abs(R[:, 2] @ Rp[:, 2]))) < 0.1
+    assert abs((t - t_true) @ Rp[:, 2]) < 0.3
+    truth = Calibration((CameraFit(cam.matrix, cam.distortion, cam.size, 0.0),),
+                        plane=(Rp, t_true))
+    s_true = plane_scale(truth, 199.5, 149.5)
+    s_cal = plane_scale(cal, 199.5, 149.5)
+    assert abs(s_cal / s_true - 1) < 2e-3          # the bar for focal lengths: 0.2 %
+    sp = surface_speckle(90.0, blob_mm=1.1, pitch=0.2, seed=4)
+    slide = np.array([4.0, 3.0])
+    imgs = [render_surface(cam, Plate(origin, Rp), sp),
+            render_surface(cam, Plate(origin + Rp[:, :2] @ slide, Rp), sp)]
+    res = dic.track(imgs, tmp_path / "plane.h5", calibration=tmp_path / "cam.toml", subset=21,
+                    step=10)
+    assert abs(res.scale / s_true - 1) < 2e-3
+    res.close()
+    lens = load_lens(tmp_path / "plane.h5")
+    ok = np.isfinite(lens.U_mm[1])
+    assert ok.mean() > 0.8
+    err = np.hypot(lens.U_mm[1][ok] - slide[0], lens.V_mm[1][ok] - slide[1])
+    print(f"plane scale {s_cal:.6f} mm/px (true {s_true:.6f}); slide error "
+          f"{np.sqrt(np.mean(err ** 2)) * 1e3:.1f} µm RMS, max {err.max() * 1e3:.1f} µm")
+    # the target's axes are the plate's: the slide reads (4, 3) mm everywhere
+    assert np.sqrt(np.mean(err ** 2)) < 0.02

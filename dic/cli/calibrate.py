@@ -11,6 +11,8 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+import numpy as np
+
 from dic.cli.types import positive_float
 
 __all__ = ["register", "run", "verdict"]
@@ -71,6 +73,10 @@ def register(subparsers):
     p.add_argument("--fit-k3", action="store_true",
                    help="also fit the sixth-order radial distortion term (wide-angle lenses "
                         "with targets reaching the image corners)")
+    p.add_argument("--plane-image", type=Path, metavar="IMAGE",
+                   help="one camera: a photograph of the target lying flat on the specimen; "
+                        "locates the specimen plane, so 'dic run --calibration' gives the scale "
+                        "and displacements in mm on it")
     p.add_argument("--max-error", type=positive_float, default=0.5, metavar="PX",
                    help="leave out photographs whose reprojection RMS exceeds this and three "
                         "times the median (default: 0.5 px)")
@@ -113,6 +119,13 @@ def verdict(cal) -> str:
     if cal.stereo:
         lines.append(f"baseline: {cal.baseline:.2f} mm; angle between the cameras: "
                      f"{cal.angle_deg:.2f} degrees")
+    if cal.plane is not None:
+        from dic.stereo.plane import plane_scale
+
+        w, h = cal.cameras[0].size
+        lines.append(f"specimen plane: {float(np.linalg.norm(cal.plane[1])):.1f} mm from the "
+                     f"camera; scale at the image centre "
+                     f"{float(plane_scale(cal, (w - 1) / 2, (h - 1) / 2)):.5f} mm/px")
     for i, name in enumerate(cal.names):
         if i in cal.view_rms:
             lines.append(f"  {name}: {cal.view_rms[i]:.3f} px")
@@ -138,6 +151,10 @@ def run(args) -> int:
              for p, q in zip(left, right or left)]
     cal = calibrate(left, right, inner_corners=args.inner_corners, square_mm=args.square,
                     fit_k3=args.fit_k3, max_error=args.max_error, names=names)
+    if args.plane_image is not None:
+        from dic.stereo import locate_plane
+
+        cal = locate_plane(cal, args.plane_image)
     save_calibration(cal, args.out)
     print(verdict(cal))
     print(f"calibration file: {args.out}")

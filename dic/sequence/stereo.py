@@ -128,6 +128,11 @@ def track_calibrated(track_2d, images, out, *, right_images=None, calibration=No
         if len(right_items) != len(left_items):
             raise InputError(f"right_images: {len(right_items)} right and {len(left_items)} "
                              "left images; give both cameras' images of the same instants")
+    if right_items is None and cal.plane is not None and options.get("scale") is None:
+        from dic.stereo.plane import plane_scale
+
+        w, h = cal.cameras[0].size        # the specimen plane gives the scale at the centre
+        options["scale"] = float(plane_scale(cal, (w - 1) / 2, (h - 1) / 2))
     results = track_2d(left_items, out, strain=None, **options)
     try:
         first = _image(left_items[int(results.settings.get("reference", 0))])
@@ -190,7 +195,18 @@ def _lens(results, cal, strain):
         s = corrected_strain(f, xu, yu, U[j], V[j], window=window, measure=measure)
         comps["xx"][j], comps["yy"][j], comps["xy"][j] = s.xx, s.yy, s.xy
     attrs = {"strain_kind": "lens-corrected", "units": "px (ideal pinhole camera)"}
-    return {"x": xu, "y": yu, "u": U, "v": V}, attrs, comps, window, measure
+    arrays = {"x": xu, "y": yu, "u": U, "v": V}
+    if cal.plane is not None:            # millimetres on the specimen plane
+        from dic.stereo.plane import plane_points
+
+        A0, B0 = plane_points(cal, X, Y)
+        arrays.update(X_mm=A0, Y_mm=B0, U_mm=np.full_like(U, np.nan),
+                      V_mm=np.full_like(V, np.nan))
+        for j in range(n):
+            f = results.field(j)
+            A, B = plane_points(cal, X + f.u, Y + f.v)
+            arrays["U_mm"][j], arrays["V_mm"][j] = A - A0, B - B0
+    return arrays, attrs, comps, window, measure
 
 
 def _right_field(left_ref, right_img, stereo, left, settings, roi):

@@ -25,6 +25,9 @@ One camera with a calibration adds ``/lens``: displacements corrected for lens d
 
     /lens/x, /lens/y     (ny, nx) float64     grid positions an ideal pinhole camera would see, px
     /lens/u, /lens/v     (F, ny, nx) float64  displacements between ideal positions, px
+    /lens/X_mm, Y_mm     (ny, nx) float64     with a known specimen plane: grid positions on
+                                              it (the plane target's axes), mm
+    /lens/U_mm, V_mm     (F, ny, nx) float64  ... and displacements on it, mm
     attributes: n_done, calibration, key
 
 Both groups are written whole, when tracking is done, on a copy of the file that then replaces
@@ -143,13 +146,19 @@ def has_stereo(path) -> bool:
 
 @dataclass
 class LensData:
-    """The ``/lens`` group: grid positions and displacements corrected for lens distortion."""
+    """The ``/lens`` group: grid positions and displacements corrected for lens distortion;
+    with a known specimen plane also positions ``X_mm, Y_mm`` and displacements ``U_mm, V_mm``
+    on it (target axes, mm), else None."""
 
     x: np.ndarray
     y: np.ndarray
     u: np.ndarray
     v: np.ndarray
     attrs: dict
+    X_mm: np.ndarray | None = None
+    Y_mm: np.ndarray | None = None
+    U_mm: np.ndarray | None = None
+    V_mm: np.ndarray | None = None
 
 
 def write_group(path, name, arrays, attrs) -> None:
@@ -194,7 +203,7 @@ def _load(path, name, fields, cls):
                                 else "a calibration"))
         g = f[name]
         n = int(g.attrs["n_done"])
-        data = {k: (g[k][:n] if g[k].ndim == 3 else g[k][()]) for k in fields}
+        data = {k: (g[k][:n] if g[k].ndim == 3 else g[k][()]) for k in fields if k in g}
         return cls(**data, attrs=group_attrs(g))
 
 
@@ -212,7 +221,7 @@ def load_stereo(path) -> StereoData:
 
 def load_lens(path) -> LensData:
     """The lens-corrected displacements of a one-camera results file with a calibration."""
-    return _load(path, "lens", ("x", "y", "u", "v"), LensData)
+    return _load(path, "lens", ("x", "y", "u", "v", "X_mm", "Y_mm", "U_mm", "V_mm"), LensData)
 
 
 def info_lines(f) -> list:

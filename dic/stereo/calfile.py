@@ -28,6 +28,10 @@ positions in pixels; ``x`` column, ``y`` row, origin at the centre of the top-le
     baseline_mm = 100.0            # for reading by eye; recomputed on load
     angle_deg = 16.2
 
+    [plane]                        # optional: the specimen plane (one camera), the pose of
+    rotation = [[...], [...], [...]]   # a target lying on it: P = rotation @ q + translation
+    translation_mm = [tx, ty, tz]
+
     [[view]]                       # one per target photograph
     name = "left_01.png"
     used = true
@@ -103,6 +107,9 @@ def calibration_text(calibration: Calibration) -> str:
     if cal.stereo:
         _table(lines, "[pose]", {"rotation": cal.rotation, "translation_mm": cal.translation,
                                  "baseline_mm": cal.baseline, "angle_deg": cal.angle_deg})
+    if cal.plane is not None:
+        _table(lines, "[plane]", {"rotation": np.asarray(cal.plane[0]),
+                                  "translation_mm": np.asarray(cal.plane[1])})
     why = {r.index: r.reason for r in cal.rejected}
     for i, name in enumerate(cal.names):
         _table(lines, "[[view]]", {"name": name, "used": i not in why,
@@ -217,8 +224,12 @@ def calibration_from_text(text, path="(text)") -> Calibration:
         target = {"kind": t.get("kind", "chessboard"),
                   "inner_corners": tuple(t.get("inner_corners", ())),
                   "square_mm": float(t.get("square_mm", float("nan")))}
+    plane = None
+    if "plane" in doc:
+        plane = (_array(doc["plane"], "rotation", (3, 3), path),
+                 _array(doc["plane"], "translation_mm", (3,), path))
     return Calibration(fits, R, T, float(doc.get("rms_px", float("nan"))), view_rms, rejected,
-                       target, names)
+                       target, names, plane)
 
 
 def as_calibration(calibration) -> Calibration:
