@@ -32,6 +32,7 @@ _LAZY = {
     "load_results": "dic.sequence.tracker",
     "tensile_results": "dic.tensile.results",
     "gauge_histories": "dic.tensile.gauges",
+    "calibrate": "dic.stereo.calibration",
 }
 
 # sub-packages and modules reachable as attributes (``dic.synth``) without an explicit import

@@ -576,6 +576,13 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
     one array per strain quantity (``strain_xx``, ... as in the CSV columns), ``zncc`` and
     ``reason`` (Int8, 0 = measured). NaN marks values that do not exist.
 
+    A two-camera results file is written as a SURFACE: points are the reference 3-D positions
+    (mm, left camera's frame; unmeasured points filled from a quadratic fit of the others, so
+    the grid stays whole), ``displacement_mm`` is ``U, V, W``, the strain is the surface strain
+    (:func:`dic.sequence.stereofile.surface_strain_field`), ``reason`` the 3-D reason, and
+    ``W_mm``, ``shape_mm`` (distance from the best-fit plane), ``ray_gap_mm`` and the left
+    image's ``u_px``, ``v_px`` are added.
+
     References
     ----------
     .. [1] Kitware, VTK File Formats (VTK User's Guide, "XML File Formats": StructuredGrid,
@@ -596,22 +603,30 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
         pts = np.zeros((ny * nx, 3))
         pts[:, 0] = np.asarray(res.grid_x, dtype=np.float64).ravel() * factor
         pts[:, 1] = np.asarray(res.grid_y, dtype=np.float64).ravel() * factor
+        surface = _surface(res)        # two cameras: a 3-D surface in the left camera's frame
+        if surface is not None:
+            pts, unit, factor = surface["points"], "mm", 1.0
         points_xml = _vtk_array(pts, components=3)
         times = np.asarray([float(res.image_times[k]) for k in order])
         use_time = bool(np.isfinite(times).all())
         entries = []
         for k in order:
             f = res.field(k)
-            s = res.strain(k, window=window, measure=measure)
+            s = res.strain(k, window=window, measure=measure)   # surface strain for 2 cameras
             disp = np.zeros((ny * nx, 3))
             disp[:, 0] = np.asarray(f.u, dtype=np.float64).ravel() * factor
             disp[:, 1] = np.asarray(f.v, dtype=np.float64).ravel() * factor
+            reason = f.reason
+            if surface is not None:
+                disp, reason = surface["displacement"](k), surface["reason"](k)
             cols = _strain_columns(s, comps)
             first = next(iter(cols))
             arrays = [_vtk_array(disp, f"displacement_{unit}", 3)]
             arrays += [_vtk_array(v.ravel(), nm) for nm, v in cols.items()]
             arrays.append(_vtk_array(np.where(f.valid, f.zncc, np.nan).ravel(), "zncc"))
-            arrays.append(_vtk_array(np.asarray(f.reason, dtype=np.int8).ravel(), "reason"))
+            arrays.append(_vtk_array(np.asarray(reason, dtype=np.int8).ravel(), "reason"))
+            if surface is not None:
+                arrays += [_vtk_array(a.ravel(), nm) for nm, a in surface["extra"](k).items()]
             comment = (f"dic {__version__} export of frame {k} (image {res.image_names[k]}); "
                        f"points and displacements in {unit}"
                        + (f" ({scale:g} mm/px)" if scale is not None else "") + "; "
@@ -640,6 +655,22 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
     finally:
         if opened:
             res.close()
+
+
+def _surface(res):
+    """Two-camera results as VTK pieces (None for a 2-D results file)."""
+    from dic.sequence.stereofile import has_stereo, load_stereo, vtk_points
+
+    if not has_stereo(res.path):
+        return None
+    st = load_stereo(res.path)
+    gap = st.gap.astype(np.float64)
+    return {"points": vtk_points(st),
+            "displacement": lambda k: np.stack([st.U[k], st.V[k], st.W[k]], -1).reshape(-1, 3),
+            "reason": lambda k: st.reason[k],
+            "extra": lambda k: {"W_mm": st.W[k], "shape_mm": st.shape_mm(),
+                                "ray_gap_mm": gap[k], "u_px": res.field(k).u,
+                                "v_px": res.field(k).v}}
 
 
 def export_results(results, out_dir, *, format="csv", frames=None,

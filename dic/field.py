@@ -40,6 +40,10 @@ class Reason(enum.IntEnum):
     DEGENERATE = 7
     #: matched, but disagrees with its neighbours (normalised median test)
     INCONSISTENT = 8
+    #: two cameras: matched in one camera's images only, so no 3-D position
+    ONE_CAMERA = 9
+    #: two cameras: the two rays pass too far apart (a false match or a calibration off)
+    POOR_TRIANGULATION = 10
 
     @classmethod
     def describe(cls, code: int) -> str:
@@ -57,6 +61,8 @@ _DESCRIPTIONS = {
     Reason.NOT_REACHED: "not reached from any seed",
     Reason.DEGENERATE: "degenerate (folded) match",
     Reason.INCONSISTENT: "disagrees with its neighbours (median test)",
+    Reason.ONE_CAMERA: "seen by one camera only (no 3-D position)",
+    Reason.POOR_TRIANGULATION: "the two cameras' rays pass too far apart",
 }
 
 

@@ -12,8 +12,9 @@ Commands
 ``dic info RESULTS``
     Summarise a results file (or the ``results.h5`` of an output folder).
 ``dic tensile``, ``dic report``, ``dic export``, ``dic pattern``, ``dic noise``, ``dic advise``,
-``dic view``
-    Defined in ``dic.cli.tensile``, ``dic.cli.report``, ``dic.cli.metrology`` and ``dic.cli.view``.
+``dic view``, ``dic calibrate``
+    Defined in ``dic.cli.tensile``, ``dic.cli.report``, ``dic.cli.metrology``, ``dic.cli.view``
+    and ``dic.cli.calibrate``.
 
 With ``--config`` and an output folder, ``dic run`` goes on, once every frame is done, to what
 the analysis file's ``[tensile]`` and ``[report]`` tables ask for (:func:`dic.workflow.run.finish`).
@@ -56,13 +57,15 @@ def _build_parser():
     commands = parser.add_subparsers(title="commands", dest="command", metavar="COMMAND",
                                      required=True)
     # each command group in a module of its own
+    from dic.cli import calibrate as _cli_calibrate
     from dic.cli import metrology as _cli_metrology
     from dic.cli import report as _cli_report
     from dic.cli import run as _cli_run
     from dic.cli import tensile as _cli_tensile
     from dic.cli import view as _cli_view
 
-    for module in (_cli_run, _cli_tensile, _cli_report, _cli_metrology, _cli_view):
+    for module in (_cli_run, _cli_tensile, _cli_report, _cli_metrology, _cli_view,
+                   _cli_calibrate):
         module.register(commands)
     return parser
 

@@ -15,6 +15,8 @@ import sys
 import time
 from pathlib import Path
 
+from dic.cli.calibrate import (add_camera_options, camera_settings, camera_summary,
+                               write_camera_maps)
 from dic.cli.types import numbers, positive_float, positive_int, rectangle
 
 __all__ = ["register", "RESULTS_NAME"]
@@ -150,6 +152,7 @@ def _add_run(commands):
                    help="strain measure to store: green-lagrange, infinitesimal, "
                         "euler-almansi, hencky or engineering (default with --strain-window: "
                         f"{_STRAIN_DEFAULTS['measure']})")
+    add_camera_options(run)
     p = run.add_argument_group("where to run")
     here = p.add_mutually_exclusive_group()
     here.add_argument("--workers", type=positive_int, metavar="N",
@@ -293,6 +296,7 @@ def _analysis(args):
             raise ValueError(f"strain window: {w!r} is not an odd whole number of at least 3; "
                              f"use e.g. --strain-window 9")
         kw["strain"] = strain
+    kw.update(camera_settings(args, conf))
     after = {k: conf[k] for k in ("tensile", "report") if k in conf}
     if after:
         after["strain"] = kw.get("strain", {})
@@ -537,6 +541,7 @@ def _run(args, out=None):
             written = _export(results, folder, paths[kw.get("reference", 0)],
                               redo=before is None, bar=bar,
                               verbose=args.verbose and show, out=out)
+            written += len(write_camera_maps(h5, folder, paths[kw.get("reference", 0)]))
         elif args.verbose and show:
             for k in range(n):
                 _write_line(f"frame {k} ({Path(results.image_names[k]).name}): "
@@ -552,6 +557,8 @@ def _run(args, out=None):
             if n:
                 print(f"last frame ({Path(results.image_names[n - 1]).name}): "
                       f"{results.field(n - 1).summary()}", file=out)
+            for line in camera_summary(h5):   # calibrated cameras: 3-D or lens-corrected
+                print(line, file=out)
             if folder is not None:
                 print(f"wrote {written} files (displacement tables as CSV and maps as PNG) to "
                       f"'{folder}'" if written else

@@ -19,6 +19,7 @@ from dic.figures.layers import gauge_shapes, grid_view
 from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure,
                                stress_strain_figure, valid_counts, valid_points_plot)
 from dic.figures.maps import measure_comparison, quality_map, strain_map
+from dic.report._cameras import camera_blocks
 from dic.tensile.results import TensileResults, basis_text, shown_value
 from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
 
@@ -28,6 +29,7 @@ __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
 SECTION_TITLES = {
     "overview": "Overview",
     "settings": "Analysis settings",
+    "cameras": "Cameras and calibration",
     "uncertainty": "Measurement uncertainty",
     "maps": "Strain maps",
     "measures": "Strain measures compared",
@@ -739,6 +741,9 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
 
     add("overview", _overview(res, info))
     add("settings", _settings(res, info, metro))
+    cameras = camera_blocks(res)          # only with a calibration (dic.report._cameras)
+    if cameras:
+        add("cameras", cameras)
     if metro:
         add("uncertainty", _uncertainty(metro))
     add("maps", _maps(res, info, chosen, shapes))

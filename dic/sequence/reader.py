@@ -208,7 +208,9 @@ class Results:
         return g[key]
 
     def strain(self, k, *, window=9, measure="green-lagrange", fit="plane"):
-        """Strain field of frame ``k``, computed from its displacement field.
+        """Strain field of frame ``k``, computed from its displacement field (two cameras:
+        the surface strain from the 3-D positions; one camera with a calibration: from the
+        lens-corrected displacements; :mod:`dic.sequence.stereofile`).
 
         Parameters
         ----------
@@ -223,6 +225,16 @@ class Results:
         """
         from dic.strain import strain_field
 
+        if "stereo" in self._file:   # two cameras: surface strain from the 3-D positions
+            from dic.sequence.stereofile import surface_strain_field
+
+            return surface_strain_field(self, self._frame_index(k), window=window,
+                                        measure=measure, fit=fit)
+        if "lens" in self._file:     # one camera with a calibration: lens-corrected
+            from dic.sequence.stereofile import lens_strain_field
+
+            return lens_strain_field(self, self._frame_index(k), window=window,
+                                     measure=measure, fit=fit)
         return strain_field(self.field(k), window=window, measure=measure, fit=fit)
 
     def stored_strain(self, k, key) -> dict[str, np.ndarray]:
@@ -297,4 +309,7 @@ def results_info(path) -> str:
             lines.append(f"strain {key}: {a.get('measure')}, window {a.get('window')}"
                          + (f", {more}" if more else "")
                          + f"; {int(r.strain_written(key).sum())} of {n} frames")
+        from dic.sequence.stereofile import info_lines
+
+        lines.extend(info_lines(r._file))
         return "\n".join(lines)

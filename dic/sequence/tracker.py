@@ -301,7 +301,8 @@ def _make_executor(workers, cluster):
 def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None,
           shape_function="affine", interpolation="quintic", min_zncc=0.9, search=60,
           block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
-          scale=None, overwrite=False, progress=False, strain=None):
+          scale=None, overwrite=False, progress=False, strain=None, right_images=None,
+          calibration=None):
     """Track a sequence of images and write a results file.
 
     Parameters
@@ -335,6 +336,13 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
         Show a progress bar on stderr.
     strain : dict, optional
         ``{"window": 9, "measure": "green-lagrange"}`` to compute and store strain per frame.
+    right_images : folder, glob pattern, list of paths or list of arrays, optional
+        Two cameras: the right camera's sequence (``images`` is then the left one); needs a
+        two-camera ``calibration``. Adds 3-D positions and displacements in mm and surface
+        strain (:mod:`dic.sequence.stereo`).
+    calibration : dic.stereo.Calibration or path, optional
+        From :func:`dic.calibrate` or a calibration file. With one camera, the displacements
+        are corrected for lens distortion before strain.
 
     Returns
     -------
@@ -346,6 +354,17 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     .. [1] B. Pan, "Reliability-guided digital image correlation for image deformation
        measurement", Applied Optics 48 (2009) 1535-1542.
     """
+    if right_images is not None or calibration is not None:   # calibrated cameras
+        from dic.sequence.stereo import track_calibrated
+
+        return track_calibrated(
+            track, resolve_images(images), out, calibration=calibration, strain=strain,
+            right_images=None if right_images is None else resolve_images(right_images),
+            subset=subset, step=step, roi=roi, reference=reference, frames=frames,
+            shape_function=shape_function, interpolation=interpolation, min_zncc=min_zncc,
+            search=search, block=block, update_valid=update_valid, update_zncc=update_zncc,
+            workers=workers, cluster=cluster, scale=scale, overwrite=overwrite,
+            progress=progress)
     from dic.images.roi import make_roi
     from dic.sequence.reader import Results
     from dic.sequence.writer import open_for_writing

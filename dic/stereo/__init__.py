@@ -18,6 +18,8 @@ triangulation
     3-D positions in the left camera's frame, with the gap between the two rays.
 surface
     Surface strain: the deformation gradient in the local tangent plane.
+plane
+    One camera's specimen plane from a target photograph lying on it: positions in mm, scale.
 render
     Exact images of speckled surfaces and chessboard targets through posed cameras (tests,
     the sample).
@@ -45,9 +47,12 @@ _LAZY = {
     "StereoReason": "dic.stereo.triangulation",
     "surface_strain": "dic.stereo.surface",
     "surface_gradient": "dic.stereo.surface",
+    "locate_plane": "dic.stereo.plane",
+    "plane_points": "dic.stereo.plane",
+    "plane_scale": "dic.stereo.plane",
 }
 _MODULES = ("camera", "calibration", "calfile", "undistort", "render", "match", "triangulation",
-            "surface")
+            "surface", "plane")
 
 __all__ = list(_LAZY)
 

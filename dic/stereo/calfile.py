@@ -28,6 +28,10 @@ positions in pixels; ``x`` column, ``y`` row, origin at the centre of the top-le
     baseline_mm = 100.0            # for reading by eye; recomputed on load
     angle_deg = 16.2
 
+    [plane]                        # optional: the specimen plane (one camera), the pose of
+    rotation = [[...], [...], [...]]   # a target lying on it: P = rotation @ q + translation
+    translation_mm = [tx, ty, tz]
+
     [[view]]                       # one per target photograph
     name = "left_01.png"
     used = true
@@ -45,7 +49,8 @@ import numpy as np
 from dic.errors import FileProblem, InputError
 from dic.stereo.calibration import Calibration, CameraFit, Rejected
 
-__all__ = ["save_calibration", "load_calibration"]
+__all__ = ["save_calibration", "load_calibration", "calibration_text", "calibration_from_text",
+           "as_calibration"]
 
 _KIND = "dic camera calibration"
 _VERSION = 1
@@ -79,13 +84,16 @@ def _table(lines, header, items):
         lines.append(f"{k} = {_value(v)}")
 
 
-def save_calibration(calibration: Calibration, path):
-    """Write a calibration to a TOML file (layout in the module docstring).
+def calibration_text(calibration: Calibration) -> str:
+    """The calibration file's text (TOML, layout in the module docstring).
 
     Parameters
     ----------
     calibration : Calibration
-    path : str or Path
+
+    Returns
+    -------
+    str
     """
     cal = calibration
     lines = [f"kind = {_value(_KIND)}", f"version = {_VERSION}", f"rms_px = {_value(cal.rms)}"]
@@ -99,13 +107,31 @@ def save_calibration(calibration: Calibration, path):
     if cal.stereo:
         _table(lines, "[pose]", {"rotation": cal.rotation, "translation_mm": cal.translation,
                                  "baseline_mm": cal.baseline, "angle_deg": cal.angle_deg})
+    if cal.plane is not None:
+        _table(lines, "[plane]", {"rotation": np.asarray(cal.plane[0]),
+                                  "translation_mm": np.asarray(cal.plane[1])})
     why = {r.index: r.reason for r in cal.rejected}
     for i, name in enumerate(cal.names):
         _table(lines, "[[view]]", {"name": name, "used": i not in why,
                                    "rms_px": cal.view_rms.get(i, float("nan")),
                                    "reason": why.get(i, "")})
+    return "\n".join(lines) + "\n"
+
+
+def save_calibration(calibration: Calibration, path):
+    """Write a calibration to a TOML file (layout in the module docstring).
+
+    Parameters
+    ----------
+    calibration : Calibration
+    path : str or Path
+    """
+    from dic.files import atomic_write
+
+    text = calibration_text(calibration)
     try:
-        Path(path).write_text("\n".join(lines) + "\n", encoding="utf-8")
+        with atomic_write(path, newline="\n") as fh:
+            fh.write(text)
     except OSError as exc:
         raise FileProblem(f"cannot write the calibration file {path}: {exc.strerror}; "
                           "choose a writable location") from exc
@@ -143,12 +169,25 @@ def load_calibration(path) -> Calibration:
     InputError
         When it is not a calibration file of this layout.
     """
-    import tomllib
 
     try:
         text = Path(path).read_text(encoding="utf-8")
     except OSError as exc:
         raise FileProblem(f"cannot read the calibration file {path}: {exc.strerror}") from exc
+    return calibration_from_text(text, path)
+
+
+def calibration_from_text(text, path="(text)") -> Calibration:
+    """A :class:`Calibration` from the text of a calibration file (e.g. as stored in a
+    results file); ``path`` names it in error messages.
+
+    Raises
+    ------
+    InputError
+        When it is not a calibration of this layout.
+    """
+    import tomllib
+
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
@@ -185,5 +224,25 @@ def load_calibration(path) -> Calibration:
         target = {"kind": t.get("kind", "chessboard"),
                   "inner_corners": tuple(t.get("inner_corners", ())),
                   "square_mm": float(t.get("square_mm", float("nan")))}
+    plane = None
+    if "plane" in doc:
+        plane = (_array(doc["plane"], "rotation", (3, 3), path),
+                 _array(doc["plane"], "translation_mm", (3,), path))
     return Calibration(fits, R, T, float(doc.get("rms_px", float("nan"))), view_rms, rejected,
-                       target, names)
+                       target, names, plane)
+
+
+def as_calibration(calibration) -> Calibration:
+    """A :class:`Calibration` from itself or from the path of a calibration file.
+
+    Raises
+    ------
+    InputError
+        For anything else.
+    """
+    if isinstance(calibration, Calibration):
+        return calibration
+    if isinstance(calibration, (str, Path)):
+        return load_calibration(calibration)
+    raise InputError(f"calibration must be a Calibration (dic.calibrate) or the path of a "
+                     f"calibration file; got {type(calibration).__name__}")

@@ -101,6 +101,9 @@ class Calibration:
     rejected: tuple = ()
     target: dict = field(default_factory=dict)
     names: tuple = ()
+    #: the specimen plane, ``(rotation, translation_mm)`` of a target lying on it, in the left
+    #: camera's frame (:func:`dic.stereo.plane.locate_plane`); None when not known
+    plane: tuple | None = None
 
     @property
     def stereo(self) -> bool:

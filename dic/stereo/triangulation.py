@@ -106,7 +106,8 @@ def triangulate(calibration, xl, yl, xr, yr):
 
 
 class StereoReason(enum.IntEnum):
-    """Why a grid point has no 3-D position (to join :class:`dic.field.Reason` later)."""
+    """Why a grid point has no 3-D position (the tracking maps these onto
+    :class:`dic.field.Reason`: ``ONE_CAMERA``, ``POOR_TRIANGULATION``)."""
 
     MEASURED = 0
     LEFT_ONLY = 1          # matched in the left image but not in the right one

@@ -221,6 +221,7 @@ class _Frames:
     """Uniform access to a results file, one displacement field or a list of them."""
 
     def __init__(self, source, scale=None):
+        self.stereo = False
         if isinstance(source, DisplacementField):
             source = [source]
         if isinstance(source, (list, tuple)):
@@ -245,6 +246,12 @@ class _Frames:
             self.scale = scale if scale is not None else getattr(source, "scale", None)
             self.roi_mask = getattr(source, "roi_mask", None)
             self.grid_x, self.grid_y = source.grid_x, source.grid_y
+            if hasattr(source, "path"):       # two cameras: gauges read 3-D positions
+                from dic.sequence.stereofile import has_stereo, mean_scale
+
+                self.stereo = has_stereo(source.path)
+                if self.stereo and self.scale is None:   # to place gauges given in mm
+                    self.scale = mean_scale(source)
         else:
             raise ValueError(f"source: expected a results file (dic.load_results), a "
                              f"DisplacementField or a list of them, got {type(source).__name__}")
@@ -429,7 +436,7 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
             raise ValueError(f"components: unknown {', '.join(map(repr, bad))}; use some of "
                              f"{', '.join(COMPONENTS)}")
 
-    length_unit = "mm" if src.scale else "px"
+    length_unit = "mm" if src.scale or src.stereo else "px"
     lscale = src.scale or 1.0
     cols, units = {}, {}
     for g in lines:
@@ -454,11 +461,18 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
         f = src.field(k)
         for g in lines:
             P = line_px[g.name]
-            u, v = displacement_at(f, P[:, 0], P[:, 1])
-            L0 = math.dist(P[0], P[1])
-            L = math.hypot(P[1, 0] + u[1] - P[0, 0] - u[0], P[1, 1] + v[1] - P[0, 1] - v[0])
-            lam = L / L0
-            cols[f"{g.name}.length"][row] = L * lscale
+            if src.stereo:    # two cameras: distance between the end points in 3-D, mm
+                from dic.sequence.stereofile import positions_at
+                Q0, Q = (positions_at(src._results, j, P[:, 0], P[:, 1]) for j in (0, int(k)))
+                L0, L = math.dist(Q0[0], Q0[1]), math.dist(Q[0], Q[1])
+                lam = L / L0
+                cols[f"{g.name}.length"][row] = L
+            else:
+                u, v = displacement_at(f, P[:, 0], P[:, 1])
+                L0 = math.dist(P[0], P[1])
+                L = math.hypot(P[1, 0] + u[1] - P[0, 0] - u[0], P[1, 1] + v[1] - P[0, 1] - v[0])
+                lam = L / L0
+                cols[f"{g.name}.length"][row] = L * lscale
             cols[f"{g.name}.engineering"][row] = lam - 1.0
             cols[f"{g.name}.hencky"][row] = math.log(lam) if lam > 0 else math.nan
             cols[f"{g.name}.green-lagrange"][row] = 0.5 * (lam * lam - 1.0)
@@ -468,7 +482,8 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
             if f.n_valid == 0:
                 continue
             try:
-                s = strain_field(f, window=window, measure=measure)
+                s = (src._results.strain(int(k), window=window, measure=measure) if src.stereo
+                     else strain_field(f, window=window, measure=measure))
             except TooFewPoints:
                 continue  # too little measured in this frame: leave NaN
             vsg = s.vsg
@@ -489,7 +504,10 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
                 for c in PROBE_COMPONENTS:
                     cols[f"{g.name}.{c}"][row] = float(s.at(x, y, c))
     notes = []
-    if lines:
+    if lines and src.stereo:
+        notes.append("gauge lines (two cameras): L is the 3-D distance in mm between the end "
+                     "points' positions (bilinear in the grid of triangulated points)")
+    elif lines:
         notes.append("gauge lines: end points follow the tracked displacements (bilinear blend "
                      "of the grid points' half-step Taylor expansions; exact for quadratic "
                      "fields); engineering = L/L0 - 1, hencky (true strain) = ln(L/L0), green-lagrange = "

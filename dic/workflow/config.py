@@ -41,6 +41,10 @@ Example (``analysis.toml``)::
     gauge_length_mm = 40.0
     modulus_range_mpa = [20, 265]
 
+    [stereo]                        # calibrated cameras (optional)
+    calibration = "cameras.toml"    # from 'dic calibrate': one camera is lens-corrected
+    right_images = "right/*.tif"    # two cameras: 3-D results and surface strain
+
     [noise]                         # images of the unloaded specimen: the noise floor
     images = "static/*.tif"
 
@@ -83,6 +87,7 @@ SCHEMA = {
                 "n_range_percent": (list,)},
     "report": {"frames": (list,), "title": (str,), "write": (bool,)},
     "noise": {"images": (str, list)},
+    "stereo": {"right_images": (str, list), "calibration": (str,)},
 }
 _SECTIONS = [s for s in SCHEMA if s is not None and s != "frames"]
 
@@ -262,6 +267,9 @@ def load_analysis(path) -> dict:
         out["tensile"] = t
     if "report" in data:
         out["report"] = dict(data["report"])
+    if "stereo" in data:   # calibrated cameras: right images and/or the calibration file
+        out["stereo"] = {k: rel(v) if isinstance(v, str) else [rel(i) for i in v]
+                         for k, v in data["stereo"].items()}
     if "noise" in data:
         imgs = data["noise"].get("images")
         if imgs is None:

@@ -1,0 +1,297 @@
+"""Tracking with calibrated cameras: two cameras (3-D shape, motion and surface strain), or one
+camera corrected for lens distortion.
+
+:func:`dic.track` comes here when it is given ``right_images`` or a ``calibration``.
+
+Two cameras. The LEFT images are tracked exactly as in the 2-D analysis (the results file's
+``/frames``). The grid is matched from the left reference image into the right reference image
+(:func:`dic.stereo.match_cameras`, epipolar starting guess), and into every right image of the
+sequence, seeded at the best point with its stereo offset plus its motion in the left image.
+Every frame's left and right positions are triangulated (:func:`dic.stereo.grid_points`) into
+``X, Y, Z`` in the left camera's frame; ``U, V, W`` are the changes from the reference state;
+the surface strain (:func:`dic.stereo.surface_strain`) is stored under ``/strain`` with the
+group attribute ``kind = "surface"``, so every strain output uses it. Layout of ``/stereo``:
+:mod:`dic.sequence.stereofile`.
+
+One camera. The displacements are corrected for lens distortion
+(:func:`dic.stereo.undistort_displacements`) into ``/lens``; the stored strain is the gradient
+of the ideal-pinhole deformed positions with respect to the ideal-pinhole reference positions,
+``F = (I + grad_def) (I + grad_ref)^-1`` (both gradients by the pointwise least squares of
+:mod:`dic.strain` on the regular grid, over the same measured points, so that the bias of a
+plane fitted to the curved lens map cancels; chain rule).
+
+The groups are computed when tracking is done and written whole (atomically); running the same
+call again finds them complete and does nothing more.
+
+References
+----------
+.. [1] M. A. Sutton, J.-J. Orteu and H. W. Schreier, Image Correlation for Shape, Motion and
+   Deformation Measurements, Springer (2009), ch. 4 and 5 (stereo DIC, calibration).
+.. [2] R. Hartley and A. Zisserman, Multiple View Geometry in Computer Vision, 2nd ed.,
+   Cambridge University Press (2004), sec. 12.2 (triangulation).
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+
+import numpy as np
+
+from dic.errors import InputError
+from dic.field import Reason
+
+__all__ = ["track_calibrated", "STEREO_STRAIN", "LENS_STRAIN"]
+
+log = logging.getLogger("dic.sequence")
+
+#: surface strain stored by default with two cameras (window in grid points)
+STEREO_STRAIN = {"window": 5, "measure": "green-lagrange"}
+#: strain stored by default with one calibrated camera
+LENS_STRAIN = {"window": 9, "measure": "green-lagrange"}
+
+
+def _fingerprint(cal_text, names):
+    h = hashlib.sha256(cal_text.encode())
+    h.update(json.dumps([str(n) for n in names]).encode())
+    return h.hexdigest()
+
+
+def _image(item):
+    from dic.images.io import read_image
+
+    name = "image" if isinstance(item, np.ndarray) else str(item)
+    a = np.asarray(read_image(item, name=name), dtype=np.float64)
+    return a if a.ndim == 2 else a[..., :3] @ np.array([0.299, 0.587, 0.114])
+
+
+def _strain_spec(strain, default):
+    from dic.strain import canonical_measure
+
+    spec = {**default, **(strain or {})}
+    return int(spec["window"]), canonical_measure(spec["measure"])
+
+
+def track_calibrated(track_2d, images, out, *, right_images=None, calibration=None,
+                     strain=None, max_gap_px=0.5, **options):
+    """Track with a calibration: two cameras into 3-D results, or one camera lens-corrected.
+
+    Parameters
+    ----------
+    track_2d : callable
+        The 2-D tracking, :func:`dic.sequence.tracker.track` (passed in: it calls this function).
+    images : list of paths or arrays
+        The (left) camera's sequence.
+    out : path
+        Results file (HDF5).
+    right_images : list of paths or arrays, optional
+        The right camera's sequence, image for image taken with the left one.
+    calibration : Calibration or path
+        From :func:`dic.calibrate`, or a calibration file. Two cameras need a two-camera
+        calibration; one camera uses the (left) camera's lens model.
+    strain : dict, optional
+        ``{"window": N, "measure": ...}`` of the stored strain; default window 5 (surface
+        strain) for two cameras, 9 for one.
+    max_gap_px : float, optional
+        Two cameras: points whose rays pass further apart than this (left-camera pixels at the
+        point's depth) get ``Reason.POOR_TRIANGULATION``.
+    **options
+        Everything else of :func:`dic.track` (``subset``, ``step``, ``roi``, ...).
+
+    Returns
+    -------
+    dic.sequence.Results
+        The left camera's results; the 3-D results are read with
+        :func:`dic.sequence.stereofile.load_stereo`, the corrected displacements with
+        :func:`~dic.sequence.stereofile.load_lens`.
+
+    Raises
+    ------
+    InputError
+        Without a calibration, with a one-camera calibration for two cameras, with right
+        images of another count or size, or a calibration made for another image size.
+    """
+    from dic.stereo.calfile import as_calibration, calibration_text
+
+    if calibration is None:
+        raise InputError("calibration: two cameras need a calibration; calibrate with 'dic "
+                         "calibrate' and pass the file")
+    cal = as_calibration(calibration)
+    if right_images is not None and not cal.stereo:
+        raise InputError("calibration: it holds one camera, but right images were given; "
+                         "calibrate both cameras together (dic calibrate --right-images)")
+    left_items = list(images)
+    right_items = None
+    if right_images is not None:
+        right_items = list(right_images)
+        if len(right_items) != len(left_items):
+            raise InputError(f"right_images: {len(right_items)} right and {len(left_items)} "
+                             "left images; give both cameras' images of the same instants")
+    if right_items is None and cal.plane is not None and options.get("scale") is None:
+        from dic.stereo.plane import plane_scale
+
+        w, h = cal.cameras[0].size        # the specimen plane gives the scale at the centre
+        options["scale"] = float(plane_scale(cal, (w - 1) / 2, (h - 1) / 2))
+    results = track_2d(left_items, out, strain=None, **options)
+    try:
+        first = _image(left_items[int(results.settings.get("reference", 0))])
+        for c, fit in enumerate(cal.cameras[:1 if right_items is None else 2]):
+            if tuple(fit.size) != (first.shape[1], first.shape[0]):
+                raise InputError(f"calibration: camera {c + 1} was calibrated on "
+                                 f"{fit.size[0]}x{fit.size[1]} px images, these are "
+                                 f"{first.shape[1]}x{first.shape[0]}; calibrate with images "
+                                 "of the measuring set-up")
+        text = calibration_text(cal)
+        names = [] if right_items is None else [
+            f"array {k}" if isinstance(it, np.ndarray) else str(it)
+            for k, it in enumerate(right_items)]
+        key = _fingerprint(text, names)
+        from dic.sequence.stereofile import read_stored
+
+        name = "lens" if right_items is None else "stereo"
+        stored = read_stored(out, name)
+        n = len(results)
+        if stored is not None and stored.get("key") == key and int(stored["n_done"]) == n:
+            return results
+        if right_items is None:
+            arrays, attrs, comps, window, measure = _lens(results, cal, strain)
+        else:
+            arrays, attrs, comps, window, measure = _stereo(results, cal, left_items,
+                                                            right_items, strain, max_gap_px)
+        attrs.update(n_done=n, calibration=text, key=key)
+    finally:
+        results.close()
+    from dic.sequence.stereofile import write_group
+    from dic.sequence.writer import ResultsWriter
+
+    write_group(out, name, arrays, attrs)
+    if n:
+        with ResultsWriter.reopen(out) as w:
+            w.write_strain(measure, window, comps, start=0, attrs={"kind": attrs["strain_kind"],
+                                                                   "fit": "plane"})
+    from dic.sequence.reader import Results
+
+    return Results.open(out)
+
+
+def _lens(results, cal, strain):
+    """/lens arrays and the lens-corrected strain of every completed frame."""
+    from dic.sequence.stereofile import corrected_strain
+    from dic.stereo.undistort import undistort_displacements, undistort_points
+
+    window, measure = _strain_spec(strain, LENS_STRAIN)
+    fit = cal.cameras[0]
+    X, Y = results.grid_x, results.grid_y
+    xu, yu = undistort_points(X, Y, fit)
+    n = len(results)
+    ny, nx = X.shape
+    U = np.full((n, ny, nx), np.nan)
+    V = np.full((n, ny, nx), np.nan)
+    comps = {c: np.full((n, ny, nx), np.nan) for c in ("xx", "yy", "xy")}
+    for j in range(n):
+        f = results.field(j)
+        _, _, U[j], V[j] = undistort_displacements(X, Y, f.u, f.v, fit)
+        s = corrected_strain(f, xu, yu, U[j], V[j], window=window, measure=measure)
+        comps["xx"][j], comps["yy"][j], comps["xy"][j] = s.xx, s.yy, s.xy
+    attrs = {"strain_kind": "lens-corrected", "units": "px (ideal pinhole camera)"}
+    arrays = {"x": xu, "y": yu, "u": U, "v": V}
+    if cal.plane is not None:            # millimetres on the specimen plane
+        from dic.stereo.plane import plane_points
+
+        A0, B0 = plane_points(cal, X, Y)
+        arrays.update(X_mm=A0, Y_mm=B0, U_mm=np.full_like(U, np.nan),
+                      V_mm=np.full_like(V, np.nan))
+        for j in range(n):
+            f = results.field(j)
+            A, B = plane_points(cal, X + f.u, Y + f.v)
+            arrays["U_mm"][j], arrays["V_mm"][j] = A - A0, B - B0
+    return arrays, attrs, comps, window, measure
+
+
+def _right_field(left_ref, right_img, stereo, left, settings, roi):
+    from dic.matching import correlate
+
+    both = np.isfinite(left.u) & np.isfinite(stereo.u)
+    if not both.any():
+        return None
+    score = np.where(both, np.nan_to_num(stereo.zncc) + np.nan_to_num(left.zncc), -np.inf)
+    k = np.unravel_index(int(np.argmax(score)), score.shape)
+    seed = (float(stereo.x[k]), float(stereo.y[k]), float(stereo.u[k] + left.u[k]),
+            float(stereo.v[k] + left.v[k]))
+    return correlate(left_ref, right_img, seeds=[seed], roi=roi, **settings)
+
+
+def _stereo(results, cal, left_items, right_items, strain, max_gap_px):
+    """/stereo arrays and the surface strain of every completed frame."""
+    from dic.stereo import StereoReason, grid_points, match_cameras, surface_strain
+
+    window, measure = _strain_spec(strain, STEREO_STRAIN)
+    s = results.settings
+    ref = int(s.get("reference", 0))
+    frames = [int(k) for k in s.get("frames", range(len(left_items)))]
+    opts = {k: s[k] for k in ("subset", "step", "shape_function", "interpolation", "min_zncc")
+            if k in s}
+    if opts.get("shape_function") not in ("affine", "quadratic", "auto"):
+        opts.pop("shape_function", None)
+    roi = results.roi_mask
+    left_ref = _image(left_items[ref])
+    right_ref = _image(right_items[ref])
+    if right_ref.shape != left_ref.shape:
+        raise InputError(f"right_images: {right_ref.shape[1]}x{right_ref.shape[0]} px, the left "
+                         f"images are {left_ref.shape[1]}x{left_ref.shape[0]}; use images of "
+                         "one size")
+    stereo = match_cameras(left_ref, right_ref, cal, roi=roi, **opts)
+    if stereo.u.shape != results.shape or not np.array_equal(stereo.x, results.grid_x):
+        raise InputError("the stereo grid differs from the tracking grid; use the same subset, "
+                         "step and roi")
+    P0, _, why0 = grid_points(cal, stereo, max_gap_px=max_gap_px)
+    n = len(results)
+    ny, nx = results.shape
+    out = {k: np.full((n, ny, nx), np.nan) for k in ("X", "Y", "Z", "U", "V", "W", "right_u",
+                                                      "right_v")}
+    out["gap"] = np.full((n, ny, nx), np.nan, np.float32)
+    out["reason"] = np.zeros((n, ny, nx), np.int8)
+    comps = {c: np.full((n, ny, nx), np.nan) for c in ("xx", "yy", "xy")}
+    apart = {StereoReason.RAYS_APART}
+    for j in range(n):
+        left = results.field(j)
+        if frames[j] == ref and np.allclose(np.nan_to_num(left.u), 0, atol=1e-9):
+            right = stereo
+        else:
+            right = _right_field(left_ref, _image(right_items[frames[j]]), stereo, left, opts,
+                                 roi)
+        why_l = np.asarray(left.reason, np.int8).copy()
+        if right is None:
+            P = np.full((ny, nx, 3), np.nan)
+            gap = np.full((ny, nx), np.nan)
+            why = np.full((ny, nx), StereoReason.LEFT_ONLY, np.int8)
+        else:
+            P, gap, why = grid_points(cal, right, left, max_gap_px=max_gap_px)
+        m = why_l == Reason.MEASURED
+        for w in (why0, why):
+            bad = m & (w != StereoReason.MEASURED)
+            why_l[bad & np.isin(w, list(apart))] = Reason.POOR_TRIANGULATION
+            why_l[bad & ~np.isin(w, list(apart))] = Reason.ONE_CAMERA
+            m = why_l == Reason.MEASURED
+        P = np.where(m[..., None], P, np.nan)
+        out["reason"][j] = why_l
+        out["gap"][j] = gap
+        for c, name in enumerate("XYZ"):
+            out[name][j] = P[..., c]
+            out["UVW"[c]][j] = P[..., c] - P0[..., c]
+        if right is not None:
+            out["right_u"][j], out["right_v"][j] = right.u, right.v
+        E = surface_strain(P0, P, window=window, measure=measure)
+        comps["xx"][j], comps["yy"][j], comps["xy"][j] = E[..., 0, 0], E[..., 1, 1], E[..., 0, 1]
+        log.info("stereo frame %d: %d of %d points in 3-D", j, int(m.sum()), m.size)
+    from dic.sequence.stereofile import FRAME_WORDS
+
+    attrs = {"strain_kind": "surface", "frame": FRAME_WORDS, "units": "mm",
+             "rms_px": float(cal.rms), "baseline_mm": float(cal.baseline),
+             "angle_deg": float(cal.angle_deg), "max_gap_px": float(max_gap_px),
+             "right_images": [str(getattr(it, "name", "array")) if not isinstance(it, np.ndarray)
+                              else "array" for it in right_items],
+             "strain_key": f"{measure}_w{window}"}
+    return out, attrs, comps, window, measure
+
