@@ -7,6 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from dic.metrology._rows import Row, microstrain, pixels
+
 __all__ = ["noise_floor", "NoiseFloor", "COMPONENTS"]
 
 #: the quantities whose noise is reported (xy is tensor shear)
@@ -103,6 +105,48 @@ class NoiseFloor:
         else:
             lines.append("  temporal standard deviation: needs at least three images")
         return "\n".join(lines)
+
+    #: the method, named once wherever the rows are shown
+    METHOD = ("Images of the unloaded specimen were matched against the first of them: nothing "
+              "moved, so every displacement and strain measured is error (the noise-floor "
+              "test of the iDICs Good Practices Guide, 2018).")
+
+    def report_rows(self, scale=None):
+        """The results as rows a person reads: name, value with unit, what it means.
+
+        Parameters
+        ----------
+        scale : float, optional
+            mm per px, to give lengths in mm too.
+
+        Returns
+        -------
+        list of Row
+        """
+        sp = self.spatial
+        rows = [
+            Row("Images of the unloaded specimen", f"{self.n_images}",
+                "Static images matched against the first; the first is the reference."),
+            Row("Displacement noise floor", f"u {pixels(sp['u'], 2, scale)}, "
+                                            f"v {pixels(sp['v'], 2, scale)}",
+                "Scatter of the displacement over the region, averaged over the images.",
+                "displacement noise"),
+            Row("Strain noise floor", f"xx {microstrain(sp['xx'])}, yy {microstrain(sp['yy'])}, "
+                                      f"xy {microstrain(sp['xy'])}",
+                "Scatter of the strain over the region (xy is tensor shear): strains smaller "
+                "than this are not resolved.", "strain noise"),
+            Row("Displacement noise predicted", f"u {pixels(self.predicted[0], 2, scale)}, "
+                                                f"v {pixels(self.predicted[1], 2, scale)}",
+                "The same, predicted from each subset's pattern and the image noise."),
+        ]
+        if self.temporal_rms is not None:
+            t = self.temporal_rms
+            rows.append(Row("Scatter over time", f"u {pixels(t['u'], 2, scale)}, "
+                                                 f"v {pixels(t['v'], 2, scale)}; "
+                                                 f"xx {microstrain(t['xx'])}",
+                            "Per point, the scatter from image to image (root mean square "
+                            "over the points)."))
+        return rows
 
     def as_dict(self) -> dict:
         """Scalars only (maps left out), for reports and files."""

@@ -298,9 +298,22 @@ def _number_text(key, value):
 
 
 def _uncertainty_figures(items):
-    """Noise floors and spatial resolutions picked out of metrology mappings by key words."""
+    """Noise floors and spatial resolutions: from the tagged rows of metrology results, or picked
+    out of plain mappings by key words; each value followed by where it comes from."""
+    kinds = {"displacement noise": "Displacement noise floor",
+             "strain noise": "Strain noise floor", "spatial resolution": "Spatial resolution"}
     found = {}
     for item in items:
+        source = item["title"].lower() or "metrology"
+        for row in item["report_rows"]:
+            if row.kind in kinds:
+                q, label = row.quantity.lower(), kinds[row.kind].lower()
+                rest = q.removeprefix(label).removeprefix(label.removesuffix(" floor"))
+                rest = rest.strip(" ,")
+                text = f"{rest}: {row.value}" if rest else row.value
+                found.setdefault(kinds[row.kind], []).append(f"{text} ({source})")
+        if item["report_rows"]:
+            continue
         for key, value in item["rows"].items():
             k = key.lower()
             if not isinstance(value, (int, float, np.integer, np.floating, list, tuple,
@@ -314,12 +327,19 @@ def _uncertainty_figures(items):
                 label = "Displacement noise floor"
             else:
                 continue
-            found.setdefault(label, []).append(f"{_number_text(key, value)} ({key})")
+            found.setdefault(label, []).append(f"{_number_text(key, value)} ({_label(key)}, "
+                                               f"{source})")
     return {label: "; ".join(texts) for label, texts in found.items()}
 
 
-def _metrology_items(metrology):
-    """Each metrology input as ``{title, rows, summary, figure}``."""
+def _label(key):
+    """A flattened mapping key (``strain_noise / xx``) in words (``Strain noise, xx``)."""
+    parts = [_words(p)[0].replace("_", " ") for p in str(key).split(" / ")]
+    return ", ".join(p if i == 0 else p[:1].lower() + p[1:] for i, p in enumerate(parts))
+
+
+def _metrology_items(metrology, scale=None):
+    """Each metrology input as ``{title, rows, report_rows, method, summary, figure}``."""
     from matplotlib.figure import Figure
 
     objs = list(metrology) if isinstance(metrology, (list, tuple)) else [metrology]
@@ -334,39 +354,58 @@ def _metrology_items(metrology):
                 raise
             mapping = {}
         rows = {k: v for k, v in _flatten(mapping).items() if _is_short(v)}
+        described = getattr(obj, "report_rows", None)
+        described = list(described(scale=scale)) if callable(described) else []
         fig = getattr(obj, "figure", None)
         if callable(fig) and not isinstance(fig, Figure):
             fig = fig()  # a metrology result's figure() takes no arguments
         name = type(obj).__name__
         title = "" if isinstance(obj, Mapping) else " ".join(
             re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize()
-        items.append({"title": title, "rows": rows,
+        items.append({"title": title, "rows": rows, "report_rows": described,
+                      "method": str(getattr(obj, "METHOD", "")),
                       "summary": summary if isinstance(summary, str) else "",
                       "figure": fig if isinstance(fig, Figure) else None})
     return items
 
 
+def _plain_value(key, value):
+    """A value of a plain metrology mapping as text, or None when there is nothing to show."""
+    if isinstance(value, str):
+        value = value.strip()
+        return value if value.strip(" ,;<>=-") else None
+    if isinstance(value, (list, tuple)) and all(isinstance(v, str) for v in value):
+        kept = [v.strip() for v in value if v.strip(" ,;<>=-")]
+        return ", ".join(kept) if kept else None
+    return _number_text(key, value)
+
+
 def _uncertainty(items):
-    blocks = [Paragraph("As assessed by the noise measurements and self-check supplied with "
-                        "this report. The noise floor is the scatter of a quantity measured "
-                        "with no deformation; the spatial resolution is the shortest "
-                        "wavelength of a displacement or strain pattern that is still measured "
-                        "without more than 10 % loss of amplitude (iDICs 2018; Reu et al., "
-                        "Exp. Mech. 62 (2022) 639).")]
+    blocks = [Paragraph("The noise floor is the scatter of a quantity measured with no "
+                        "deformation; the spatial resolution is the shortest wavelength of a "
+                        "displacement or strain pattern that is still measured with at most "
+                        "10 % loss of amplitude.")]
     for item in items:
-        if item["summary"]:
-            for line in item["summary"].splitlines():
-                if line.strip():
-                    blocks.append(Paragraph(line.strip(), "note"))
-        rows = []
-        for key, value in item["rows"].items():
-            label, _ = _words(key.rsplit(" / ", 1)[-1])
-            if " / " in key:
-                label = f"{key.rsplit(' / ', 1)[0]} / {label}"
-            rows.append((label, _number_text(key, value)))
-        if rows:
-            blocks.append(Table(rows=rows, header=("Quantity", "Value"),
+        if item["report_rows"]:
+            if item["method"]:
+                blocks.append(Paragraph(item["method"], "note"))
+            blocks.append(Table(rows=[(r.quantity, r.value, r.meaning)
+                                      for r in item["report_rows"]],
+                                header=("Quantity", "Value", "What it means"),
                                 caption=item["title"]))
+        else:
+            if item["summary"]:
+                for line in item["summary"].splitlines():
+                    if line.strip():
+                        blocks.append(Paragraph(line.strip(), "note"))
+            rows = []
+            for key, value in item["rows"].items():
+                text = _plain_value(key, value)
+                if text:
+                    rows.append((_label(key), text))
+            if rows:
+                blocks.append(Table(rows=rows, header=("Quantity", "Value"),
+                                    caption=item["title"]))
         if item["figure"] is not None:
             blocks.append(_figure(item["figure"], f"{item['title'] or 'Metrology'}: measured "
                                                   f"and expected behaviour.",
@@ -672,7 +711,7 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
                          f"e.g. window=9")
     chosen = frame_indices(_default_frames(n) if frames is None else frames, n)
     gauges = gauge_items(gauges) if gauges is not None else None
-    metro = _metrology_items(metrology) if metrology is not None else []
+    metro = _metrology_items(metrology, res.scale) if metrology is not None else []
 
     # one pass over the frames: colour limits of every map component
     tops = {c: 0.0 for c in MAP_COMPONENTS}
