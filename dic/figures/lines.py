@@ -9,9 +9,9 @@ import math
 
 import numpy as np
 
-from dic.figures.common import check_size, display_unit, is_results
+from dic.figures.common import MEASURE_TITLES, check_size, display_unit, is_results
 
-__all__ = ["PLAIN_STRAIN_UNITS", "curve_figure", "gauge_items", "history_figure",
+__all__ = ["PLAIN_STRAIN_UNITS", "curve_figure", "gauge_items", "gauge_words", "history_figure",
            "stress_strain_figure", "valid_counts", "valid_points_plot"]
 
 #: units of a gauge history that mean a plain strain number (shown in %)
@@ -72,6 +72,31 @@ def gauge_items(gauges):
     return out
 
 
+def gauge_words(name):
+    """A history column's code name in words: ``axial.green-lagrange`` -> ``axial gauge,
+    Green-Lagrange strain``; ``transverse.length`` -> ``transverse gauge, length``.
+
+    Parameters
+    ----------
+    name : str
+
+    Returns
+    -------
+    str
+    """
+    text = str(name)
+    gauge, dot, what = text.partition(".")
+    if not dot:
+        return text.replace("_", " ")
+    what = what.replace("_", " ")
+    key = what.lower().strip()
+    if key in MEASURE_TITLES:
+        what = f"{MEASURE_TITLES[key]} strain"
+    elif key in ("xx", "yy", "xy", "major", "minor"):
+        what = f"mean strain {key}"
+    return f"{gauge.replace('_', ' ')} gauge, {what}"
+
+
 def history_figure(gauges, *, times=None, title=None, figsize=None):
     """Plot the readings of gauges (lines, areas, point probes) frame by frame.
 
@@ -116,21 +141,29 @@ def history_figure(gauges, *, times=None, title=None, figsize=None):
                              f"values; give one value per frame")
         unit = str(getattr(g, "unit", "") or "").strip()
         plain = unit.lower() in PLAIN_STRAIN_UNITS
-        key = "strain (%)" if plain else unit
-        groups.setdefault(key, []).append((name, frames, values * (100.0 if plain else 1.0)))
+        # one panel per gauge and unit: a long and a short gauge on one axis would hide the
+        # smaller one's change
+        gauge = name.partition(".")[0] if "." in name else ""
+        key = (gauge, "strain (%)" if plain else unit)
+        groups.setdefault(key, []).append((gauge_words(name), frames,
+                                           values * (100.0 if plain else 1.0)))
     fig, axes = _line_figure(figsize, rows=len(groups),
-                             default=(8.0, 1.0 + 3.2 * len(groups)))
+                             default=(8.0, 1.0 + 2.4 * len(groups)))
     xlabel = "frame"
-    for ax, (unit, lines) in zip(axes, groups.items()):
+    for ax, ((gauge, unit), lines) in zip(axes, groups.items()):
         for name, frames, values in lines:
             x, xlabel = _frame_axis(frames, times)
             ax.plot(x, values, marker="o" if values.size <= 60 else None, markersize=3,
-                    linewidth=1.4, label=name)
+                    linewidth=1.4, label=name.removeprefix(f"{gauge} gauge, ") if gauge
+                    else name)
         ax.set_ylabel(unit)
+        if gauge:
+            ax.set_title(f"{gauge.replace('_', ' ').capitalize()} gauge", fontsize=9,
+                         loc="left")
         ax.grid(True, linewidth=0.4, alpha=0.6)
         ax.legend(fontsize=8, loc="best")
     axes[-1].set_xlabel(xlabel)
-    axes[0].set_title(title if title is not None else "Gauge readings", fontsize=11)
+    fig.suptitle(title if title is not None else "Gauge readings", fontsize=11)
     return fig
 
 

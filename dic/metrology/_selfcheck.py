@@ -359,7 +359,8 @@ class SelfCheck:
             Row("Strain bias under stretch",
                 f"xx {microstrain(st['bias'][0])}, yy {microstrain(st['bias'][1])}",
                 f"Mean strain error under a known stretch of "
-                f"{number(100 * st['applied'][0])} % by {number(100 * st['applied'][1])} %."),
+                f"{number(100 * st['applied'][0])} % along x and {number(100 * st['applied'][1])} % "
+                f"along y."),
             Row("Spatial resolution, displacement",
                 beyond[fu] + pixels(self.resolution_u, 3, scale),
                 f"Shortest wavelength of a displacement pattern measured with at most 10 % "

@@ -16,7 +16,7 @@ from dic import __version__
 from dic.figures.common import (MEASURE_TITLES, display_unit, find_image, frame_indices,
                                 limits_from_top, quantity_values, robust_top)
 from dic.figures.layers import gauge_shapes, grid_view
-from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure,
+from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, gauge_words, history_figure,
                                stress_strain_figure, valid_counts, valid_points_plot)
 from dic.figures.maps import measure_comparison, quality_map, strain_map
 from dic.tensile.results import TensileResults
@@ -52,6 +52,8 @@ CAUTIONS = (
 FIGURE_DPI = 120
 #: largest number of frames listed one by one in the data-quality table
 _MAX_ROWS = 60
+#: opacity of the strain maps over the specimen image: strain reads first, the image faintly
+MAP_OPACITY = 0.9
 #: strain components drawn at every chosen frame (xy is tensor shear)
 MAP_COMPONENTS = ("xx", "yy", "xy")
 
@@ -419,17 +421,21 @@ def _frame_label(res, k):
     return f"frame {k} ({name}" + (f", t = {t:.4g} s" if math.isfinite(t) else "") + ")"
 
 
-def _maps(res, info, chosen, shapes):
+def _maps(res, info, chosen, shapes, shared=True):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
+    scale_text = ("Each component keeps the same colour scale in every frame (the 99.5th "
+                  "percentile of its absolute value over all frames analysed), so frames "
+                  "compare; values beyond it take the end colours." if shared else
+                  "Each map has its own colour scale (the 99.5th percentile of its absolute "
+                  "value), so that small strains in early frames show; compare frames by "
+                  "their colour bars, not their colours.")
     blocks = [Paragraph(
         f"Strain components xx, yy and xy (tensor shear) at {len(chosen)} frame"
         f"{'s' if len(chosen) > 1 else ''}, {info['measure_title']} strain, VSG "
-        f"{_fmt(info['vsg'])} px. Each component keeps the same colour scale in every frame "
-        f"(the 99.5th percentile of its absolute value over all frames analysed); values "
-        f"beyond it take the end colours. Red is extension, blue contraction. Areas left "
-        f"blank were not measured.")]
+        f"{_fmt(info['vsg'])} px. {scale_text} Red is extension, blue contraction; the "
+        f"specimen image shows faintly underneath. Areas left blank were not measured.")]
     ref_image = find_image(res, None)
     for k in chosen:
         s = res.strain(k, window=info["window"], measure=info["measure"])
@@ -451,7 +457,8 @@ def _maps(res, info, chosen, shapes):
         axes = fig.subplots(3, 1) if wide else fig.subplots(1, 3)
         for ax, comp in zip(axes, MAP_COMPONENTS):
             strain_map(s, img, component=comp, field=field, configuration=config, ax=ax,
-                       limits=info["limits"][comp], units=info["units"][comp],
+                       limits=info["limits"][comp] if shared else None,
+                       units=info["units"][comp] if shared else "auto", alpha=MAP_OPACITY,
                        scale=res.scale, gauges=shapes, crop=True,
                        title=f"{comp}" + (" (tensor shear)" if comp == "xy" else ""))
         fig.suptitle(f"{info['measure_title']} strain, {_frame_label(res, k)}", fontsize=11)
@@ -490,7 +497,7 @@ def _measures(res, info, k):
     return [_figure(fig, text, f"Strain {comp} in three measures and the nonlinear share")]
 
 
-def _gauges(res, gauges):
+def _gauges(res, gauges, shapes=()):
     fig = history_figure(gauges, times=np.asarray(res.image_times[:len(res)]))
     rows = []
     for g in gauges:
@@ -502,9 +509,17 @@ def _gauges(res, gauges):
         ok = np.isfinite(values)
         last = _with_unit(values[ok][-1] * f, u) if ok.any() else "no reading"
         big = _with_unit(np.max(np.abs(values[ok])) * f, u) if ok.any() else "\u2013"
-        rows.append((str(g.name), f"{int(ok.sum())} of {frames.size}", last, big))
-    return [_figure(fig, "Gauge readings frame by frame (gauges drawn on the strain maps "
-                         "where they carry their geometry).", "Gauge readings"),
+        name = gauge_words(g.name)
+        rows.append((name[:1].upper() + name[1:], f"{int(ok.sum())} of {frames.size}", last,
+                     big))
+    where = "; ".join(
+        f"{s['label'].split(' ')[0].lower()} gauge from ({_fmt(s['ends_mm'][0][0])}, "
+        f"{_fmt(s['ends_mm'][0][1])}) to ({_fmt(s['ends_mm'][1][0])}, "
+        f"{_fmt(s['ends_mm'][1][1])}) mm" for s in shapes if s.get("ends_mm"))
+    caption = ("Gauge readings frame by frame, one panel per gauge and quantity"
+               + (f"; {where} (x to the right, y down, from the top-left pixel), drawn on "
+                  f"the strain maps." if where else "."))
+    return [_figure(fig, caption, "Gauge readings"),
             Table(rows=rows, header=("Gauge", "Frames read", "Last reading",
                                      "Largest magnitude"))]
 
@@ -693,7 +708,8 @@ def _gauge_geometry(gauges):
 
 
 def build_document(res, *, frames=None, window=9, measure="green-lagrange", gauges=None,
-                   tensile=None, metrology=None, title=None):
+                   tensile=None, metrology=None, title=None, gauge_lines=None,
+                   map_scale="shared"):
     """The report of an open results file as a :class:`Document`.
 
     Parameters are those of :func:`dic.report.write_report` (``res`` opened).
@@ -709,6 +725,9 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
             or window % 2 == 0:
         raise ValueError(f"window: {window!r} is not an odd whole number of at least 3; use "
                          f"e.g. window=9")
+    if map_scale not in ("shared", "per-frame"):
+        raise ValueError(f"limits: {map_scale!r} is not known; use 'shared' (one colour scale "
+                         f"for all frames) or 'per-frame'")
     chosen = frame_indices(_default_frames(n) if frames is None else frames, n)
     gauges = gauge_items(gauges) if gauges is not None else None
     metro = _metrology_items(metrology, res.scale) if metrology is not None else []
@@ -734,7 +753,7 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
                 measure_title=MEASURE_TITLES[measure], limits=limits, units=units,
                 vsg=vsg, fit=fit, updates=np.asarray(res.reference_updates, dtype=np.int64),
                 reference_name=ref_name)
-    shapes = _gauge_geometry(gauges)
+    shapes = _gauge_geometry(gauges) + [dict(g) for g in (gauge_lines or ())]
 
     if title is None:
         stem = res.path.stem
@@ -755,10 +774,10 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
     add("settings", _settings(res, info, metro))
     if metro:
         add("uncertainty", _uncertainty(metro))
-    add("maps", _maps(res, info, chosen, shapes))
+    add("maps", _maps(res, info, chosen, shapes, shared=map_scale == "shared"))
     add("measures", _measures(res, info, chosen[-1]))
     if gauges:
-        add("gauges", _gauges(res, gauges))
+        add("gauges", _gauges(res, gauges, shapes))
     if tensile is not None:
         add("tensile", _tensile(tensile))
     add("quality", _quality(res, info, chosen[-1]))
