@@ -207,6 +207,23 @@ def test_pdf_holds_the_report(full_report):
     assert b"Coupon A7" in data  # document title in the metadata (uncompressed)
 
 
+def test_pdf_leaves_no_heading_alone_at_a_page_foot(full_report):
+    # the text of every page as poppler's pdftotext reads it (Debian package poppler-utils)
+    exe = shutil.which("pdftotext")
+    if exe is None:
+        pytest.skip("pdftotext is not installed (Debian: apt-get install -y poppler-utils)")
+    _, pdf = full_report
+    text = subprocess.run([exe, "-layout", str(pdf), "-"], capture_output=True, text=True,
+                          check=True).stdout
+    pages = [p for p in text.split("\f") if p.strip()]
+    assert len(pages) >= 4
+    for k, page in enumerate(pages, 1):
+        lines = [ln.strip() for ln in page.splitlines()
+                 if re.search(r"[A-Za-z]", ln) and not re.search(r"page \d+\s*$", ln)]
+        # a section heading ("4. Strain maps") as the last line of a page is alone at its foot
+        assert not re.fullmatch(r"\d+\. [A-Z][a-z ]+", lines[-1]), (k, lines[-1])
+
+
 # --------------------------------------------------------------------------------------------
 # in a browser
 # --------------------------------------------------------------------------------------------

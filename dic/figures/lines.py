@@ -18,15 +18,18 @@ __all__ = ["PLAIN_STRAIN_UNITS", "curve_figure", "gauge_items", "gauge_words", "
 PLAIN_STRAIN_UNITS = ("", "1", "-", "strain", "mm/mm", "m/m")
 
 
-def _line_figure(figsize, rows=1, default=(8.0, 4.5)):
+def _line_figure(figsize, rows=1, default=(8.0, 4.5), cols=None):
+    """A figure with ``rows`` axes sharing x; with ``cols``, a grid (list of rows) instead."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=check_size(default if figsize is None else figsize, "figsize"),
                  layout="constrained")
     FigureCanvasAgg(fig)
-    axes = fig.subplots(rows, 1, sharex=True, squeeze=False)[:, 0]
-    return fig, list(axes)
+    grid = fig.subplots(rows, cols or 1, sharex=True, squeeze=False)
+    if cols is None:
+        return fig, list(grid[:, 0])
+    return fig, [list(r) for r in grid]
 
 
 def _frame_axis(frames, times):
@@ -147,8 +150,17 @@ def history_figure(gauges, *, times=None, title=None, figsize=None):
         key = (gauge, "strain (%)" if plain else unit)
         groups.setdefault(key, []).append((gauge_words(name), frames,
                                            values * (100.0 if plain else 1.0)))
-    fig, axes = _line_figure(figsize, rows=len(groups),
-                             default=(8.0, 1.0 + 2.4 * len(groups)))
+    names = list(dict.fromkeys(g for g, _ in groups))
+    units = list(dict.fromkeys(u for _, u in groups))
+    if len(names) > 1 and all(g for g in names) and len(groups) == len(names) * len(units):
+        # gauges side by side, one row per quantity: each with its own axis
+        fig, grid = _line_figure(figsize, rows=len(units), cols=len(names),
+                                 default=(8.0, 1.0 + 2.6 * len(units)))
+        axes = [grid[units.index(u)][names.index(g)] for g, u in groups]
+    else:
+        fig, axes = _line_figure(figsize, rows=len(groups),
+                                 default=(8.0, 1.0 + 2.4 * len(groups)))
+        grid = [[ax] for ax in axes]
     xlabel = "frame"
     for ax, ((gauge, unit), lines) in zip(axes, groups.items()):
         for name, frames, values in lines:
@@ -162,7 +174,8 @@ def history_figure(gauges, *, times=None, title=None, figsize=None):
                          loc="left")
         ax.grid(True, linewidth=0.4, alpha=0.6)
         ax.legend(fontsize=8, loc="best")
-    axes[-1].set_xlabel(xlabel)
+    for ax in grid[-1]:
+        ax.set_xlabel(xlabel)
     fig.suptitle(title if title is not None else "Gauge readings", fontsize=11)
     return fig
 

@@ -628,8 +628,9 @@ def _tensile(tensile):
             else:
                 blocks.append(Table(rows=[r[:3] for r in rows],
                                     header=("Quantity", "Value", "Standard")))
-        blocks += [Paragraph(n, "note") for n in notes]
-        blocks += [Paragraph(c, "caution") for c in cautions]
+    else:
+        notes, cautions = [], []
+    # the curve right after its table, so that the two stay together on a page
     fig = _tensile_figure(tensile)
     if fig is not None:
         blocks.append(_figure(fig, "Stress-strain curve with the fitted lines.",
@@ -637,6 +638,8 @@ def _tensile(tensile):
     else:
         blocks.append(Paragraph("No stress-strain curve is drawn: the tensile input gives "
                                 "values only, without the measured curve.", "note"))
+    blocks += [Paragraph(n, "note") for n in notes]
+    blocks += [Paragraph(c, "caution") for c in cautions]
     return blocks
 
 
