@@ -636,15 +636,26 @@ def _measured_share(path):
     import h5py
     import numpy as np
 
+    import json
+
+    from dic.field import Reason
+
     with h5py.File(path, "r", locking=False) as f:
         n = int(f["n_done"][()])
         if not n:
             return None
         reason = f["frames/reason"]
-        total = int(np.prod(reason.shape[1:]))
-        share = np.array([np.count_nonzero(reason[k] == 0) / total for k in range(n)])
+        st = json.loads(f.attrs.get("settings", "{}"))
+        frames, ref = list(st.get("frames", [])), st.get("reference", 0)
+        k_ref = frames.index(ref) if ref in frames and frames.index(ref) < n else 0
+        # grid points whose subset leaves the ROI or the reference image: never measurable
+        can = ~np.isin(reason[k_ref], (int(Reason.OUTSIDE_ROI), int(Reason.OUTSIDE_IMAGE)))
+        total = max(int(can.sum()), 1)
+        never = int(can.size - can.sum())
+        share = np.array([np.count_nonzero((reason[k] == 0) & can) / total for k in range(n)])
     lo, hi = int(np.argmin(share)), int(np.argmax(share))
-    return (f"measured points per frame (of {total}): lowest {100 * share[lo]:.1f} % "
+    return (f"measured points per frame (of the {total} that can be measured; {never} more "
+            f"grid points never can): lowest {100 * share[lo]:.1f} % "
             f"(frame {lo}), median {100 * np.median(share):.1f} %, highest "
             f"{100 * share[hi]:.1f} % (frame {hi})")
 

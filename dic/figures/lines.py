@@ -247,7 +247,8 @@ def valid_counts(results):
     counts : ndarray of int, shape (n_frames_done,)
         Measured points in each completed frame.
     total : int
-        Points inside the region of interest (grid points whose subset lies in it).
+        Points that can be measured: grid points whose subset lies inside the region of
+        interest and inside the reference image (read from the reference frame, else frame 0).
     median_zncc : ndarray of float
         Median ZNCC of the measured points per frame (NaN where none).
     """
@@ -257,11 +258,15 @@ def valid_counts(results):
     counts = np.zeros(n, dtype=np.int64)
     median = np.full(n, np.nan)
     total = int(np.prod(results.shape))
+    st = getattr(results, "settings", {}) or {}
+    frames, ref = list(st.get("frames", [])), st.get("reference", 0)
+    k_ref = frames.index(ref) if ref in frames and frames.index(ref) < n else 0
+    never = (int(Reason.OUTSIDE_ROI), int(Reason.OUTSIDE_IMAGE))
     for k in range(n):
         f = results.field(k)
         counts[k] = f.n_valid
-        if k == 0:
-            total = int(np.count_nonzero(f.reason != Reason.OUTSIDE_ROI))
+        if k == k_ref:
+            total = int(np.count_nonzero(~np.isin(f.reason, never)))
         z = f.zncc[f.valid]
         z = z[np.isfinite(z)]
         if z.size:
@@ -367,9 +372,11 @@ def stress_strain_figure(res, *, ax=None, strain_unit="%"):
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
 
-        fig = Figure(figsize=(11.0, 5.0), layout="constrained")
+        # the whole curve at full width above, its start below: large enough to read on a
+        # page, legend included
+        fig = Figure(figsize=(8.0, 6.0), layout="constrained")
         FigureCanvasAgg(fig)
-        ax, zoom = fig.subplots(1, 2, width_ratios=[3, 2])
+        ax, zoom = fig.subplots(2, 1, height_ratios=[3, 2])
         _draw_tensile(res, ax, strain_unit, legend=True)
         _draw_tensile(res, zoom, strain_unit, legend=False)
         _zoom_to_yield(res, zoom, strain_unit)
@@ -439,4 +446,4 @@ def _draw_tensile(res, ax, strain_unit, *, legend):
     ax.set_ylabel("Stress (MPa)")
     ax.grid(True, alpha=0.3)
     if legend:
-        ax.legend(fontsize="small", loc="lower right")
+        ax.legend(fontsize=10, loc="lower right")

@@ -106,6 +106,8 @@ class NoiseFloor:
             lines.append("  temporal standard deviation: needs at least three images")
         return "\n".join(lines)
 
+    #: what the result is called in a report
+    TITLE = "Noise floor"
     #: the method, named once wherever the rows are shown
     METHOD = ("Images of the unloaded specimen were matched against the first of them: nothing "
               "moved, so every displacement and strain measured is error (the noise-floor "

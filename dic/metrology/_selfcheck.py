@@ -313,6 +313,8 @@ class SelfCheck:
         ]
         return "\n".join(lines)
 
+    #: what the result is called in a report
+    TITLE = "Self-check of the settings"
     #: the method, named once wherever the rows are shown
     METHOD = ("The analysis settings were run on this test's own reference image under exactly "
               "known motion: subpixel shifts, a uniform stretch, and a sine wave whose period "

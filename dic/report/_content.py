@@ -362,8 +362,8 @@ def _metrology_items(metrology, scale=None):
         if callable(fig) and not isinstance(fig, Figure):
             fig = fig()  # a metrology result's figure() takes no arguments
         name = type(obj).__name__
-        title = "" if isinstance(obj, Mapping) else " ".join(
-            re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize()
+        title = "" if isinstance(obj, Mapping) else str(getattr(obj, "TITLE", "") or " ".join(
+            re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize())
         items.append({"title": title, "rows": rows, "report_rows": described,
                       "method": str(getattr(obj, "METHOD", "")),
                       "summary": summary if isinstance(summary, str) else "",
@@ -652,7 +652,9 @@ def _quality(res, info, k_last):
     share = 100.0 * counts / total
     worst = int(np.argmin(counts))
     blocks = [Paragraph(
-        f"Measured points per frame out of {total} inside the region of interest: "
+        f"Measured points per frame out of the {total} that can be measured (grid points "
+        f"whose subset lies inside the region of interest and the reference image; "
+        f"{int(np.prod(res.shape)) - total} others never can): "
         f"{int(counts.min())} to {int(counts.max())} ({share.min():.1f} % to "
         f"{share.max():.1f} %), fewest at frame {worst}. A point counts as measured when its "
         f"subset matched with a ZNCC of at least {_fmt(res.settings.get('min_zncc'))}; every "
@@ -671,7 +673,8 @@ def _quality(res, info, k_last):
         text = "; ".join(f"{Reason.describe(Reason[k.upper()])}: {v}"
                          for k, v in reasons.items())
         blocks.append(Paragraph(f"Points not measured at frame {k_last} (inside the region of "
-                                f"interest), by reason: {text}.", "note"))
+                                f"interest), by reason: {text}. Points whose subset leaves the "
+                                f"reference image are among them in every frame.", "note"))
     shown = range(n) if n <= _MAX_ROWS else sorted(
         set(np.argsort(counts)[:_MAX_ROWS // 2].tolist()) | set(info["updates"].tolist()))
     refs = np.asarray(res.reference_indices)

@@ -25,9 +25,9 @@ _INK, _MUTED, _ACCENT, _WARN = "#1b1f24", "#5b6470", "#1f4e79", "#8a4b08"
 
 def _shrink(h):
     """Share of its height a figure ``h`` inches tall may shrink to, to fit the room left on a
-    page: tall figures (stacked maps) to 60 %, others to 85 % so that their text stays
+    page: tall figures (stacked maps, over 6 inches) to 60 %, others to 85 % so that their text stays
     readable."""
-    return 0.6 if h > 5.0 else 0.85
+    return 0.6 if h > 6.0 else 0.85
 
 # average advance of a DejaVu Sans character, in em (measured on English text; rough)
 _CHAR_EM = 0.55
@@ -266,7 +266,7 @@ def render_pdf(doc, path):
         for i, s in enumerate(doc.sections, 1):
             blocks = list(s.blocks)
             need = _keep(blocks, 0)
-            if len(blocks) > 1 and isinstance(blocks[0], Paragraph) and need < 1.0:
+            if len(blocks) > 1 and isinstance(blocks[0], Paragraph) and need < 2.0:
                 need += _keep(blocks, 1)  # a short lead-in stays with what it introduces
             pages.heading(f"{i}. {s.title}", need=need)
             for j, b in enumerate(blocks):
