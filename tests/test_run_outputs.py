@@ -35,6 +35,10 @@ def test_every_table_reads_into_numbers_with_pandas_defaults(demo, tmp_path):
     assert main(["export", str(demo / "results.h5"), "--out", str(tmp_path / "exp"), "--frames", "5"]) == 0
     tables = sorted(demo.glob("*.csv")) + sorted((tmp_path / "exp").glob("*.csv"))
     names = {p.name for p in tables}
+    # one map per image but the reference: the axial strain (not the displacement magnitude)
+    assert sorted(p.name for p in demo.glob("strain_coupon_*.png")) == [
+        f"strain_coupon_{k:03d}.png" for k in range(1, 24)]
+    assert not list(demo.glob("displacements_*.png"))
     assert {"gauges.csv", "tensile.csv", "displacements_coupon_005.csv",
             "frame_0005.csv"} <= names
     for p in tables:

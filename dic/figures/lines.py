@@ -283,8 +283,8 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
     source : dic.sequence.Results or array_like of int
         A results file, or the counts themselves (one per frame, from frame 0).
     total : int, optional
-        Points that could have been measured (inside the region of interest); taken from the
-        results file when ``source`` is one.
+        Points that could have been measured (inside the region of interest and the
+        reference image); taken from the results file when ``source`` is one.
     reference_updates : sequence of int, optional
         Frames where the reference image changed, marked with dotted lines; taken from the
         results file when ``source`` is one.
@@ -317,7 +317,7 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
     ax.plot(x, counts, marker="o" if counts.size <= 60 else None, markersize=3,
             color="#1f4e79", linewidth=1.4, label="measured points")
     ax.axhline(total, color="0.4", linewidth=0.9, linestyle="-",
-               label=f"inside the region of interest ({int(total)})")
+               label=f"points that can be measured ({int(total)})")
     for i, k in enumerate(reference_updates if reference_updates is not None else ()):
         if 0 <= int(k) < counts.size:
             ax.axvline(x[int(k)], color="#b35806", linestyle=":", linewidth=1.2,
@@ -327,7 +327,7 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
     ax.set_ylabel("measured points")
     sec = ax.secondary_yaxis("right", functions=(lambda c: 100.0 * c / total,
                                                  lambda p: p * total / 100.0))
-    sec.set_ylabel("% of the region of interest")
+    sec.set_ylabel("% of the points that can be measured")
     ax.grid(True, linewidth=0.4, alpha=0.6)
     ax.legend(fontsize=8, loc="lower left")
     ax.set_title(title if title is not None else "Measured points per frame", fontsize=11)
