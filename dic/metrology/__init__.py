@@ -16,7 +16,7 @@ noise_floor
     Spatial and temporal noise of displacement and strain from images of the unloaded specimen.
 point_sigma, predicted_sigma
     Predicted standard deviation of u and v from each subset's Hessian and the image noise
-    (what :func:`dic.correlate` stores as ``sigma_u``, ``sigma_v``).
+    (what :func:`dic.correlate` stores as ``std_u``, ``std_v``).
 self_check
     The user's settings run on the user's reference image under exactly known motion: bias,
     noise, strain noise, spatial resolution, metrological efficiency.

@@ -63,7 +63,7 @@ class NoiseFloor:
     temporal_rms : dict or None
         Root mean square of each temporal map over its points.
     predicted : (float, float)
-        Root mean square of the per-point predicted ``sigma_u``, ``sigma_v`` (px) of the
+        Root mean square of the per-point predicted ``std_u``, ``std_v`` (px) of the
         fields, to set against ``spatial["u"]``, ``spatial["v"]``.
     n_points : int
         Grid points measured in every image.
@@ -247,8 +247,8 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
             temporal[c] = t
             temporal_rms[c] = (float(np.sqrt(np.mean(t[every] ** 2))) if every.any()
                                else float("nan"))
-    su = np.concatenate([f.sigma_u[f.valid] for f in fields if f.sigma_u is not None])
-    sv = np.concatenate([f.sigma_v[f.valid] for f in fields if f.sigma_v is not None])
+    su = np.concatenate([f.std_u[f.valid] for f in fields if f.std_u is not None])
+    sv = np.concatenate([f.std_v[f.valid] for f in fields if f.std_v is not None])
     predicted = (float(np.sqrt(np.nanmean(su ** 2))) if su.size else float("nan"),
                  float(np.sqrt(np.nanmean(sv ** 2))) if sv.size else float("nan"))
     all_valid = np.all([f.valid for f in fields], axis=0)

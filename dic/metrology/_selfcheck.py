@@ -108,8 +108,8 @@ def subsample(f, m):
         reason=f.reason[s], iterations=f.iterations[s],
         grad2=None if f.grad2 is None else f.grad2[s],
         settings=dict(f.settings, step=f.step * m),
-        sigma_u=None if f.sigma_u is None else f.sigma_u[s],
-        sigma_v=None if f.sigma_v is None else f.sigma_v[s])
+        std_u=None if f.std_u is None else f.std_u[s],
+        std_v=None if f.std_v is None else f.std_v[s])
 
 
 def _full_window(strain, window):
@@ -236,7 +236,7 @@ class SelfCheck:
     displacement_noise : (float, float)
         Standard deviation of (u, v) with no motion, only image noise.
     predicted_noise : (float, float)
-        Root mean square of the per-point ``sigma_u``, ``sigma_v`` of that field.
+        Root mean square of the per-point ``std_u``, ``std_v`` of that field.
     strain_noise : dict
         Standard deviation of ``xx``, ``yy``, ``xy`` with no motion.
     stretch : dict
@@ -521,8 +521,8 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     strain_noise = {c: float(np.std(getattr(e0, c)[v0])) if v0.any() else float("nan")
                     for c in ("xx", "yy", "xy")}
     disp_noise = (float(np.std(field0.u[ok0])), float(np.std(field0.v[ok0])))
-    pred = (float(np.sqrt(np.nanmean(field0.sigma_u[ok0] ** 2))),
-            float(np.sqrt(np.nanmean(field0.sigma_v[ok0] ** 2))))
+    pred = (float(np.sqrt(np.nanmean(field0.std_u[ok0] ** 2))),
+            float(np.sqrt(np.nanmean(field0.std_v[ok0] ** 2))))
 
     # 2. homogeneous stretch about the centre of the crop
     exx, eyy = (float(a) for a in stretch)

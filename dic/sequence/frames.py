@@ -141,7 +141,7 @@ def compose_increment(base: DisplacementField, inc: DisplacementField, dx, dy):
     reason = np.where(base.valid, inc.reason, base.reason).astype(np.int8)
     nan = np.nan
     sig = {}
-    for name in ("sigma_u", "sigma_v"):
+    for name in ("std_u", "std_v"):
         a, b = getattr(base, name), getattr(inc, name)
         if a is not None and b is not None:
             # independent errors of the base and of the increment add in quadrature

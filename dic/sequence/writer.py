@@ -23,7 +23,7 @@ from dic.sequence.h5file import load_h5py, one_line, open_h5
 from dic.sequence.layout import (FIX_IMAGES, FIX_SETTINGS, FIX_SPACE, FORMAT, FORMAT_VERSION,
                                  STRAIN_COMPONENTS, TIME_FORMAT_LEN, WRITE_KW, add_grad2,
                                  build_strain_group, fixed_dataset, frame_layout, group_attrs,
-                                 now_utc, read_field, read_format, set_attrs)
+                                 now_utc, read_field, read_format, set_attrs, stored_name)
 
 __all__ = ["ResultsWriter", "open_for_writing"]
 
@@ -453,7 +453,7 @@ class ResultsWriter:
         try:
             fr = f["frames"]
             for name, a in arrays.items():
-                fr[name][k] = a
+                fr[stored_name(fr, name)][k] = a  # an older file's name where it has one
             fr["reference"][k] = np.int32(reference_index)
             fr["reference_update"][k] = np.uint8(self._pending_update == k)
             fr["finished"][k] = np.bytes_(now_utc(ms=True))
