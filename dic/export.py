@@ -9,11 +9,13 @@ Whole results files (displacements and strain, frame by frame)
     structured grid per frame plus a ``.pvd`` collection file (:func:`results_to_vtk`).
 
 CSV files hold one row per grid point (row-major over the grid, ``y`` outer, ``x`` inner). The
-first line is the column names; the next line is a comment (``#``) with the analysis settings,
-so the file reads back with ``numpy.genfromtxt(path, delimiter=",", names=True, comments="#")``
-and with spreadsheet or pandas readers that skip ``#`` lines. Unmeasured points are ``nan`` in
-every number column and keep their reason code (:class:`dic.field.Reason`). Strain shear
-``xy`` is TENSOR shear, half the engineering shear angle, in every format.
+first line is the column names, each with its unit (``u_px``, ``u_mm``; strain columns are plain
+numbers, 0.01 = 1 %); every other line is numbers, so ``pandas.read_csv(path)`` and
+``numpy.genfromtxt(path, delimiter=",", names=True)`` read every column as numbers. What the
+numbers are (software, image, settings, strain measure) is in a sidecar JSON file of the same
+name (``frame_0003.csv`` -> ``frame_0003.json``; :func:`sidecar_path`). Unmeasured points are
+``nan`` in every number column and keep their reason code (:class:`dic.field.Reason`). Strain
+shear ``xy`` is TENSOR shear, half the engineering shear angle, in every format.
 """
 
 from __future__ import annotations
@@ -28,11 +30,12 @@ from dic import __version__
 from dic.field import DisplacementField
 from dic.figures.common import (MEASURE_TITLES, STRAIN_QUANTITIES, frame_indices, open_results,
                                 quantity_values)
-from dic.files import atomic_write
+from dic.files import atomic_write, sidecar_path
+from dic.files import write_sidecar as _write_sidecar
 
 __all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "check_components", "export_results",
            "field_from_npz", "field_to_csv", "field_to_npz", "frame_to_csv", "out_folder",
-           "results_to_npz", "results_to_vtk"]
+           "results_to_npz", "results_to_vtk", "sidecar_path", "write_sidecar"]
 
 #: column names of :func:`field_to_csv`, in order
 CSV_COLUMNS = ("x_px", "y_px", "u_px", "v_px", "dudx", "dudy", "dvdx", "dvdy", "zncc", "reason")
@@ -47,14 +50,21 @@ def _check_field(field):
                          f"{type(field).__name__}")
 
 
-def _settings_text(settings):
-    """The settings as ``key=value`` pairs on one line, without commas (a CSV separator)."""
-    parts = []
-    for key, value in settings.items():
-        if isinstance(value, (tuple, list)):
-            value = "x".join(str(v) for v in value)
-        parts.append(f"{key}={value}".replace(",", ";").replace("\n", " "))
-    return "; ".join(parts)
+def write_sidecar(path, about):
+    """Write the sidecar JSON of a CSV table (see :func:`dic.files.write_sidecar`).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The CSV table.
+    about : dict
+        What it holds.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    return _write_sidecar(path, about, software=f"dic {__version__}")
 
 
 def field_to_csv(field, path):
@@ -96,14 +106,16 @@ def field_to_csv(field, path):
     data = np.column_stack([np.asarray(c, dtype=np.float64).reshape(n) for c in cols])
     reason = np.asarray(field.reason).reshape(n).astype(np.int64)
     head = ",".join(CSV_COLUMNS)
-    note = (f"# dic {__version__} displacement field; {field.n_valid} of {n} points measured; "
-            f"pixels; reason 0 = measured; {_settings_text(field.settings)}")
     if not p.parent.is_dir():
         raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it before "
                                 f"writing '{p.name}'")
+    write_sidecar(p, {"content": "displacement field", "points": n,
+                      "points_measured": field.n_valid, "units": "px; gradients dimensionless",
+                      "reason": "0 = measured; other codes as dic.field.Reason",
+                      "settings": dict(field.settings)})
     try:
         with atomic_write(p, encoding="utf-8", newline="\n") as fh:
-            fh.write(head + "\n" + note + "\n")
+            fh.write(head + "\n")
             for row, r in zip(data, reason):
                 fh.write(",".join(_FLOAT_FMT % v for v in row) + f",{r}\n")
     except OSError as exc:
@@ -219,9 +231,6 @@ def field_from_npz(path):
 EXPORT_FORMATS = ("csv", "npz", "vtk")
 #: strain components exported by default (xy is tensor shear)
 DEFAULT_COMPONENTS = ("xx", "yy", "xy")
-# 9 significant digits: far finer than any measured value (strain noise >= 1e-6) and half the
-# size of a bit-exact 17-digit table
-_TABLE_FMT = "%.9g"
 
 
 def check_components(components):
@@ -330,7 +339,7 @@ def _write_text(p, text_writer):
 
 
 def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
-                 measure="green-lagrange"):
+                 measure="green-lagrange", digits=9, about=None):
     """Write one frame of a results file as a CSV table: positions, displacements, strain.
 
     Parameters
@@ -339,12 +348,17 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
     k : int
         Completed frame (negative counts from the end).
     path : str or os.PathLike
-        Output file; its folder must exist.
+        Output file; its folder must exist. A sidecar JSON (:func:`sidecar_path`) says what the
+        numbers are.
     components : sequence of str or str, optional
         Strain quantities (see :data:`dic.figures.common.STRAIN_QUANTITIES`), e.g.
         ``("xx", "yy", "xy")`` or ``"xx,yy,xy"``.
     window, measure : optional
         As for :func:`dic.strain_field`.
+    digits : int, optional
+        Significant digits (17 gives every float back bit for bit).
+    about : dict, optional
+        More facts for the sidecar JSON.
 
     Returns
     -------
@@ -353,11 +367,13 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
     Notes
     -----
     Columns: ``x_px, y_px`` (reference position), then ``x_mm, y_mm`` when the results file
-    knows its scale, ``u_px, v_px`` (displacement) and ``u_mm, v_mm`` with a scale, one column
-    per strain quantity (``strain_xx``, ``strain_yy``, ``strain_xy`` -- tensor shear --,
-    ``rotation_deg``, ...), ``zncc`` and ``reason`` (0 = measured). Numbers have 9
-    significant digits; ``nan`` marks values that do not exist (an unmeasured point, or a
-    point too near the edge of the measured area for a strain).
+    knows its scale, ``u_px, v_px`` (displacement) and ``u_mm, v_mm`` with a scale, the
+    displacement gradient ``dudx, dudy, dvdx, dvdy`` of the subset match (dimensionless), one
+    column per strain quantity (``strain_xx``, ``strain_yy``, ``strain_xy`` -- tensor shear --,
+    ``rotation_deg``, ...), ``zncc`` and ``reason`` (0 = measured). ``nan`` marks values that
+    do not exist (an unmeasured point, or a point too near the edge of the measured area for a
+    strain). ``dic run`` writes its per-image tables with this function too, so both share
+    their columns.
     """
     comps = check_components(components)
     res, opened = _open(results)
@@ -367,34 +383,39 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
         s = res.strain(kk, window=window, measure=measure)
         scale = res.scale
         n = f.n_points
+        g = np.asarray(f.grad, dtype=np.float64).reshape(n, 2, 2)
         cols = {"x_px": f.x, "y_px": f.y}
         if scale is not None:
             cols.update(x_mm=f.x * scale, y_mm=f.y * scale)
         cols.update(u_px=f.u, v_px=f.v)
         if scale is not None:
             cols.update(u_mm=f.u * scale, v_mm=f.v * scale)
+        cols.update(dudx=g[:, 0, 0], dudy=g[:, 0, 1], dvdx=g[:, 1, 0], dvdy=g[:, 1, 1])
         cols.update(_strain_columns(s, comps))
         cols["zncc"] = np.where(f.valid, f.zncc, np.nan)
         data = np.column_stack([np.asarray(c, dtype=np.float64).reshape(n)
                                 for c in cols.values()])
         reason = np.asarray(f.reason).reshape(n).astype(np.int64)
         t = float(res.image_times[kk]) if len(res.image_times) > kk else float("nan")
-        units = (f"lengths in px and mm ({scale:g} mm/px)" if scale is not None else
-                 "lengths in px (scale unknown, so no mm columns)")
-        note = (f"# dic {__version__} export of frame {kk} (image {res.image_names[kk]}"
-                + (f", t = {t:g} s" if np.isfinite(t) else "") + f"); {units}; "
-                + _strain_note(s) + f"; {f.n_valid} of {n} points measured; reason 0 = "
-                f"measured; {_settings_text(res.settings)}")
         head = ",".join([*cols, "reason"])
-        fmt = [_TABLE_FMT] * data.shape[1] + ["%d"]
+        fmt = [f"%.{int(digits)}g"] * data.shape[1] + ["%d"]
         table = np.column_stack([data, reason])
         p = Path(os.fspath(path))
         if not p.parent.is_dir():
             raise FileNotFoundError(f"path: folder '{p.parent}' does not exist; create it "
                                     f"before writing '{p.name}'")
+        write_sidecar(p, {
+            "content": f"frame {kk} of a results file", "frame": kk,
+            "image": str(res.image_names[kk]), "time_s": t if np.isfinite(t) else None,
+            "scale_mm_per_px": scale,
+            "units": "lengths in px and mm" if scale is not None else
+                     "lengths in px (scale unknown, so no mm columns)",
+            "strain": _strain_note(s), "points": n, "points_measured": f.n_valid,
+            "reason": "0 = measured; other codes as dic.field.Reason",
+            "settings": dict(res.settings), **(about or {})})
 
         def write(fh):
-            fh.write(head + "\n" + note.replace("\n", " ") + "\n")
+            fh.write(head + "\n")
             np.savetxt(fh, table, fmt=fmt, delimiter=",")
 
         return _write_text(p, write)

@@ -92,13 +92,14 @@ class DisplacementField:
         function was used, else None.
     settings : dict
         The settings that produced the field (subset, step, shape function, criterion, ...).
-    sigma_u, sigma_v : ndarray, shape (ny, nx), or None
-        Standard deviation (px) of ``u`` and ``v`` at every point: from the residual of the
+    std_u, std_v : ndarray, shape (ny, nx), or None
+        Predicted standard deviation (px) of ``u`` and ``v`` at every point: from the residual of the
         converged match (a-posteriori Gauss-Newton covariance,
         :func:`dic.matching.posterior_sigma`), or, when the image noise was given, predicted
         from it and each subset's Hessian (:func:`dic.matching.point_sigma`);
         ``settings["sigma_from"]`` says which. NaN where not measured. None when the field was
-        not made by :func:`dic.correlate`.
+        not made by :func:`dic.correlate`. (``sigma_u``, ``sigma_v`` are former names of these
+        attributes, still readable.)
     shape_order : ndarray of int8, shape (ny, nx), or None
         Order of the subset shape function used at each point (1 first, 2 second order; 0
         where not measured). None when not recorded.
@@ -114,9 +115,19 @@ class DisplacementField:
     iterations: np.ndarray
     grad2: np.ndarray | None = None
     settings: dict = _dc_field(default_factory=dict)
-    sigma_u: np.ndarray | None = None
-    sigma_v: np.ndarray | None = None
+    std_u: np.ndarray | None = None
+    std_v: np.ndarray | None = None
     shape_order: np.ndarray | None = None
+
+    @property
+    def sigma_u(self) -> np.ndarray | None:
+        """Former name of :attr:`std_u`."""
+        return self.std_u
+
+    @property
+    def sigma_v(self) -> np.ndarray | None:
+        """Former name of :attr:`std_v`."""
+        return self.std_v
 
     @property
     def valid(self) -> np.ndarray:

@@ -21,7 +21,7 @@ from pathlib import Path
 
 from dic.errors import FileProblem
 
-__all__ = ["PARTIAL_PREFIX", "atomic_write", "check_folder", "fsync_file", "fsync_folder",
+__all__ = ["PARTIAL_PREFIX", "atomic_write", "sidecar_path", "write_sidecar", "check_folder", "fsync_file", "fsync_folder",
            "is_disk_full", "lock_file", "partial_name", "remove_stale_partials", "sparse_copy",
            "unlock_file"]
 
@@ -337,3 +337,77 @@ def atomic_write(path, mode="w", *, encoding="utf-8", newline=None, fsync=True):
         raise
     if fsync:
         fsync_folder(p.parent)
+
+
+def sidecar_path(path) -> Path:
+    """The JSON file that describes a CSV table: the same name ending in ``.json``.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The table.
+
+    Returns
+    -------
+    pathlib.Path
+    """
+    return Path(os.fspath(path)).with_suffix(".json")
+
+
+def _plain(value):
+    """``value`` made JSON-safe: NumPy scalars and arrays to Python, NaN and infinity to None."""
+    import math
+
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    item = getattr(value, "tolist", None)
+    if callable(item) and not isinstance(value, (str, bytes)):
+        return _plain(item())
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    if isinstance(value, (str, int, bool)) or value is None:
+        return value
+    return str(value)
+
+
+def write_sidecar(path, about: dict, software: str = "") -> Path:
+    """Write the sidecar JSON (:func:`sidecar_path`) that says what a CSV table holds.
+
+    The tables themselves hold only a header line of column names (with units) and numbers,
+    so that any CSV reader takes them as they are; their metadata lives here.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The CSV table the sidecar describes.
+    about : dict
+        What the table holds; values are made JSON-safe (NaN becomes null).
+    software : str, optional
+        Name and version of the writer, stored first.
+
+    Returns
+    -------
+    pathlib.Path
+        The sidecar written (atomically).
+
+    Raises
+    ------
+    OSError
+        The file cannot be written.
+    """
+    import json
+
+    p = sidecar_path(path)
+    data = {"software": software} if software else {}
+    data["table"] = Path(os.fspath(path)).name
+    data.update(_plain(dict(about)))
+    text = json.dumps(data, indent=2, allow_nan=False) + "\n"
+    try:
+        with atomic_write(p, encoding="utf-8", newline="\n") as fh:
+            fh.write(text)
+    except OSError as exc:
+        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
+                      f"permissions and free space") from None
+    return p

@@ -3,7 +3,7 @@
 1. Noise predicted from one image of the pattern (``pattern_quality``, noise estimated from that
    image) against the displacement noise measured on pairs of synthetic images with known noise
    (``dic.images.synth``, subpixel shift, independent noise draws). Bar: within 20 %.
-2. Per-point predicted sigma (``DisplacementField.sigma_u``) against the measured noise floor of
+2. Per-point predicted sigma (``DisplacementField.std_u``) against the measured noise floor of
    a stack of static images (``noise_floor``).
 3. Self-check spatial resolution against the 10 % attenuation period of the Savitzky-Golay
    transfer function (Schreier & Sutton, Exp. Mech. 42 (2002) 303). Bar: within 15 %.

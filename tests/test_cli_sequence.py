@@ -279,7 +279,7 @@ def test_output_folder_gets_results_file_tables_and_maps(frames, tmp_path, capsy
     csvs = sorted(p.name for p in out.glob("*.csv"))
     # every frame but the reference image itself gets a table and a map
     assert csvs == [f"displacements_frame{k}.csv" for k in (1, 2, 3)]
-    assert all((out / f"displacements_frame{k}.png").is_file() for k in (1, 2, 3))
+    assert all((out / f"strain_frame{k}.png").is_file() for k in (1, 2, 3))
     table = np.genfromtxt(out / "displacements_frame3.csv", delimiter=",", names=True,
                           comments="#")
     with Results.open(out / "results.h5") as r:
@@ -288,10 +288,10 @@ def test_output_folder_gets_results_file_tables_and_maps(frames, tmp_path, capsy
         np.testing.assert_array_equal(table["u_px"], f.u.ravel())
         np.testing.assert_array_equal(table["reason"], f.reason.ravel())
     # the same command again: nothing left to do, nothing rewritten
-    stamp = (out / "displacements_frame3.png").stat().st_mtime_ns
+    stamp = (out / "strain_frame3.png").stat().st_mtime_ns
     assert main(["run", str(frames), "--out", str(out), "--frames", "0:4"]) == 0
     assert "already up to date" in capsys.readouterr().out
-    assert (out / "displacements_frame3.png").stat().st_mtime_ns == stamp
+    assert (out / "strain_frame3.png").stat().st_mtime_ns == stamp
 
 
 # --------------------------------------------------------------------------------------------

@@ -56,6 +56,8 @@ block = 4
     ('[scale]\nline = [0, 0, 1, 1]', "length_mm"),
     ('images = ', "not a valid TOML"),
     ('[mathcing]\nsubset = 21', "did you mean"),
+    ('[animation]\nformat = "avi"', "format = 'avi' is not known; use \"gif\" or \"mp4\""),
+    ('[animation]\nfsp = 4', "animation.fsp.*did you mean 'fps'"),
 ])
 def test_bad_files(tmp_path, text, match):
     with pytest.raises(ValueError, match=match):
@@ -72,3 +74,10 @@ def test_scale_line_errors():
         scale_from_line([1, 1, 1, 1], 5.0)
     with pytest.raises(ValueError):
         scale_from_line([1, 2, 3], 5.0)
+
+
+def test_animation_and_map_scale_keys(tmp_path):
+    a = load_analysis(_write(tmp_path, '[animation]\ncomponent = "yy"\nformat = "mp4"\nfps = 2\n'
+                                       '[report]\nlimits = "per-frame"'))
+    assert a["animation"] == {"component": "yy", "format": "mp4", "fps": 2}
+    assert a["report"] == {"limits": "per-frame"}

@@ -58,7 +58,7 @@ def empty(tmp_path_factory):
 
 
 def _csv(path):
-    return np.genfromtxt(path, delimiter=",", names=True, comments="#")
+    return np.genfromtxt(path, delimiter=",", names=True)
 
 
 # --------------------------------------------------------------------------------------------
@@ -73,7 +73,8 @@ def test_csv_per_frame_holds_positions_displacements_and_strain(run, tmp_path):
     f = res.field(k)
     s = dic.strain_field(f, window=5)
     assert t.dtype.names == ("x_px", "y_px", "x_mm", "y_mm", "u_px", "v_px", "u_mm", "v_mm",
-                             "strain_xx", "strain_yy", "strain_xy", "zncc", "reason")
+                             "dudx", "dudy", "dvdx", "dvdy", "strain_xx", "strain_yy",
+                             "strain_xy", "zncc", "reason")
     # rows run over the grid row by row (y outer, x inner); 9 significant digits are written,
     # so values agree to a relative 5e-9 (half a unit in the 9th digit)
     np.testing.assert_allclose(t["x_px"], f.x.ravel(), rtol=5e-9)
@@ -86,11 +87,17 @@ def test_csv_per_frame_holds_positions_displacements_and_strain(run, tmp_path):
     bad = t["reason"] != 0
     assert bad.any()
     assert np.isnan(t["u_px"][bad]).all() and np.isnan(t["strain_xx"][bad]).all()
-    # the comment line names the measure and says that xy is tensor shear
+    # the sidecar JSON names the measure and says that xy is tensor shear
+    about = json.loads(files[k].with_suffix(".json").read_text())
+    assert "tensor shear" in about["strain"] and about["frame"] == k
     with open(files[k], newline="") as fh:
         rows = list(csv.reader(fh))  # the standard csv module reads it too
-    assert rows[1][0].startswith("#") and "tensor shear" in ",".join(rows[1])
-    assert len(rows) == 2 + f.n_points
+    assert len(rows) == 1 + f.n_points
+    # pandas with default options: every column numeric (pandas documentation, read_csv)
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(files[k])
+    assert list(frame.columns) == list(t.dtype.names)
+    assert all(pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns)
 
 
 def test_csv_without_a_scale_has_no_mm_columns(run, tmp_path):
@@ -98,8 +105,8 @@ def test_csv_without_a_scale_has_no_mm_columns(run, tmp_path):
     (p,) = export.export_results(plain, tmp_path, format="csv", frames=[-1], window=5,
                                  components="equivalent,rotation")
     t = _csv(p)
-    assert t.dtype.names == ("x_px", "y_px", "u_px", "v_px", "strain_equivalent",
-                             "rotation_deg", "zncc", "reason")
+    assert t.dtype.names == ("x_px", "y_px", "u_px", "v_px", "dudx", "dudy", "dvdx", "dvdy",
+                             "strain_equivalent", "rotation_deg", "zncc", "reason")
     assert p.name == "frame_0002.csv"
 
 
@@ -231,7 +238,7 @@ def test_export_command(run, tmp_path, capsys):
     res, _, _ = run
     out = tmp_path / "vtk"
     assert _main(["export", str(res.path), "--format", "vtk", "--out", str(out),
-                  "--frames", "0:3:2", "--window", "5"]) == 0
+                  "--frames", "0:3:2", "--strain-window", "5"]) == 0
     assert sorted(p.name for p in out.iterdir()) == ["results.pvd", "results_0000.vts",
                                                      "results_0002.vts"]
     assert "ParaView" in capsys.readouterr().out
@@ -247,7 +254,7 @@ def test_export_command(run, tmp_path, capsys):
     (["--frames", "1,9"], "--frames: frame 9 does not exist"),
     (["--frames", "x"], "--frames: 'x' is not a frame number"),
     (["--measure", "strainy"], "use one of: green-lagrange"),
-    (["--window", "4"], "--window: 4 is not an odd whole number"),
+    (["--window", "4"], "--strain-window: 4 is not an odd whole number"),
 ])
 def test_export_command_errors_are_one_line(run, tmp_path, extra, words):
     res, _, _ = run

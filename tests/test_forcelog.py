@@ -58,10 +58,10 @@ def test_decimal_comma_with_preamble_and_unit_row(tmp_path, sep):
     rows = [sep.join([f"{a:.2f}".replace(".", ","), f"{b:.3f}".replace(".", ","), "ok"])
             for a, b in zip(t, f)]
     text = "\n".join([f"Prüfung{sep}Zugversuch{sep}", f"Probe{sep}A1", "",
-                      sep.join(["Zeit", "Standardkraft", "Status"]), sep.join(["s", "kN", "-"]),
+                      sep.join(["Zeit", "Kraft", "Status"]), sep.join(["s", "kN", "-"]),
                       *rows]) + "\n"
     p = write(tmp_path / "log.csv", text)
-    log = read_force_log(p, time_column="zeit", force_column="Standardkraft", force_unit="kN")
+    log = read_force_log(p, time_column="zeit", force_column="Kraft", force_unit="kN")
     assert log.delimiter == sep and log.decimal == ","
     np.testing.assert_allclose(log.time, t, rtol=0, atol=1e-12)  # written values, exactly
     np.testing.assert_allclose(log.force, f * 1000.0, rtol=1e-14)

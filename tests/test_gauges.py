@@ -269,11 +269,19 @@ def test_history_csv_with_units_and_plot(tmp_path):
     h = h.with_time([0.0, 1.0, 2.0, 3.0]).with_force([0.0, 1e3, 2e3, 3e3])
     p = h.to_csv(tmp_path / "g.csv")
     text = p.read_text()
-    assert "ISO 9513" in text and "ASTM E83" in text
-    header = [ln for ln in text.splitlines() if not ln.startswith("#")][0]
+    # the caution travels in the sidecar JSON; the table is a header and numbers
+    about = p.with_suffix(".json").read_text()
+    assert "ISO 9513" in about and "ASTM E83" in about
+    header = text.splitlines()[0]
+    assert not any(ln.startswith("#") for ln in text.splitlines())
     assert header.startswith("frame,time [s],force [N],axial.length [px],"
                              "axial.engineering [mm/mm]")
-    back = np.genfromtxt(p, delimiter=",", comments="#", names=True)  # numpy reader
+    back = np.genfromtxt(p, delimiter=",", names=True)  # numpy reader
+    # pandas with default options: every column numeric (pandas docs, read_csv)
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(p)
+    assert all(pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns)
+    assert frame["force [N]"].tolist() == [0.0, 1e3, 2e3, 3e3]
     np.testing.assert_array_equal(back["force_N"], [0.0, 1e3, 2e3, 3e3])
     np.testing.assert_allclose(back["axialengineering_mmmm"], h["axial.engineering"],
                                rtol=1e-15)

@@ -65,8 +65,8 @@ def test_posterior_sigma_is_calibrated_on_photographs(name, lo, hi):
     ok = f.valid
     assert ok.sum() >= 300
     assert f.settings["sigma_from"] == "residual"
-    r = np.concatenate([np.abs(f.u - dx)[ok] / f.sigma_u[ok],
-                        np.abs(f.v - dy)[ok] / f.sigma_v[ok]])
+    r = np.concatenate([np.abs(f.u - dx)[ok] / f.std_u[ok],
+                        np.abs(f.v - dy)[ok] / f.std_v[ok]])
     # a calibrated standard deviation of a normal error gives median |e| / sigma = 0.674
     # (normal distribution); the project issue's calibration target is 0.5-0.9 and its bar on
     # real photographs 0.3-1.5 (camera and brick: about 1.0-1.1, the residual misses some error

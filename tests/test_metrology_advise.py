@@ -10,6 +10,7 @@ import argparse
 import io
 import json
 import math
+import re
 from pathlib import Path
 
 import numpy as np
@@ -65,6 +66,12 @@ def test_advice_meets_a_strain_noise_target_when_run(gen, band, reference):
                windows=WINDOWS)
     assert a.met, a.summary()
     c = a.chosen
+    # the message gives the real margin below the target, not a fixed share
+    spare = 100.0 * (1.0 - c["strain_noise"] * 1e6 / target)
+    assert f"{spare:.0f} % below it" in a.message and "10 % to spare" not in a.message
+    # no step below a quarter of the subset (neighbours would share over 3/4 of their pixels;
+    # common practice, no source)
+    assert all(d["step"] >= round(0.25 * d["subset"]) for d in a.candidates)
     # it is the smallest VSG among the settings that met the target on the self-check
     assert c["vsg"] == min(d["vsg"] for d in a.candidates if d["meets"])
     # run it: two fresh images of the unloaded coupon, each with its own noise (the noise
@@ -165,6 +172,28 @@ def test_cli_pattern(parser, tmp_path):
         run_pattern(parser.parse_args(["pattern", str(tmp_path / "missing.png")]))
     with pytest.raises(SystemExit):
         parser.parse_args(["pattern", str(SAMPLE), "--roi", "1,2,3"])
+
+
+def test_cli_pattern_finds_the_painted_band_by_itself(parser, gen):
+    # no ROI: the plain dark background is left out and the speckled band judged alone, as
+    # with the band given as ROI (generator: band rows BAND_CENTRE_Y +- BAND_HALF, edges
+    # blurred over a few px)
+    out = io.StringIO()
+    assert run_pattern(parser.parse_args(["pattern", str(SAMPLE)]), out) == 0
+    text = out.getvalue()
+    assert text.startswith("pattern: good"), text
+    m = re.search(r"speckled region found in the image was judged: x (\d+)-(\d+), "
+                  r"y (\d+)-(\d+) px", text)
+    assert m, text
+    y0, y1 = int(m.group(3)), int(m.group(4))
+    assert abs(y0 - (gen.BAND_CENTRE_Y - gen.BAND_HALF)) <= 8
+    assert abs(y1 - (gen.BAND_CENTRE_Y + gen.BAND_HALF)) <= 8
+    # the speckle size is that of the band given as ROI (5 % agreement; same pixels but for
+    # the blurred edges)
+    sized = io.StringIO()
+    run_pattern(parser.parse_args(["pattern", str(SAMPLE), "--roi", "0,46,639,193"]), sized)
+    size = lambda t: float(re.search(r"speckle size ([\d.]+) px", t).group(1))  # noqa: E731
+    assert size(text) == pytest.approx(size(sized.getvalue()), rel=0.05)
 
 
 def test_cli_noise(parser, tmp_path):

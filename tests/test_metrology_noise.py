@@ -118,11 +118,11 @@ def test_sigma_is_nan_where_not_measured_and_follows_a_given_noise():
     dfm[:, :60] = 40.0
     f = dic.correlate(ref, dfm, subset=21, step=10, image_noise=2.0)
     assert f.settings["image_noise"] == (2.0, 2.0)
-    assert np.all(np.isnan(f.sigma_u[~f.valid])) and np.all(np.isnan(f.sigma_v[~f.valid]))
-    assert np.all(np.isfinite(f.sigma_u[f.valid])) and (~f.valid).any()
+    assert np.all(np.isnan(f.std_u[~f.valid])) and np.all(np.isnan(f.std_v[~f.valid]))
+    assert np.all(np.isfinite(f.std_u[f.valid])) and (~f.valid).any()
     g = dic.correlate(ref, dfm, subset=21, step=10, image_noise=(0.0, 0.0))
     # no noise, no predicted scatter
-    assert np.all(g.sigma_u[g.valid] == 0.0)
+    assert np.all(g.std_u[g.valid] == 0.0)
     with pytest.raises(ValueError, match="image_noise"):
         dic.correlate(ref, dfm, subset=21, step=10, image_noise=-1)
 

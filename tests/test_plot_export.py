@@ -183,7 +183,7 @@ def test_csv_round_trip_through_numpy_genfromtxt(tmp_path):
     f = make_field()
     path = field_to_csv(f, tmp_path / "field.csv")
     # numpy.genfromtxt is the independent reader
-    table = np.genfromtxt(path, delimiter=",", names=True, comments="#")
+    table = np.genfromtxt(path, delimiter=",", names=True)
     assert table.dtype.names == CSV_COLUMNS
     assert table.shape == (f.n_points,)
     expect = {"x_px": f.x, "y_px": f.y, "u_px": f.u, "v_px": f.v,
@@ -196,7 +196,17 @@ def test_csv_round_trip_through_numpy_genfromtxt(tmp_path):
     assert np.isnan(table["u_px"]).sum() == f.n_points - f.n_valid > 0
     lines = path.read_text().splitlines()
     assert lines[0] == ",".join(CSV_COLUMNS)
-    assert lines[1].startswith("#") and "subset=21" in lines[1] and "image_shape=120x160" in lines[1]
+    assert len(lines) == 1 + f.n_points  # a header and numbers, nothing else
+    # the settings are in the sidecar JSON beside the table
+    import json
+
+    about = json.loads(path.with_suffix(".json").read_text())
+    assert about["settings"]["subset"] == 21 and about["settings"]["image_shape"] == [120, 160]
+    # pandas with default options reads every column as numbers (pandas docs, read_csv)
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(path)
+    assert list(frame.columns) == list(CSV_COLUMNS)
+    assert all(pd.api.types.is_numeric_dtype(frame[c]) for c in frame.columns)
 
 
 def test_csv_reads_with_the_standard_csv_module(tmp_path):

@@ -207,6 +207,23 @@ def test_pdf_holds_the_report(full_report):
     assert b"Coupon A7" in data  # document title in the metadata (uncompressed)
 
 
+def test_pdf_leaves_no_heading_alone_at_a_page_foot(full_report):
+    # the text of every page as poppler's pdftotext reads it (Debian package poppler-utils)
+    exe = shutil.which("pdftotext")
+    if exe is None:
+        pytest.skip("pdftotext is not installed (Debian: apt-get install -y poppler-utils)")
+    _, pdf = full_report
+    text = subprocess.run([exe, "-layout", str(pdf), "-"], capture_output=True, text=True,
+                          check=True).stdout
+    pages = [p for p in text.split("\f") if p.strip()]
+    assert len(pages) >= 4
+    for k, page in enumerate(pages, 1):
+        lines = [ln.strip() for ln in page.splitlines()
+                 if re.search(r"[A-Za-z]", ln) and not re.search(r"page \d+\s*$", ln)]
+        # a section heading ("4. Strain maps") as the last line of a page is alone at its foot
+        assert not re.fullmatch(r"\d+\. [A-Z][a-z ]+", lines[-1]), (k, lines[-1])
+
+
 # --------------------------------------------------------------------------------------------
 # in a browser
 # --------------------------------------------------------------------------------------------
@@ -236,6 +253,90 @@ def test_report_renders_in_headless_chromium(full_report, tmp_path):
     # the page's own script marks the body once every image has decoded (naturalWidth > 0)
     assert page.body.get("data-images") == "all-decoded"
     assert len(page.imgs) >= 6
+    assert _reader_faults(dom) == []
+
+
+class _Visible(HTMLParser):
+    """The text a reader sees (no script or style) and every table cell, from a rendered DOM."""
+
+    def __init__(self):
+        super().__init__()
+        self.skip, self.text, self.cells, self.cell = 0, [], [], None
+
+    def handle_starttag(self, tag, attrs):
+        if tag in ("script", "style"):
+            self.skip += 1
+        if tag == "td":
+            self.cell = []
+
+    def handle_endtag(self, tag):
+        if tag in ("script", "style"):
+            self.skip -= 1
+        if tag == "td" and self.cell is not None:
+            self.cells.append("".join(self.cell).strip())
+            self.cell = None
+
+    def handle_data(self, data):
+        if not self.skip:
+            self.text.append(data)
+            if self.cell is not None:
+                self.cell.append(data)
+
+
+def _reader_faults(dom):
+    """What a reader would query in the visible text: code keys, jargon, empty or bare cells."""
+    v = _Visible()
+    v.feed(dom)
+    text = " ".join(v.text)
+    faults = [f"code key {m!r}" for m in re.findall(r"\b[a-z]+(?:_[a-z]+)+\b", text)]
+    # the metrological-efficiency short form of DIC Challenge 2.0 (Reu et al. 2022) is jargon
+    faults += ["'Mei'"] if re.search(r"\bMei\b", text) else []
+    faults += [f"empty or bare cell {c!r}" for c in v.cells if not c.strip(" ,;:\u2013-")]
+    faults += [f"negative zero in {c!r}" for c in v.cells if re.search(r"(?<![\d.])-0(?![.\d])", c)]
+    return faults
+
+
+@pytest.fixture(scope="module")
+def checked_report(run, tmp_path_factory):
+    """A report whose uncertainty section comes from a real self-check of the settings."""
+    from dic.metrology import self_check
+
+    res, folder = run
+    ref = dic.images.io.read_image(folder / "c0.png")
+    check = self_check(ref, subset=SUBSET, step=STEP, window=5, shifts=(0.0, 0.5),
+                       roi=res.roi_mask)
+    out = tmp_path_factory.mktemp("checked")
+    gauges, tensile, metro = _inputs(len(res))
+    html, _ = write_report(res.path, out, window=5, metrology=[check, metro], frames=[-1])
+    return html, check
+
+
+def test_uncertainty_reads_as_plain_words_in_chromium(checked_report, tmp_path):
+    html, check = checked_report
+    dom, console = _chromium(html, tmp_path)
+    assert console == []
+    assert _reader_faults(dom) == []
+    v = _Visible()
+    v.feed(dom)
+    text = " ".join(v.text)
+    # the self-check's strain noise, in microstrain with its unit (1 microstrain = 1e-6)
+    xx = round(check.strain_noise["xx"] * 1e6)
+    assert re.search(rf"Strain noise.*xx {xx:.3g} \u00b5\u03b5", text)
+    # the published method, named once (Reu et al. 2022, DIC Challenge 2.0)
+    assert text.count("Reu et al.") == 1
+    assert "What it means" in text
+
+
+def test_reader_check_catches_code_keys():
+    # control page: each fault the check is meant to catch, caught (common practice, no source)
+    bad = ("<table><tr><td>settings / vsg</td><td></td></tr><tr><td>Mei u</td><td>,</td></tr>"
+           "<tr><td>strain bias xx</td><td>-0</td></tr></table>")
+    faults = _reader_faults(bad)
+    assert any("code key" in f for f in faults) is False  # 'settings / vsg' has no underscore
+    assert "'Mei'" in faults
+    assert sum("empty or bare" in f for f in faults) == 2
+    assert any("negative zero" in f for f in faults)
+    assert _reader_faults("<p>axial.green_lagrange</p>") == ["code key 'green_lagrange'"]
 
 
 def test_chromium_check_catches_errors(tmp_path):

@@ -169,7 +169,26 @@ def test_predicted_uncertainty_is_stored_per_point(sequence, tmp_path):
     folder, mask = sequence
     res = dic.track(folder, tmp_path / "sig.h5", roi=mask, frames=range(4))
     f = res.field(3)
-    assert f.sigma_u is not None and f.sigma_v is not None
+    assert f.std_u is not None and f.std_v is not None
     ok = f.valid
-    assert np.all(np.isfinite(f.sigma_u[ok])) and np.all(np.isnan(f.sigma_u[~ok]))
-    assert 0 < np.median(f.sigma_u[ok]) < 0.01
+    assert np.all(np.isfinite(f.std_u[ok])) and np.all(np.isnan(f.std_u[~ok]))
+    assert 0 < np.median(f.std_u[ok]) < 0.01
+    # the former attribute names still read the same arrays
+    assert f.sigma_u is f.std_u and f.sigma_v is f.std_v
+    expect = f.std_u.copy()
+    res.close()
+    # a file written before the rename holds the datasets as sigma_u, sigma_v: still read, and
+    # still resumed into (plain h5py renames them back; h5py docs, Group.move)
+    import h5py
+
+    with h5py.File(tmp_path / "sig.h5", "r+") as h:
+        h["frames"].move("std_u", "sigma_u")
+        h["frames"].move("std_v", "sigma_v")
+    with dic.load_results(tmp_path / "sig.h5") as old:
+        np.testing.assert_array_equal(old.field(3).std_u, expect)
+    # as if stopped after two frames (n_done is written last; dic/sequence/layout.py)
+    with h5py.File(tmp_path / "sig.h5", "r+") as h:
+        h["n_done"][()] = 2
+    res = dic.track(folder, tmp_path / "sig.h5", roi=mask, frames=range(4))
+    np.testing.assert_array_equal(res.field(3).std_u, expect)
+    res.close()

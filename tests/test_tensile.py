@@ -270,6 +270,11 @@ def test_outputs_carry_standards_ranges_and_the_caution(tmp_path):
     keys = [r[0] for r in rows[1:]]
     assert keys == ["E", "nu", "Rp0.2", "Rm", "Ag", "Agt", "n", "r"]
     assert float(rows[1][2]) == res["E"].value  # repr round-trips float64
+    # pandas with default options: the number columns are numbers (pandas docs, read_csv)
+    pd = pytest.importorskip("pandas")
+    frame = pd.read_csv(p)
+    for c in ("value", "range_low", "range_high", "points", "r2"):
+        assert pd.api.types.is_numeric_dtype(frame[c]), c
     fig, ax = dic.figures.stress_strain_figure(res)
     assert ax.get_xlabel() == "Strain (%)" and ax.get_ylabel() == "Stress (MPa)"
     labels = [ln.get_label() for ln in ax.get_lines()]

@@ -6,8 +6,9 @@ Commands
     Track an image sequence with :func:`dic.track` into a results file (HDF5). ``--out`` ending
     in ``.h5`` (or ``.hdf5``) is the results file itself; any other path is an output folder
     that receives ``results.h5`` and, for every frame but the reference image,
-    ``displacements_<stem>.csv`` (one row per grid point) and ``displacements_<stem>.png`` (the
-    displacement magnitude over the reference image). Options override the analysis file.
+    ``displacements_<stem>.csv`` (one row per grid point, with a ``.json`` description) and
+    ``strain_<stem>.png`` (the axial strain over the reference image, one colour scale for all
+    frames, gauges drawn). Options override the analysis file.
     Running the same command again resumes after the last completed frame.
 ``dic info RESULTS``
     Summarise a results file (or the ``results.h5`` of an output folder).

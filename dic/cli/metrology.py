@@ -162,9 +162,28 @@ def run_pattern(args, out=None) -> int:
     from dic.metrology import pattern_quality
 
     out = sys.stdout if out is None else out
+    roi, found = _roi(args), None
+    if roi is None:
+        # judge the paint, not the background: find the speckled region by itself
+        from dic.images.io import read_image
+        from dic.metrology import find_speckled_region
+
+        found = find_speckled_region(read_image(args.image, name="IMAGE"), size=args.subset)
+        roi = found
     q = pattern_quality(args.image, subset=args.subset, noise=args.noise,
-                        second_image=args.second_image, roi=_roi(args), bits=args.bits)
+                        second_image=args.second_image, roi=roi, bits=args.bits)
     print(q.summary(), file=out)
+    if found is not None:
+        import numpy as np
+
+        rows, cols = np.flatnonzero(found.any(axis=1)), np.flatnonzero(found.any(axis=0))
+        print(f"region: no ROI given, so only the speckled region found in the image was "
+              f"judged: x {cols[0]}-{cols[-1]}, y {rows[0]}-{rows[-1]} px "
+              f"({100 * found.mean():.0f} % of the image); give --roi to choose another",
+              file=out)
+    elif _roi(args) is None:
+        print("region: no ROI given and no plain background found, so the whole image was "
+              "judged", file=out)
     if args.json:
         _write_json(args.json, q.as_dict())
     return 0

@@ -1,9 +1,10 @@
 """The ``report`` and ``export`` commands of the ``dic`` command line.
 
-``dic report RESULTS [--out DIR] [--frames N,N,...] [--window N] [--measure NAME] [--title T]``
+``dic report RESULTS [--out DIR] [--frames N,N,...] [--strain-window N] [--measure NAME]
+[--limits shared|per-frame] [--title T]``
     Write ``report.html`` (one self-contained file) and ``report.pdf`` for a results file.
 ``dic export RESULTS [--format csv|npz|vtk] [--out DIR] [--components xx,yy,xy] [--frames ...]
-[--window N] [--measure NAME]``
+[--strain-window N] [--measure NAME]``
     Write the displacements and strain of every frame as CSV tables, one NumPy archive or a VTK
     time series (ParaView).
 
@@ -14,6 +15,7 @@ the option and the fix, for the main program to turn into exit codes.
 
 from __future__ import annotations
 
+import argparse
 from pathlib import Path
 
 __all__ = ["register", "run_export", "run_report"]
@@ -22,7 +24,7 @@ __all__ = ["register", "run_export", "run_report"]
 RESULTS_NAME = "results.h5"
 _EXPORT_FOLDER = "export"
 # argument names in library messages -> the options a command-line user types
-_OPTION_NAMES = (("out_dir:", "--out:"), ("frames:", "--frames:"), ("window:", "--window:"),
+_OPTION_NAMES = (("out_dir:", "--out:"), ("frames:", "--frames:"), ("window:", "--strain-window:"),
                  ("components:", "--components:"), ("format:", "--format:"),
                  ("results:", "RESULTS:"), ("path:", "--out:"), ("k:", "--frames:"))
 
@@ -60,6 +62,10 @@ def register(subparsers):
                              "the way, and the last)")
     rep.add_argument("--title", metavar="TEXT", help="report title (default: from the results "
                                                      "file's name)")
+    rep.add_argument("--limits", choices=("shared", "per-frame"), default="shared",
+                     help="colour scale of the strain maps: one for all frames, so that they "
+                          "compare (shared, the default), or one per map, so that small "
+                          "strains in early frames show (per-frame)")
     rep.set_defaults(func=run_report)
 
     exp = subparsers.add_parser(
@@ -91,9 +97,13 @@ def register(subparsers):
 
 def _common(p, frames_help):
     p.add_argument("--frames", metavar="N,N,...", help=frames_help)
-    p.add_argument("--window", type=int, default=None, metavar="N",
+    p.add_argument("--strain-window", dest="window", type=int, default=None, metavar="N",
                    help="strain window in grid points, odd, at least 3 (default: the one "
-                        "stored by 'dic run --strain-window', else 9)")
+                        "stored by 'dic run --strain-window', else 9); the same option as in "
+                        "'dic run' and 'dic noise'")
+    # the former name, still accepted
+    p.add_argument("--window", dest="window", type=int, default=argparse.SUPPRESS,
+                   help=argparse.SUPPRESS)
     p.add_argument("--measure", default=None, metavar="NAME",
                    help="strain measure: green-lagrange, infinitesimal, euler-almansi, hencky "
                         "or engineering (default: the one stored by 'dic run', else "
@@ -195,8 +205,8 @@ def _stored_strain(path, window, measure):
 
 def _check_window(window):
     if isinstance(window, bool) or not isinstance(window, int) or window < 3 or window % 2 == 0:
-        raise ValueError(f"--window: {window!r} is not an odd whole number of at least 3; use "
-                         f"e.g. --window 9")
+        raise ValueError(f"--strain-window: {window!r} is not an odd whole number of at least "
+                         f"3; use e.g. --strain-window 9")
     return window
 
 
@@ -221,7 +231,8 @@ def run_report(args) -> int:
         check = settings_self_check(results, {"window": window, "measure": measure})
         html, pdf = write_report(results, out, frames=_expand(_frames(args.frames), n),
                                  window=window, measure=measure, metrology=check,
-                                 title=getattr(args, "title", None))
+                                 title=getattr(args, "title", None),
+                                 limits=getattr(args, "limits", "shared"))
     except (ValueError, OSError) as exc:
         raise _as_option(exc, results) from None
     print(f"report: {html}")

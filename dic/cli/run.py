@@ -108,8 +108,9 @@ def _add_run(commands):
                      help="analysis file with the settings (TOML; see the README)")
     run.add_argument("--out", metavar="PATH",
                      help="results file if it ends in .h5, else an output folder that receives "
-                          f"{RESULTS_NAME} plus a displacement table (CSV) and map (PNG) per "
-                          "image (created if missing); default: 'out' of the analysis file")
+                          f"{RESULTS_NAME} plus a table (CSV) and an axial strain map (PNG) "
+                          "per image (created if missing); default: 'out' of the analysis "
+                          "file")
     run.add_argument("--reference", type=int, metavar="N",
                      help="position of the reference image in the image list, from 0 "
                           f"(default: {d['reference']}, the first)")
@@ -161,6 +162,11 @@ def _add_run(commands):
     here.add_argument("--cluster", metavar="ADDRESS",
                       help="run blocks of images on this Dask scheduler, e.g. "
                            "tcp://10.0.0.5:8786 (needs dask.distributed)")
+    run.add_argument("--animate", nargs="?", const="gif", choices=("gif", "mp4"),
+                     metavar="FORMAT",
+                     help="with an output folder: also write an animation of the strain "
+                          "(strain_xx.gif; FORMAT gif or mp4; component and speed from the "
+                          "analysis file's [animation] table)")
     run.add_argument("--overwrite", action="store_true",
                      help="replace an existing results file instead of resuming it")
     talk = run.add_mutually_exclusive_group()
@@ -297,7 +303,10 @@ def _analysis(args):
                              f"use e.g. --strain-window 9")
         kw["strain"] = strain
     kw.update(camera_settings(args, conf))
-    after = {k: conf[k] for k in ("tensile", "report") if k in conf}
+    after = {k: conf[k] for k in ("tensile", "report", "noise", "animation") if k in conf}
+    if args.animate is not None:
+        after["animation"] = {**after.get("animation", {}), "write": True,
+                              "format": args.animate}
     if after:
         after["strain"] = kw.get("strain", {})
     return images, out, kw, after
@@ -358,21 +367,27 @@ def _check_plan(images, kw, folder):
 # --------------------------------------------------------------------------------------------
 def _export_names(folder, image):
     stem = Path(image).stem
-    return folder / f"displacements_{stem}.csv", folder / f"displacements_{stem}.png"
+    return folder / f"displacements_{stem}.csv", folder / f"strain_{stem}.png"
 
 
-def _export(results, folder, reference_path, *, redo, bar, verbose, out):
-    """Displacement table and map of every completed frame that lacks them.
+def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile=None):
+    """Table (CSV with its JSON description) and axial strain map of every completed frame
+    that lacks them; the maps share one colour scale and show the gauges.
 
     Returns the number of files written.
     """
-    from dic.export import field_to_csv
+    import numpy as np
+
+    from dic.export import frame_to_csv, sidecar_path
     from dic.images.io import read_image
-    from dic.figures import displacement_map, save_figure
+    from dic.figures import save_figure, strain_map
+    from dic.figures.common import MEASURE_TITLES, strain_limits
     from dic.files import atomic_write
+    from dic.workflow.run import axial_component, gauge_lines
 
     st = results.settings
     frames, ref = st.get("frames", list(range(results.n_frames))), st.get("reference", 0)
+    strain = st.get("strain") or {}
     names = results.image_names
     ref_name = Path(reference_path).name
     todo = []
@@ -380,11 +395,16 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out):
         if frames[k] == ref:
             continue
         csv, png = _export_names(folder, names[k])
-        if redo or not (csv.is_file() and png.is_file()):
+        if redo or not (csv.is_file() and png.is_file() and sidecar_path(csv).is_file()):
             todo.append(k)
     if not todo:
         return 0
-    reference_image = None
+    reference_image = never = None
+    window, measure = int(strain.get("window", 9)), strain.get("measure", "green-lagrange")
+    comp = axial_component(results)
+    # one colour scale for every map, so that maps of different frames compare
+    limits = strain_limits(results, comp, window=window, measure=measure)
+    shapes = gauge_lines(results, tensile)
     written = 0
     refs = results.reference_indices
     progress = _bar(total=len(todo), desc="exporting", enabled=bar)
@@ -398,24 +418,27 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out):
             note = dict(image=name, reference_image=ref_name)
             if against != ref:
                 note["matched_against"] = f"image {against}"
-            note.update({key: st[key] for key in ("subset", "step", "shape_function",
-                                                  "interpolation", "min_zncc") if key in st})
-            if results.scale is not None:
-                note["scale_mm_per_px"] = results.scale
-            field.settings = note
             csv, png = _export_names(folder, names[k])
-            field_to_csv(field, csv)  # written atomically: never half a file
-            n, nv = field.n_points, field.n_valid
-            fig, _ = displacement_map(
-                field, reference_image, component="magnitude",
-                title=f"Displacement magnitude (px), {name} against "
-                      f"{ref_name}\n{nv} of {n} points measured "
-                      f"({100.0 * nv / max(n, 1):.1f} %)")
+            # the columns of dic export's tables; 17 digits give the stored numbers bit for
+            # bit; written atomically: never half a file
+            frame_to_csv(results, k, csv, window=int(strain.get("window", 9)),
+                         measure=strain.get("measure", "green-lagrange"), digits=17,
+                         about=note)
+            st_k = results.strain(k, window=window, measure=measure)
+            nv = int(np.count_nonzero(np.isfinite(getattr(st_k, comp))))
+            fig, _ = strain_map(
+                st_k, reference_image, component=comp, limits=limits, scale=results.scale,
+                gauges=shapes, alpha=0.85,
+                title=f"Axial strain {comp} ({MEASURE_TITLES.get(measure, measure)}), {name} "
+                      f"against {ref_name}\n{nv} of {field.n_points} points have a strain; "
+                      f"one colour scale for every frame")
             with atomic_write(png, None) as tmp:  # never half a file
                 save_figure(fig, tmp)
-            written += 2
+            written += 3
             if verbose:
-                _write_line(f"frame {k} ({name}): {field.summary()}", out)
+                if never is None:
+                    never = _never_measurable(results)
+                _write_line(f"frame {k} ({name}): {_summary(field, never)}", out)
             if progress is not None:
                 progress.update(1)
     finally:
@@ -474,6 +497,64 @@ def _with_options(message):
         for lead in ("(", "; "):
             message = message.replace(f"{lead}{name}: ", f"{lead}{name} ({option}): ")
     return message
+def _load_kernels(kw):
+    """Compile (or load from the cache) the numerical kernels on a small synthetic pair with the
+    run's matching settings; returns the seconds it took, reported apart from the frame rate."""
+    from dic.images import synth
+    from dic.matching import correlate
+
+    t0 = time.perf_counter()
+    subset = int(kw.get("subset", _DEFAULTS["subset"]))
+    size = max(4 * subset, 64)
+    pat = synth.make_speckle((size, size), radius=2.5, seed=1)
+    ref = synth.render(pat, (size, size))
+    moved = synth.render(pat, (size, size), synth.translation(0.3, -0.2))
+    try:
+        correlate(ref, moved, subset=subset, step=max(subset // 2, 1),
+                  shape_function=kw.get("shape_function", _DEFAULTS["shape_function"]),
+                  interpolation=kw.get("interpolation", _DEFAULTS["interpolation"]),
+                  search=4)
+    except (ValueError, ArithmeticError):  # odd settings: the run itself reports them
+        pass
+    return time.perf_counter() - t0
+
+
+def _never_measurable(results):
+    """Grid points that no frame can measure: their subset leaves the reference image or the
+    region of interest (read from the reference frame, else from frame 0)."""
+    import numpy as np
+
+    from dic.field import Reason
+
+    st = results.settings
+    frames, ref = st.get("frames", list(range(results.n_frames))), st.get("reference", 0)
+    k = frames.index(ref) if ref in frames and frames.index(ref) < len(results) else 0
+    reason = np.asarray(results.field(k).reason)
+    return np.isin(reason, (int(Reason.OUTSIDE_IMAGE), int(Reason.OUTSIDE_ROI)))
+
+
+def _summary(field, never):
+    """One line on a frame: measured points among those that can be measured."""
+    import numpy as np
+
+    from dic.field import Reason
+
+    reason = np.asarray(field.reason)
+    can = ~never
+    n, nv = int(can.sum()), int(np.count_nonzero((reason == 0) & can))
+    parts = [f"{nv} of {n} measurable points measured ({100.0 * nv / max(n, 1):.1f} %)"]
+    other = {}
+    for code in np.unique(reason[can]):
+        if code:
+            other[Reason(int(code)).name.lower().replace("_", " ")] = int(
+                np.count_nonzero(reason[can] == code))
+    if other:
+        parts.append(", ".join(f"{k}: {c}" for k, c in sorted(other.items(),
+                                                               key=lambda kv: -kv[1])))
+    if never.any():
+        parts.append(f"{int(never.sum())} more grid points lie too near the image edge or "
+                     f"outside the region of interest ever to be measured")
+    return "; ".join(parts)
 
 
 def _run(args, out=None):
@@ -503,6 +584,8 @@ def _run(args, out=None):
                  before[1], before[0] - 1)
     log.info("%d images, results file %s, settings %s", len(paths), h5,
              {k: v for k, v in kw.items() if k not in ("roi",)})
+    finished = before is not None and before[0] >= before[1]
+    compile_s = 0.0 if finished else _load_kernels(kw)
     t0 = time.perf_counter()
     try:
         try:
@@ -540,28 +623,38 @@ def _run(args, out=None):
         if folder is not None:
             written = _export(results, folder, paths[kw.get("reference", 0)],
                               redo=before is None, bar=bar,
-                              verbose=args.verbose and show, out=out)
+                              verbose=args.verbose and show, out=out,
+                              tensile=after.get("tensile"))
             written += len(write_camera_maps(h5, folder, paths[kw.get("reference", 0)]))
         elif args.verbose and show:
+            never = _never_measurable(results)
             for k in range(n):
                 _write_line(f"frame {k} ({Path(results.image_names[k]).name}): "
-                            f"{results.field(k).summary()}", out)
+                            f"{_summary(results.field(k), never)}", out)
         if show:
             rate = f", {new / elapsed:.2f} frames/s" if new and elapsed > 0 else ""
             kept = f" ({n - new} were already done)" if n - new else ""
-            print(f"tracked {new} frame(s) in {elapsed:.1f} s{rate}{kept}: {n} of {nf} frames "
-                  f"in '{h5}'", file=out)
+            if new:
+                print(f"tracked {new} frame(s) in {elapsed:.1f} s{rate}{kept}: {n} of {nf} "
+                      f"frames in '{h5}'", file=out)
+                print(f"numerical kernels compiled or loaded in {compile_s:.1f} s before "
+                      f"tracking (not counted in the rate; a first run compiles them, later "
+                      f"runs load them)", file=out)
+            else:
+                print(f"nothing to track: all {n} of {nf} frames are in '{h5}'" if n == nf
+                      else f"tracked 0 frames: {n} of {nf} frames in '{h5}'", file=out)
             if updates:
                 print("reference image changed at frames " + ", ".join(map(str, updates)),
                       file=out)
             if n:
                 print(f"last frame ({Path(results.image_names[n - 1]).name}): "
-                      f"{results.field(n - 1).summary()}", file=out)
+                      f"{_summary(results.field(n - 1), _never_measurable(results))}",
+                      file=out)
             for line in camera_summary(h5):   # calibrated cameras: 3-D or lens-corrected
                 print(line, file=out)
             if folder is not None:
-                print(f"wrote {written} files (displacement tables as CSV and maps as PNG) to "
-                      f"'{folder}'" if written else
+                print(f"wrote {written} files (tables as CSV, each with a JSON description, "
+                      f"and strain maps as PNG) to '{folder}'" if written else
                       f"displacement tables and maps in '{folder}' were already up to date",
                       file=out)
     except KeyboardInterrupt:
@@ -581,7 +674,7 @@ def _run(args, out=None):
                   f"frames are saved in '{h5}'", file=sys.stderr)
             return EXIT_INTERRUPTED
         if show:
-            for name in ("tensile", "report_html", "report_pdf"):
+            for name in ("tensile", "animation", "report_html", "report_pdf"):
                 if name in done:
                     print(f"wrote {done[name]}", file=out)
     return EXIT_OK
@@ -595,15 +688,26 @@ def _measured_share(path):
     import h5py
     import numpy as np
 
+    import json
+
+    from dic.field import Reason
+
     with h5py.File(path, "r", locking=False) as f:
         n = int(f["n_done"][()])
         if not n:
             return None
         reason = f["frames/reason"]
-        total = int(np.prod(reason.shape[1:]))
-        share = np.array([np.count_nonzero(reason[k] == 0) / total for k in range(n)])
+        st = json.loads(f.attrs.get("settings", "{}"))
+        frames, ref = list(st.get("frames", [])), st.get("reference", 0)
+        k_ref = frames.index(ref) if ref in frames and frames.index(ref) < n else 0
+        # grid points whose subset leaves the ROI or the reference image: never measurable
+        can = ~np.isin(reason[k_ref], (int(Reason.OUTSIDE_ROI), int(Reason.OUTSIDE_IMAGE)))
+        total = max(int(can.sum()), 1)
+        never = int(can.size - can.sum())
+        share = np.array([np.count_nonzero((reason[k] == 0) & can) / total for k in range(n)])
     lo, hi = int(np.argmin(share)), int(np.argmax(share))
-    return (f"measured points per frame (of {total}): lowest {100 * share[lo]:.1f} % "
+    return (f"measured points per frame (of the {total} that can be measured; {never} more "
+            f"grid points never can): lowest {100 * share[lo]:.1f} % "
             f"(frame {lo}), median {100 * np.median(share):.1f} %, highest "
             f"{100 * share[hi]:.1f} % (frame {hi})")
 

@@ -221,8 +221,14 @@ def draw_colorbar(fig, mappable, axes, label, data, lo, hi, horizontal):
     cbar.set_label("\n".join(textwrap.wrap(label, 70 if horizontal else 45)))
     from matplotlib.ticker import ScalarFormatter
 
+    from matplotlib.ticker import MaxNLocator
+
     plain = ScalarFormatter(useOffset=False)  # no "+9.999e-1" offsets on the key
-    (cbar.ax.xaxis if horizontal else cbar.ax.yaxis).set_major_formatter(plain)
+    axis = cbar.ax.xaxis if horizontal else cbar.ax.yaxis
+    axis.set_major_formatter(plain)
+    if horizontal:
+        # long labels (0.99980 ... 1.00000) side by side: few enough ticks that they never touch
+        axis.set_major_locator(MaxNLocator(nbins=4, min_n_ticks=2))
     if cbar.solids is not None:
         cbar.solids.set_alpha(1.0)  # the key itself opaque, so its colours read true
     return cbar

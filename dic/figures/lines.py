@@ -9,24 +9,27 @@ import math
 
 import numpy as np
 
-from dic.figures.common import check_size, display_unit, is_results
+from dic.figures.common import MEASURE_TITLES, check_size, display_unit, is_results
 
-__all__ = ["PLAIN_STRAIN_UNITS", "curve_figure", "gauge_items", "history_figure",
+__all__ = ["PLAIN_STRAIN_UNITS", "curve_figure", "gauge_items", "gauge_words", "history_figure",
            "stress_strain_figure", "valid_counts", "valid_points_plot"]
 
 #: units of a gauge history that mean a plain strain number (shown in %)
 PLAIN_STRAIN_UNITS = ("", "1", "-", "strain", "mm/mm", "m/m")
 
 
-def _line_figure(figsize, rows=1, default=(8.0, 4.5)):
+def _line_figure(figsize, rows=1, default=(8.0, 4.5), cols=None):
+    """A figure with ``rows`` axes sharing x; with ``cols``, a grid (list of rows) instead."""
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
     fig = Figure(figsize=check_size(default if figsize is None else figsize, "figsize"),
                  layout="constrained")
     FigureCanvasAgg(fig)
-    axes = fig.subplots(rows, 1, sharex=True, squeeze=False)[:, 0]
-    return fig, list(axes)
+    grid = fig.subplots(rows, cols or 1, sharex=True, squeeze=False)
+    if cols is None:
+        return fig, list(grid[:, 0])
+    return fig, [list(r) for r in grid]
 
 
 def _frame_axis(frames, times):
@@ -70,6 +73,31 @@ def gauge_items(gauges):
         else:
             out.append(g)
     return out
+
+
+def gauge_words(name):
+    """A history column's code name in words: ``axial.green-lagrange`` -> ``axial gauge,
+    Green-Lagrange strain``; ``transverse.length`` -> ``transverse gauge, length``.
+
+    Parameters
+    ----------
+    name : str
+
+    Returns
+    -------
+    str
+    """
+    text = str(name)
+    gauge, dot, what = text.partition(".")
+    if not dot:
+        return text.replace("_", " ")
+    what = what.replace("_", " ")
+    key = what.lower().strip()
+    if key in MEASURE_TITLES:
+        what = f"{MEASURE_TITLES[key]} strain"
+    elif key in ("xx", "yy", "xy", "major", "minor"):
+        what = f"mean strain {key}"
+    return f"{gauge.replace('_', ' ')} gauge, {what}"
 
 
 def history_figure(gauges, *, times=None, title=None, figsize=None):
@@ -116,21 +144,39 @@ def history_figure(gauges, *, times=None, title=None, figsize=None):
                              f"values; give one value per frame")
         unit = str(getattr(g, "unit", "") or "").strip()
         plain = unit.lower() in PLAIN_STRAIN_UNITS
-        key = "strain (%)" if plain else unit
-        groups.setdefault(key, []).append((name, frames, values * (100.0 if plain else 1.0)))
-    fig, axes = _line_figure(figsize, rows=len(groups),
-                             default=(8.0, 1.0 + 3.2 * len(groups)))
+        # one panel per gauge and unit: a long and a short gauge on one axis would hide the
+        # smaller one's change
+        gauge = name.partition(".")[0] if "." in name else ""
+        key = (gauge, "strain (%)" if plain else unit)
+        groups.setdefault(key, []).append((gauge_words(name), frames,
+                                           values * (100.0 if plain else 1.0)))
+    names = list(dict.fromkeys(g for g, _ in groups))
+    units = list(dict.fromkeys(u for _, u in groups))
+    if len(names) > 1 and all(g for g in names) and len(groups) == len(names) * len(units):
+        # gauges side by side, one row per quantity: each with its own axis
+        fig, grid = _line_figure(figsize, rows=len(units), cols=len(names),
+                                 default=(8.0, 1.0 + 2.6 * len(units)))
+        axes = [grid[units.index(u)][names.index(g)] for g, u in groups]
+    else:
+        fig, axes = _line_figure(figsize, rows=len(groups),
+                                 default=(8.0, 1.0 + 2.4 * len(groups)))
+        grid = [[ax] for ax in axes]
     xlabel = "frame"
-    for ax, (unit, lines) in zip(axes, groups.items()):
+    for ax, ((gauge, unit), lines) in zip(axes, groups.items()):
         for name, frames, values in lines:
             x, xlabel = _frame_axis(frames, times)
             ax.plot(x, values, marker="o" if values.size <= 60 else None, markersize=3,
-                    linewidth=1.4, label=name)
+                    linewidth=1.4, label=name.removeprefix(f"{gauge} gauge, ") if gauge
+                    else name)
         ax.set_ylabel(unit)
+        if gauge:
+            ax.set_title(f"{gauge.replace('_', ' ').capitalize()} gauge", fontsize=9,
+                         loc="left")
         ax.grid(True, linewidth=0.4, alpha=0.6)
         ax.legend(fontsize=8, loc="best")
-    axes[-1].set_xlabel(xlabel)
-    axes[0].set_title(title if title is not None else "Gauge readings", fontsize=11)
+    for ax in grid[-1]:
+        ax.set_xlabel(xlabel)
+    fig.suptitle(title if title is not None else "Gauge readings", fontsize=11)
     return fig
 
 
@@ -201,7 +247,8 @@ def valid_counts(results):
     counts : ndarray of int, shape (n_frames_done,)
         Measured points in each completed frame.
     total : int
-        Points inside the region of interest (grid points whose subset lies in it).
+        Points that can be measured: grid points whose subset lies inside the region of
+        interest and inside the reference image (read from the reference frame, else frame 0).
     median_zncc : ndarray of float
         Median ZNCC of the measured points per frame (NaN where none).
     """
@@ -211,11 +258,15 @@ def valid_counts(results):
     counts = np.zeros(n, dtype=np.int64)
     median = np.full(n, np.nan)
     total = int(np.prod(results.shape))
+    st = getattr(results, "settings", {}) or {}
+    frames, ref = list(st.get("frames", [])), st.get("reference", 0)
+    k_ref = frames.index(ref) if ref in frames and frames.index(ref) < n else 0
+    never = (int(Reason.OUTSIDE_ROI), int(Reason.OUTSIDE_IMAGE))
     for k in range(n):
         f = results.field(k)
         counts[k] = f.n_valid
-        if k == 0:
-            total = int(np.count_nonzero(f.reason != Reason.OUTSIDE_ROI))
+        if k == k_ref:
+            total = int(np.count_nonzero(~np.isin(f.reason, never)))
         z = f.zncc[f.valid]
         z = z[np.isfinite(z)]
         if z.size:
@@ -232,8 +283,8 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
     source : dic.sequence.Results or array_like of int
         A results file, or the counts themselves (one per frame, from frame 0).
     total : int, optional
-        Points that could have been measured (inside the region of interest); taken from the
-        results file when ``source`` is one.
+        Points that could have been measured (inside the region of interest and the
+        reference image); taken from the results file when ``source`` is one.
     reference_updates : sequence of int, optional
         Frames where the reference image changed, marked with dotted lines; taken from the
         results file when ``source`` is one.
@@ -266,7 +317,7 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
     ax.plot(x, counts, marker="o" if counts.size <= 60 else None, markersize=3,
             color="#1f4e79", linewidth=1.4, label="measured points")
     ax.axhline(total, color="0.4", linewidth=0.9, linestyle="-",
-               label=f"inside the region of interest ({int(total)})")
+               label=f"points that can be measured ({int(total)})")
     for i, k in enumerate(reference_updates if reference_updates is not None else ()):
         if 0 <= int(k) < counts.size:
             ax.axvline(x[int(k)], color="#b35806", linestyle=":", linewidth=1.2,
@@ -276,7 +327,7 @@ def valid_points_plot(source, *, total=None, reference_updates=None, times=None,
     ax.set_ylabel("measured points")
     sec = ax.secondary_yaxis("right", functions=(lambda c: 100.0 * c / total,
                                                  lambda p: p * total / 100.0))
-    sec.set_ylabel("% of the region of interest")
+    sec.set_ylabel("% of the points that can be measured")
     ax.grid(True, linewidth=0.4, alpha=0.6)
     ax.legend(fontsize=8, loc="lower left")
     ax.set_title(title if title is not None else "Measured points per frame", fontsize=11)
@@ -321,9 +372,11 @@ def stress_strain_figure(res, *, ax=None, strain_unit="%"):
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
 
-        fig = Figure(figsize=(11.0, 5.0), layout="constrained")
+        # the whole curve at full width above, its start below: large enough to read on a
+        # page, legend included
+        fig = Figure(figsize=(8.0, 6.0), layout="constrained")
         FigureCanvasAgg(fig)
-        ax, zoom = fig.subplots(1, 2, width_ratios=[3, 2])
+        ax, zoom = fig.subplots(2, 1, height_ratios=[3, 2])
         _draw_tensile(res, ax, strain_unit, legend=True)
         _draw_tensile(res, zoom, strain_unit, legend=False)
         _zoom_to_yield(res, zoom, strain_unit)
@@ -393,4 +446,4 @@ def _draw_tensile(res, ax, strain_unit, *, legend):
     ax.set_ylabel("Stress (MPa)")
     ax.grid(True, alpha=0.3)
     if legend:
-        ax.legend(fontsize="small", loc="lower right")
+        ax.legend(fontsize=10, loc="lower right")

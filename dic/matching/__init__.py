@@ -286,7 +286,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     max_sigma : float, optional
         Points whose standard deviation of u or v exceeds this many px are ``FLAT``: before
         matching, predicted from the image noise and the subset's grey-level gradients; after
-        it, from the residual of the converged match (``sigma_u``, ``sigma_v``).
+        it, from the residual of the converged match (``std_u``, ``std_v``).
     initial : DisplacementField, optional
         A field on the same grid (for example from the previous image of a sequence) that
         gives the seed points their starting guesses instead of the FFT search; the other
@@ -295,7 +295,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         Threads for the matching kernel (default: all cores).
     image_noise : float or (float, float), optional
         Noise standard deviation of the images in grey levels (one value for both, or
-        reference and deformed). When given, ``sigma_u``, ``sigma_v`` are predicted from it
+        reference and deformed). When given, ``std_u``, ``std_v`` are predicted from it
         (:func:`dic.matching.point_sigma`); by default they come from the residual of each
         converged match (:func:`dic.matching.posterior_sigma`), and the noise estimated from
         each image over the points' area (:func:`dic.metrology.image_noise`) serves only the
@@ -305,7 +305,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     -------
     DisplacementField
         Displacements, gradients, ZNCC and a reason code for every point, the standard
-        deviations ``sigma_u``, ``sigma_v`` (``settings["sigma_from"]`` says from what) and the
+        deviations ``std_u``, ``std_v`` (``settings["sigma_from"]`` says from what) and the
         shape-function order of each point (``shape_order``); the noise used is in
         ``settings["image_noise"]`` (reference, deformed).
 
@@ -421,8 +421,8 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         u=p[:, iu].reshape(shape), v=p[:, iv].reshape(shape), grad=grad,
         zncc=np.where(good, prop.zncc, np.nan).reshape(shape),
         reason=prop.reason.reshape(shape), iterations=prop.iters.reshape(shape),
-        grad2=grad2, settings=settings, sigma_u=sig_u.reshape(shape),
-        sigma_v=sig_v.reshape(shape), shape_order=shape_order.reshape(shape))
+        grad2=grad2, settings=settings, std_u=sig_u.reshape(shape),
+        std_v=sig_v.reshape(shape), shape_order=shape_order.reshape(shape))
     _warn_flat(field, candidate)
     log.info("matched %s", field.summary())
     return field
@@ -627,7 +627,7 @@ def _subset_std(prop, good):
 
 def _finish(prop, shape_order, noise, order, max_sigma):
     """Per-point standard deviations, then the points too uncertain (FLAT) or inconsistent
-    with their neighbours (INCONSISTENT) taken out. Returns (sigma_u, sigma_v)."""
+    with their neighbours (INCONSISTENT) taken out. Returns (std_u, std_v)."""
 
     good = prop.state == prop.w.GOOD
     npix = (2 * prop.m.half + 1) ** 2

@@ -111,7 +111,7 @@ def posterior_sigma(std, zncc, terms, npix, npar, order=5):
 
     Returns
     -------
-    sigma_u, sigma_v : ndarray
+    std_u, std_v : ndarray
 
     References
     ----------

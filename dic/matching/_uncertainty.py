@@ -75,7 +75,7 @@ def point_sigma(terms, noise_reference, noise_deformed, order: int = 5):
 
     Returns
     -------
-    sigma_u, sigma_v : ndarray, shape (...)
+    std_u, std_v : ndarray, shape (...)
         Standard deviations in px (NaN where ``terms`` is NaN).
 
     References
@@ -164,7 +164,7 @@ def predicted_sigma(image, subset, noise, *, points=None, step=None, shape_funct
 
     Returns
     -------
-    sigma_u, sigma_v : ndarray
+    std_u, std_v : ndarray
         Per point, px (NaN where a subset has too little texture to invert its Hessian).
     xs, ys : ndarray of int
         The points.

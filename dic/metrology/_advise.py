@@ -19,13 +19,25 @@ __all__ = ["advise", "Advice"]
 
 SUBSETS = (15, 21, 27, 31, 41)
 WINDOWS = (5, 7, 9, 11, 15)
-#: steps are these multiples of a base step (about a tenth of the subset, at least 2 px, more
-#: on large regions), up to half the subset
+#: steps are these multiples of a base step (a quarter of the subset, at least 2 px, more on
+#: large regions), up to half the subset
 STEP_MULTIPLES = (1, 2, 3, 4, 5)
+#: the smallest step proposed, as a share of the subset: below it neighbouring subsets share
+#: more than three quarters of their pixels, so the extra points are not independent
+#: measurements, while the matching time grows as 1 / step^2 (common practice, no source)
+STEP_FLOOR = 0.25
 #: a candidate meets a target only with this much to spare, for the scatter between images
 MARGIN = 0.9
 #: base-step grids hold at most about this many points
 _MAX_POINTS = 40_000
+
+
+def _margin(value, target):
+    """How far a value lies below its target, in words."""
+    if not (np.isfinite(value) and target > 0):
+        return "margin not known"
+    spare = 1.0 - value / target
+    return f"{100 * spare:.0f} % below it" if spare > 0 else "at the target"
 
 
 @dataclass
@@ -177,8 +189,10 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
     With a noise target the proposed setting is the one that meets it with the smallest
     virtual strain gauge (VSG = (window - 1) step + subset), i.e. the finest resolution. With
     only a resolution target it is the one that meets it with the least noise (the smallest
-    VSG would be the noisiest). A setting meets a target with 10 % to spare (scatter between
-    images). When none does, the advice says so and gives the best reachable setting.
+    VSG would be the noisiest). A setting meets a target with at least 10 % to spare (scatter
+    between images); the message gives the real margin. Steps below a quarter of the subset
+    (:data:`STEP_FLOOR`) are not tried by default. When none meets the target, the advice says
+    so and gives the best reachable setting.
 
     Parameters
     ----------
@@ -233,7 +247,7 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
     plan = {}
     for s in subsets:
         if steps is None:
-            b = max(2, round(s / 10), int(math.ceil(math.sqrt(area / _MAX_POINTS))))
+            b = max(2, round(STEP_FLOOR * s), int(math.ceil(math.sqrt(area / _MAX_POINTS))))
             plan[s] = [b * m for m in STEP_MULTIPLES if b * m <= max(b, s // 2 + 1)]
         else:
             plan[s] = sorted({int(t) for t in steps})
@@ -333,8 +347,18 @@ def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_siz
         wanted.append(f"strain spatial resolution of {length(t_res)}")
     want = " and ".join(wanted)
     if meeting:
-        message = (f"Proposed settings for a {want} (met with 10 % to spare, VSG "
-                   f"{chosen['vsg']} px):")
+        got = []
+        if t_noise is not None:
+            got.append(f"strain noise {chosen['strain_noise'] * 1e6:.3g} microstrain against "
+                       f"{t_noise * 1e6:.3g} asked, {_margin(chosen['strain_noise'], t_noise)}")
+        if t_res is not None:
+            got.append(f"spatial resolution {length(chosen['resolution'])} against "
+                       f"{length(t_res)} asked, {_margin(chosen['resolution'], t_res)}")
+        message = (f"Proposed settings for a {want} ({'; '.join(got)}; VSG "
+                   f"{chosen['vsg']} px). Steps below a quarter of the subset are not "
+                   f"proposed: the extra points would share most of their pixels with their "
+                   f"neighbours, adding matching time (as 1/step\u00b2) but no independent "
+                   f"information:")
     else:
         message = (f"No setting tried reaches a {want}. The best reachable (strain noise "
                    f"{chosen['strain_noise'] * 1e6:.3g} microstrain, spatial resolution "

@@ -9,6 +9,7 @@ from dataclasses import dataclass, field as dc_field
 import numpy as np
 
 from dic.errors import InputError
+from dic.metrology._rows import Row, microstrain, pixels
 
 __all__ = ["noise_floor", "NoiseFloor", "COMPONENTS"]
 
@@ -69,7 +70,7 @@ class NoiseFloor:
     temporal_rms : dict or None
         Root mean square of each temporal map over its points.
     predicted : (float, float)
-        Root mean square of the per-point predicted ``sigma_u``, ``sigma_v`` (px) of the
+        Root mean square of the per-point predicted ``std_u``, ``std_v`` (px) of the
         fields, to set against ``spatial["u"]``, ``spatial["v"]``.
     n_points : int
         Grid points measured in every image.
@@ -113,6 +114,50 @@ class NoiseFloor:
             lines.append("  temporal standard deviation: needs at least three images")
         lines.extend(f"  warning: {w}" for w in self.warnings)
         return "\n".join(lines)
+
+    #: what the result is called in a report
+    TITLE = "Noise floor"
+    #: the method, named once wherever the rows are shown
+    METHOD = ("Images of the unloaded specimen were matched against the first of them: nothing "
+              "moved, so every displacement and strain measured is error (the noise-floor "
+              "test of the iDICs Good Practices Guide, 2018).")
+
+    def report_rows(self, scale=None):
+        """The results as rows a person reads: name, value with unit, what it means.
+
+        Parameters
+        ----------
+        scale : float, optional
+            mm per px, to give lengths in mm too.
+
+        Returns
+        -------
+        list of Row
+        """
+        sp = self.spatial
+        rows = [
+            Row("Images of the unloaded specimen", f"{self.n_images}",
+                "Static images matched against the first; the first is the reference."),
+            Row("Displacement noise floor", f"u {pixels(sp['u'], 2, scale)}, "
+                                            f"v {pixels(sp['v'], 2, scale)}",
+                "Scatter of the displacement over the region, averaged over the images.",
+                "displacement noise"),
+            Row("Strain noise floor", f"xx {microstrain(sp['xx'])}, yy {microstrain(sp['yy'])}, "
+                                      f"xy {microstrain(sp['xy'])}",
+                "Scatter of the strain over the region (xy is tensor shear): strains smaller "
+                "than this are not resolved.", "strain noise"),
+            Row("Displacement noise predicted", f"u {pixels(self.predicted[0], 2, scale)}, "
+                                                f"v {pixels(self.predicted[1], 2, scale)}",
+                "The same, predicted from each subset's pattern and the image noise."),
+        ]
+        if self.temporal_rms is not None:
+            t = self.temporal_rms
+            rows.append(Row("Scatter over time", f"u {pixels(t['u'], 2, scale)}, "
+                                                 f"v {pixels(t['v'], 2, scale)}; "
+                                                 f"xx {microstrain(t['xx'])}",
+                            "Per point, the scatter from image to image (root mean square "
+                            "over the points)."))
+        return rows
 
     def as_dict(self) -> dict:
         """Scalars only (maps left out), for reports and files."""
@@ -216,8 +261,8 @@ def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, ro
             temporal[c] = t
             temporal_rms[c] = (float(np.sqrt(np.mean(t[every] ** 2))) if every.any()
                                else float("nan"))
-    su = np.concatenate([f.sigma_u[f.valid] for f in fields if f.sigma_u is not None])
-    sv = np.concatenate([f.sigma_v[f.valid] for f in fields if f.sigma_v is not None])
+    su = np.concatenate([f.std_u[f.valid] for f in fields if f.std_u is not None])
+    sv = np.concatenate([f.std_v[f.valid] for f in fields if f.std_v is not None])
     predicted = (float(np.sqrt(np.nanmean(su ** 2))) if su.size else float("nan"),
                  float(np.sqrt(np.nanmean(sv ** 2))) if sv.size else float("nan"))
     warnings = []

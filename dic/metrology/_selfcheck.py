@@ -7,6 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from dic.metrology._rows import Row, microstrain, number, pixels
 from dic.metrology._deform import EDGE, shift_image, stretch_image, wave_image, wave_periods
 from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
 
@@ -107,8 +108,8 @@ def subsample(f, m):
         reason=f.reason[s], iterations=f.iterations[s],
         grad2=None if f.grad2 is None else f.grad2[s],
         settings=dict(f.settings, step=f.step * m),
-        sigma_u=None if f.sigma_u is None else f.sigma_u[s],
-        sigma_v=None if f.sigma_v is None else f.sigma_v[s])
+        std_u=None if f.std_u is None else f.std_u[s],
+        std_v=None if f.std_v is None else f.std_v[s])
 
 
 def _full_window(strain, window):
@@ -235,7 +236,7 @@ class SelfCheck:
     displacement_noise : (float, float)
         Standard deviation of (u, v) with no motion, only image noise.
     predicted_noise : (float, float)
-        Root mean square of the per-point ``sigma_u``, ``sigma_v`` of that field.
+        Root mean square of the per-point ``std_u``, ``std_v`` of that field.
     strain_noise : dict
         Standard deviation of ``xx``, ``yy``, ``xy`` with no motion.
     stretch : dict
@@ -311,6 +312,72 @@ class SelfCheck:
             f"{self.mei_strain:.2f} px^2",
         ]
         return "\n".join(lines)
+
+    #: what the result is called in a report
+    TITLE = "Self-check of the settings"
+    #: the method, named once wherever the rows are shown
+    METHOD = ("The analysis settings were run on this test's own reference image under exactly "
+              "known motion: subpixel shifts, a uniform stretch, and a sine wave whose period "
+              "shortens until it is no longer followed (the DIC Challenge 2.0 procedure, "
+              "Reu et al., Exp. Mech. 62 (2022) 639; theory from Schreier & Sutton, Exp. Mech. "
+              "42 (2002) 303).")
+
+    def report_rows(self, scale=None):
+        """The results as rows a person reads: name, value with unit, what it means.
+
+        Parameters
+        ----------
+        scale : float, optional
+            mm per px, to give lengths in mm too.
+
+        Returns
+        -------
+        list of Row
+            ``Row(quantity, value, meaning, kind)``; see :data:`METHOD` for the method.
+        """
+        sd_u, sd_v = self.displacement_noise
+        pu, pv = self.predicted_noise
+        sn, st = self.strain_noise, self.stretch
+        fu, fe = self.resolution_flags
+        beyond = {"<": "shorter than ", ">": "longer than ", "": ""}
+        s = self.settings
+        return [
+            Row("Image noise", f"{number(self.noise)} grey levels",
+                f"Random grey-level noise of the camera ({self.noise_source}), added to "
+                f"every simulated image."),
+            Row("Displacement bias", pixels(self.displacement_bias, 2, scale),
+                "Largest systematic error over subpixel shifts of 0 to 0.5 px."),
+            Row("Displacement noise", f"u {pixels(sd_u, 2, scale)}, v {pixels(sd_v, 2, scale)}",
+                "Scatter (standard deviation) of the displacement with no motion.",
+                "displacement noise"),
+            Row("Displacement noise predicted", f"u {pixels(pu, 2, scale)}, "
+                                                f"v {pixels(pv, 2, scale)}",
+                "The same, predicted from each subset's pattern and the image noise; close "
+                "to the line above when the prediction holds."),
+            Row("Strain noise", f"xx {microstrain(sn['xx'])}, yy {microstrain(sn['yy'])}, "
+                                f"xy {microstrain(sn['xy'])}",
+                "Scatter of the strain with no motion: the smallest strain change the "
+                "settings resolve (xy is tensor shear).", "strain noise"),
+            Row("Strain bias under stretch",
+                f"xx {microstrain(st['bias'][0])}, yy {microstrain(st['bias'][1])}",
+                f"Mean strain error under a known stretch of "
+                f"{number(100 * st['applied'][0])} % along x and {number(100 * st['applied'][1])} % "
+                f"along y."),
+            Row("Spatial resolution, displacement",
+                beyond[fu] + pixels(self.resolution_u, 3, scale),
+                f"Shortest wavelength of a displacement pattern measured with at most 10 % "
+                f"loss of amplitude (theory for subset {s['subset']} px: "
+                f"{pixels(self.theory_u, 3, scale)}).", "spatial resolution"),
+            Row("Spatial resolution, strain",
+                beyond[fe] + pixels(self.resolution_strain, 3, scale),
+                f"The same for strain, with a virtual strain gauge of {number(s['vsg'])} px "
+                f"(theory: {pixels(self.theory_strain, 3, scale)}).", "spatial resolution"),
+            Row("Noise × resolution, displacement", f"{number(self.mei_u)} px²",
+                "Displacement noise times its spatial resolution: a figure of merit to "
+                "compare settings (lower is better)."),
+            Row("Noise × resolution², strain", f"{number(self.mei_strain)} px²",
+                "Strain noise times the square of its spatial resolution (lower is better)."),
+        ]
 
     def figure(self):
         """Measured and theoretical transfer functions (a matplotlib Figure, Agg canvas)."""
@@ -454,8 +521,8 @@ def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=
     strain_noise = {c: float(np.std(getattr(e0, c)[v0])) if v0.any() else float("nan")
                     for c in ("xx", "yy", "xy")}
     disp_noise = (float(np.std(field0.u[ok0])), float(np.std(field0.v[ok0])))
-    pred = (float(np.sqrt(np.nanmean(field0.sigma_u[ok0] ** 2))),
-            float(np.sqrt(np.nanmean(field0.sigma_v[ok0] ** 2))))
+    pred = (float(np.sqrt(np.nanmean(field0.std_u[ok0] ** 2))),
+            float(np.sqrt(np.nanmean(field0.std_v[ok0] ** 2))))
 
     # 2. homogeneous stretch about the centre of the crop
     exx, eyy = (float(a) for a in stretch)

@@ -37,7 +37,8 @@ def _replace(target, write):
 
 
 def write_report(results_path, out_dir, *, frames=None, window=9, measure="green-lagrange",
-                 gauges=None, tensile=None, metrology=None, title=None):
+                 gauges=None, tensile=None, metrology=None, title=None, gauge_lines=None,
+                 limits="shared"):
     """Write the report of a results file as one HTML file and one PDF file.
 
     The HTML file is self-contained: styles inline, figures embedded as PNG data, no address
@@ -76,6 +77,13 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
         settings table.
     title : str, optional
         Report title; by default from the results file's name.
+    gauge_lines : sequence of dict, optional
+        Gauges to draw on the maps: ``{"points": (n, 2) px, "label": text}``, with
+        ``"ends_mm"`` (end points in mm) for the caption (see
+        :func:`dic.workflow.run.gauge_lines`).
+    limits : {"shared", "per-frame"}, optional
+        Colour scale of the strain maps: one per component for all frames (frames compare
+        side by side), or one per map (small strains in early frames show).
 
     When neither ``gauges`` nor ``tensile`` is given, the gauge histories and tensile results
     stored beside the results file by ``dic tensile`` or ``dic run --config``
@@ -116,7 +124,8 @@ def write_report(results_path, out_dir, *, frames=None, window=9, measure="green
                              f"into it first")
         out = out_folder(out_dir, "the report")
         doc = build_document(res, frames=frames, window=window, measure=measure,
-                             gauges=gauges, tensile=tensile, metrology=metrology, title=title)
+                             gauges=gauges, tensile=tensile, metrology=metrology, title=title,
+                             gauge_lines=gauge_lines, map_scale=limits)
     finally:
         res.close()
     text = render_html(doc)

@@ -16,7 +16,7 @@ from dic import __version__
 from dic.figures.common import (MEASURE_TITLES, display_unit, find_image, frame_indices,
                                 limits_from_top, quantity_values, robust_top)
 from dic.figures.layers import gauge_shapes, grid_view
-from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, history_figure,
+from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, gauge_words, history_figure,
                                stress_strain_figure, valid_counts, valid_points_plot)
 from dic.figures.maps import measure_comparison, quality_map, strain_map
 from dic.report._cameras import camera_blocks
@@ -54,6 +54,8 @@ CAUTIONS = (
 FIGURE_DPI = 120
 #: largest number of frames listed one by one in the data-quality table
 _MAX_ROWS = 60
+#: opacity of the strain maps over the specimen image: strain reads first, the image faintly
+MAP_OPACITY = 0.9
 #: strain components drawn at every chosen frame (xy is tensor shear)
 MAP_COMPONENTS = ("xx", "yy", "xy")
 
@@ -300,9 +302,22 @@ def _number_text(key, value):
 
 
 def _uncertainty_figures(items):
-    """Noise floors and spatial resolutions picked out of metrology mappings by key words."""
+    """Noise floors and spatial resolutions: from the tagged rows of metrology results, or picked
+    out of plain mappings by key words; each value followed by where it comes from."""
+    kinds = {"displacement noise": "Displacement noise floor",
+             "strain noise": "Strain noise floor", "spatial resolution": "Spatial resolution"}
     found = {}
     for item in items:
+        source = item["title"].lower() or "metrology"
+        for row in item["report_rows"]:
+            if row.kind in kinds:
+                q, label = row.quantity.lower(), kinds[row.kind].lower()
+                rest = q.removeprefix(label).removeprefix(label.removesuffix(" floor"))
+                rest = rest.strip(" ,")
+                text = f"{rest}: {row.value}" if rest else row.value
+                found.setdefault(kinds[row.kind], []).append(f"{text} ({source})")
+        if item["report_rows"]:
+            continue
         for key, value in item["rows"].items():
             k = key.lower()
             if not isinstance(value, (int, float, np.integer, np.floating, list, tuple,
@@ -316,12 +331,19 @@ def _uncertainty_figures(items):
                 label = "Displacement noise floor"
             else:
                 continue
-            found.setdefault(label, []).append(f"{_number_text(key, value)} ({key})")
+            found.setdefault(label, []).append(f"{_number_text(key, value)} ({_label(key)}, "
+                                               f"{source})")
     return {label: "; ".join(texts) for label, texts in found.items()}
 
 
-def _metrology_items(metrology):
-    """Each metrology input as ``{title, rows, summary, figure}``."""
+def _label(key):
+    """A flattened mapping key (``strain_noise / xx``) in words (``Strain noise, xx``)."""
+    parts = [_words(p)[0].replace("_", " ") for p in str(key).split(" / ")]
+    return ", ".join(p if i == 0 else p[:1].lower() + p[1:] for i, p in enumerate(parts))
+
+
+def _metrology_items(metrology, scale=None):
+    """Each metrology input as ``{title, rows, report_rows, method, summary, figure}``."""
     from matplotlib.figure import Figure
 
     objs = list(metrology) if isinstance(metrology, (list, tuple)) else [metrology]
@@ -336,39 +358,58 @@ def _metrology_items(metrology):
                 raise
             mapping = {}
         rows = {k: v for k, v in _flatten(mapping).items() if _is_short(v)}
+        described = getattr(obj, "report_rows", None)
+        described = list(described(scale=scale)) if callable(described) else []
         fig = getattr(obj, "figure", None)
         if callable(fig) and not isinstance(fig, Figure):
             fig = fig()  # a metrology result's figure() takes no arguments
         name = type(obj).__name__
-        title = "" if isinstance(obj, Mapping) else " ".join(
-            re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize()
-        items.append({"title": title, "rows": rows,
+        title = "" if isinstance(obj, Mapping) else str(getattr(obj, "TITLE", "") or " ".join(
+            re.findall(r"[A-Z][a-z]*|[a-z]+", name)).capitalize())
+        items.append({"title": title, "rows": rows, "report_rows": described,
+                      "method": str(getattr(obj, "METHOD", "")),
                       "summary": summary if isinstance(summary, str) else "",
                       "figure": fig if isinstance(fig, Figure) else None})
     return items
 
 
+def _plain_value(key, value):
+    """A value of a plain metrology mapping as text, or None when there is nothing to show."""
+    if isinstance(value, str):
+        value = value.strip()
+        return value if value.strip(" ,;<>=-") else None
+    if isinstance(value, (list, tuple)) and all(isinstance(v, str) for v in value):
+        kept = [v.strip() for v in value if v.strip(" ,;<>=-")]
+        return ", ".join(kept) if kept else None
+    return _number_text(key, value)
+
+
 def _uncertainty(items):
-    blocks = [Paragraph("As assessed by the noise measurements and self-check supplied with "
-                        "this report. The noise floor is the scatter of a quantity measured "
-                        "with no deformation; the spatial resolution is the shortest "
-                        "wavelength of a displacement or strain pattern that is still measured "
-                        "without more than 10 % loss of amplitude (iDICs 2018; Reu et al., "
-                        "Exp. Mech. 62 (2022) 639).")]
+    blocks = [Paragraph("The noise floor is the scatter of a quantity measured with no "
+                        "deformation; the spatial resolution is the shortest wavelength of a "
+                        "displacement or strain pattern that is still measured with at most "
+                        "10 % loss of amplitude.")]
     for item in items:
-        if item["summary"]:
-            for line in item["summary"].splitlines():
-                if line.strip():
-                    blocks.append(Paragraph(line.strip(), "note"))
-        rows = []
-        for key, value in item["rows"].items():
-            label, _ = _words(key.rsplit(" / ", 1)[-1])
-            if " / " in key:
-                label = f"{key.rsplit(' / ', 1)[0]} / {label}"
-            rows.append((label, _number_text(key, value)))
-        if rows:
-            blocks.append(Table(rows=rows, header=("Quantity", "Value"),
+        if item["report_rows"]:
+            if item["method"]:
+                blocks.append(Paragraph(item["method"], "note"))
+            blocks.append(Table(rows=[(r.quantity, r.value, r.meaning)
+                                      for r in item["report_rows"]],
+                                header=("Quantity", "Value", "What it means"),
                                 caption=item["title"]))
+        else:
+            if item["summary"]:
+                for line in item["summary"].splitlines():
+                    if line.strip():
+                        blocks.append(Paragraph(line.strip(), "note"))
+            rows = []
+            for key, value in item["rows"].items():
+                text = _plain_value(key, value)
+                if text:
+                    rows.append((_label(key), text))
+            if rows:
+                blocks.append(Table(rows=rows, header=("Quantity", "Value"),
+                                    caption=item["title"]))
         if item["figure"] is not None:
             blocks.append(_figure(item["figure"], f"{item['title'] or 'Metrology'}: measured "
                                                   f"and expected behaviour.",
@@ -382,17 +423,21 @@ def _frame_label(res, k):
     return f"frame {k} ({name}" + (f", t = {t:.4g} s" if math.isfinite(t) else "") + ")"
 
 
-def _maps(res, info, chosen, shapes):
+def _maps(res, info, chosen, shapes, shared=True):
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.figure import Figure
 
+    scale_text = ("Each component keeps the same colour scale in every frame (the 99.5th "
+                  "percentile of its absolute value over all frames analysed), so frames "
+                  "compare; values beyond it take the end colours." if shared else
+                  "Each map has its own colour scale (the 99.5th percentile of its absolute "
+                  "value), so that small strains in early frames show; compare frames by "
+                  "their colour bars, not their colours.")
     blocks = [Paragraph(
         f"Strain components xx, yy and xy (tensor shear) at {len(chosen)} frame"
         f"{'s' if len(chosen) > 1 else ''}, {info['measure_title']} strain, VSG "
-        f"{_fmt(info['vsg'])} px. Each component keeps the same colour scale in every frame "
-        f"(the 99.5th percentile of its absolute value over all frames analysed); values "
-        f"beyond it take the end colours. Red is extension, blue contraction. Areas left "
-        f"blank were not measured.")]
+        f"{_fmt(info['vsg'])} px. {scale_text} Red is extension, blue contraction; the "
+        f"specimen image shows faintly underneath. Areas left blank were not measured.")]
     ref_image = find_image(res, None)
     for k in chosen:
         s = res.strain(k, window=info["window"], measure=info["measure"])
@@ -414,7 +459,8 @@ def _maps(res, info, chosen, shapes):
         axes = fig.subplots(3, 1) if wide else fig.subplots(1, 3)
         for ax, comp in zip(axes, MAP_COMPONENTS):
             strain_map(s, img, component=comp, field=field, configuration=config, ax=ax,
-                       limits=info["limits"][comp], units=info["units"][comp],
+                       limits=info["limits"][comp] if shared else None,
+                       units=info["units"][comp] if shared else "auto", alpha=MAP_OPACITY,
                        scale=res.scale, gauges=shapes, crop=True,
                        title=f"{comp}" + (" (tensor shear)" if comp == "xy" else ""))
         fig.suptitle(f"{info['measure_title']} strain, {_frame_label(res, k)}", fontsize=11)
@@ -453,7 +499,7 @@ def _measures(res, info, k):
     return [_figure(fig, text, f"Strain {comp} in three measures and the nonlinear share")]
 
 
-def _gauges(res, gauges):
+def _gauges(res, gauges, shapes=()):
     fig = history_figure(gauges, times=np.asarray(res.image_times[:len(res)]))
     rows = []
     for g in gauges:
@@ -465,9 +511,17 @@ def _gauges(res, gauges):
         ok = np.isfinite(values)
         last = _with_unit(values[ok][-1] * f, u) if ok.any() else "no reading"
         big = _with_unit(np.max(np.abs(values[ok])) * f, u) if ok.any() else "\u2013"
-        rows.append((str(g.name), f"{int(ok.sum())} of {frames.size}", last, big))
-    return [_figure(fig, "Gauge readings frame by frame (gauges drawn on the strain maps "
-                         "where they carry their geometry).", "Gauge readings"),
+        name = gauge_words(g.name)
+        rows.append((name[:1].upper() + name[1:], f"{int(ok.sum())} of {frames.size}", last,
+                     big))
+    where = "; ".join(
+        f"{s['label'].split(' ')[0].lower()} gauge from ({_fmt(s['ends_mm'][0][0])}, "
+        f"{_fmt(s['ends_mm'][0][1])}) to ({_fmt(s['ends_mm'][1][0])}, "
+        f"{_fmt(s['ends_mm'][1][1])}) mm" for s in shapes if s.get("ends_mm"))
+    caption = ("Gauge readings frame by frame, one panel per gauge and quantity"
+               + (f"; {where} (x to the right, y down, from the top-left pixel), drawn on "
+                  f"the strain maps." if where else "."))
+    return [_figure(fig, caption, "Gauge readings"),
             Table(rows=rows, header=("Gauge", "Frames read", "Last reading",
                                      "Largest magnitude"))]
 
@@ -601,8 +655,9 @@ def _tensile(tensile):
             else:
                 blocks.append(Table(rows=[r[:3] for r in rows],
                                     header=("Quantity", "Value", "Standard")))
-        blocks += [Paragraph(n, "note") for n in notes]
-        blocks += [Paragraph(c, "caution") for c in cautions]
+    else:
+        notes, cautions = [], []
+    # the curve right after its table, so that the two stay together on a page
     fig = _tensile_figure(tensile)
     if fig is not None:
         blocks.append(_figure(fig, "Stress-strain curve with the fitted lines.",
@@ -610,6 +665,8 @@ def _tensile(tensile):
     else:
         blocks.append(Paragraph("No stress-strain curve is drawn: the tensile input gives "
                                 "values only, without the measured curve.", "note"))
+    blocks += [Paragraph(n, "note") for n in notes]
+    blocks += [Paragraph(c, "caution") for c in cautions]
     return blocks
 
 
@@ -622,7 +679,9 @@ def _quality(res, info, k_last):
     share = 100.0 * counts / total
     worst = int(np.argmin(counts))
     blocks = [Paragraph(
-        f"Measured points per frame out of {total} inside the region of interest: "
+        f"Measured points per frame out of the {total} that can be measured (grid points "
+        f"whose subset lies inside the region of interest and the reference image; "
+        f"{int(np.prod(res.shape)) - total} others never can): "
         f"{int(counts.min())} to {int(counts.max())} ({share.min():.1f} % to "
         f"{share.max():.1f} %), fewest at frame {worst}. A point counts as measured when its "
         f"subset matched with a ZNCC of at least {_fmt(res.settings.get('min_zncc'))}; every "
@@ -641,7 +700,8 @@ def _quality(res, info, k_last):
         text = "; ".join(f"{Reason.describe(Reason[k.upper()])}: {v}"
                          for k, v in reasons.items())
         blocks.append(Paragraph(f"Points not measured at frame {k_last} (inside the region of "
-                                f"interest), by reason: {text}.", "note"))
+                                f"interest), by reason: {text}. Points whose subset leaves the "
+                                f"reference image are among them in every frame.", "note"))
     shown = range(n) if n <= _MAX_ROWS else sorted(
         set(np.argsort(counts)[:_MAX_ROWS // 2].tolist()) | set(info["updates"].tolist()))
     refs = np.asarray(res.reference_indices)
@@ -681,7 +741,8 @@ def _gauge_geometry(gauges):
 
 
 def build_document(res, *, frames=None, window=9, measure="green-lagrange", gauges=None,
-                   tensile=None, metrology=None, title=None):
+                   tensile=None, metrology=None, title=None, gauge_lines=None,
+                   map_scale="shared"):
     """The report of an open results file as a :class:`Document`.
 
     Parameters are those of :func:`dic.report.write_report` (``res`` opened).
@@ -697,9 +758,12 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
             or window % 2 == 0:
         raise ValueError(f"window: {window!r} is not an odd whole number of at least 3; use "
                          f"e.g. window=9")
+    if map_scale not in ("shared", "per-frame"):
+        raise ValueError(f"limits: {map_scale!r} is not known; use 'shared' (one colour scale "
+                         f"for all frames) or 'per-frame'")
     chosen = frame_indices(_default_frames(n) if frames is None else frames, n)
     gauges = gauge_items(gauges) if gauges is not None else None
-    metro = _metrology_items(metrology) if metrology is not None else []
+    metro = _metrology_items(metrology, res.scale) if metrology is not None else []
 
     # one pass over the frames: colour limits of every map component
     tops = {c: 0.0 for c in MAP_COMPONENTS}
@@ -722,7 +786,7 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
                 measure_title=MEASURE_TITLES[measure], limits=limits, units=units,
                 vsg=vsg, fit=fit, updates=np.asarray(res.reference_updates, dtype=np.int64),
                 reference_name=ref_name)
-    shapes = _gauge_geometry(gauges)
+    shapes = _gauge_geometry(gauges) + [dict(g) for g in (gauge_lines or ())]
 
     if title is None:
         stem = res.path.stem
@@ -746,10 +810,10 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
         add("cameras", cameras)
     if metro:
         add("uncertainty", _uncertainty(metro))
-    add("maps", _maps(res, info, chosen, shapes))
+    add("maps", _maps(res, info, chosen, shapes, shared=map_scale == "shared"))
     add("measures", _measures(res, info, chosen[-1]))
     if gauges:
-        add("gauges", _gauges(res, gauges))
+        add("gauges", _gauges(res, gauges, shapes))
     if tensile is not None:
         add("tensile", _tensile(tensile))
     add("quality", _quality(res, info, chosen[-1]))

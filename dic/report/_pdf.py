@@ -21,6 +21,14 @@ _MARGIN = 0.75
 _TEXT_W = _PAGE[0] - 2 * _MARGIN
 _BOTTOM = _PAGE[1] - _MARGIN - 0.25  # lowest text line (inches from the top), above the footer
 _INK, _MUTED, _ACCENT, _WARN = "#1b1f24", "#5b6470", "#1f4e79", "#8a4b08"
+
+
+def _shrink(h):
+    """Share of its height a figure ``h`` inches tall may shrink to, to fit the room left on a
+    page: tall figures (stacked maps, over 6 inches) to 60 %, others to 85 % so that their text stays
+    readable."""
+    return 0.6 if h > 6.0 else 0.85
+
 # average advance of a DejaVu Sans character, in em (measured on English text; rough)
 _CHAR_EM = 0.55
 
@@ -81,8 +89,9 @@ class _Pages:
             self.y += step
         self.y += gap
 
-    def heading(self, text, size=14):
-        self.room(0.9)  # keep a heading with at least a few lines of what follows
+    def heading(self, text, size=14, need=0.9):
+        # never alone at a page foot: keep it with the start of what follows
+        self.room(size * 1.5 / 72.0 + 0.16 + max(need, 0.9))
         self.y += 0.12
         self._text(_MARGIN, self.y, text, fontsize=size, color=_ACCENT, fontweight="bold")
         self.y += size * 1.5 / 72.0 + 0.04
@@ -105,11 +114,14 @@ class _Pages:
             self.y += step
         self.y += 0.16
 
-    def table(self, t: Table):
-        from matplotlib.lines import Line2D
+    # -- heights, to keep things together --------------------------------------------------
+    @staticmethod
+    def lines_height(text, size=9.5, gap=0.08):
+        return len(textwrap.wrap(text, _chars(_TEXT_W, size)) or [""]) * size * 1.4 / 72.0 + gap
 
+    @staticmethod
+    def _table_layout(t: Table):
         size = 8.5
-        step = size * 1.35 / 72.0
         ncol = max(len(r) for r in ([t.header] if t.header else []) + list(t.rows))
         # column widths in proportion to the longest cell text, each at least 12 %
         longest = np.array([max([len(str(r[i])) if i < len(r) else 0
@@ -119,6 +131,47 @@ class _Pages:
         if not t.header and ncol == 2:
             share = np.array([0.34, 0.66])
         widths = share / share.sum() * _TEXT_W
+        return size, ncol, widths
+
+    @classmethod
+    def table_height(cls, t: Table, rows=None):
+        size, ncol, widths = cls._table_layout(t)
+        step = size * 1.35 / 72.0
+        body = list(t.rows) if rows is None else list(t.rows)[:rows]
+        total = 0.12
+        for cells in ([t.header] if t.header else []) + body:
+            cells = list(cells) + [""] * (ncol - len(cells))
+            n = max(len(textwrap.wrap(str(c), _chars(w - 0.1, size)) or [""])
+                    for c, w in zip(cells, widths))
+            total += step * n + 0.06
+        return total
+
+    @staticmethod
+    def figure_size(f: FigureBlock):
+        """(natural height, caption height) in inches at the text width."""
+        cap = textwrap.wrap(f"Figure 00. {f.caption}", _chars(_TEXT_W, 8.5))
+        cap_h = len(cap) * 8.5 * 1.35 / 72.0 + 0.1
+        h = _TEXT_W * f.height / f.width
+        return min(h, _BOTTOM - _MARGIN - cap_h - 0.1), cap_h
+
+    @classmethod
+    def need(cls, block, whole=False):
+        """Room (inches) that must be left for the start of ``block`` (all of it if
+        ``whole``)."""
+        if isinstance(block, Paragraph):
+            return cls.lines_height(block.text, 8.5 if block.kind == "note" else 9.5)
+        if isinstance(block, Table):
+            return cls.table_height(block, None if whole else 3)
+        if isinstance(block, FigureBlock):
+            h, cap_h = cls.figure_size(block)
+            return _shrink(h) * h + cap_h + 0.1
+        return 0.0
+
+    def table(self, t: Table):
+        from matplotlib.lines import Line2D
+
+        size, ncol, widths = self._table_layout(t)
+        step = size * 1.35 / 72.0
         xs = _MARGIN + np.concatenate([[0.0], np.cumsum(widths)[:-1]])
 
         def row(cells, bold=False, color=_INK):
@@ -159,9 +212,9 @@ class _Pages:
         if h > full:  # taller than a page: shrink to fit one
             h, w = full, full * w_px / h_px
         if self.fig is None or self.y + h + cap_h > _BOTTOM:
-            # shrink a little rather than leave most of a page blank
+            # shrink rather than leave much of a page blank
             left = _BOTTOM - self.y - cap_h - 0.1
-            if self.fig is not None and left >= 0.7 * h:
+            if self.fig is not None and left >= _shrink(h) * h:
                 w, h = w * left / h, left
             else:
                 self.new_page()
@@ -171,6 +224,27 @@ class _Pages:
         ax.set_axis_off()
         self.y += h + 0.08
         self.lines(cap, size=8.5, color=_MUTED, gap=0.18)
+
+
+def _paired(blocks, j):
+    """Whether block ``j`` and the next are a table and a figure that belong together (and
+    fit on one page)."""
+    if j + 1 >= len(blocks):
+        return False
+    a, b = blocks[j], blocks[j + 1]
+    pair = ((isinstance(a, Table) and isinstance(b, FigureBlock))
+            or (isinstance(a, FigureBlock) and isinstance(b, Table)))
+    return pair and (_Pages.need(a, whole=True) + _Pages.need(b, whole=True)
+                     <= _BOTTOM - _MARGIN)
+
+
+def _keep(blocks, j):
+    """Room that block ``j`` needs at once: its start, or all of it and its partner."""
+    if j >= len(blocks):
+        return 0.0
+    if _paired(blocks, j):
+        return _Pages.need(blocks[j], whole=True) + _Pages.need(blocks[j + 1], whole=True)
+    return _Pages.need(blocks[j])
 
 
 def render_pdf(doc, path):
@@ -190,8 +264,14 @@ def render_pdf(doc, path):
                     size=9, color=_MUTED, gap=0.15)
         number = 0
         for i, s in enumerate(doc.sections, 1):
-            pages.heading(f"{i}. {s.title}")
-            for b in s.blocks:
+            blocks = list(s.blocks)
+            need = _keep(blocks, 0)
+            if len(blocks) > 1 and isinstance(blocks[0], Paragraph) and need < 2.0:
+                need += _keep(blocks, 1)  # a short lead-in stays with what it introduces
+            pages.heading(f"{i}. {s.title}", need=need)
+            for j, b in enumerate(blocks):
+                if pages.fig is not None and _paired(blocks, j):
+                    pages.room(_keep(blocks, j))  # a table and its figure on one page
                 if isinstance(b, Paragraph):
                     if b.kind == "caution":
                         pages.caution(b.text)

@@ -141,7 +141,7 @@ def compose_increment(base: DisplacementField, inc: DisplacementField, dx, dy):
     reason = np.where(base.valid, inc.reason, base.reason).astype(np.int8)
     nan = np.nan
     sig = {}
-    for name in ("sigma_u", "sigma_v"):
+    for name in ("std_u", "std_v"):
         a, b = getattr(base, name), getattr(inc, name)
         if a is not None and b is not None:
             # independent errors of the base and of the increment add in quadrature
@@ -202,13 +202,13 @@ class FrameMatcher:
 
 
 def as_stored(field: DisplacementField) -> DisplacementField:
-    """The field as the results file holds it (``sigma_u``, ``sigma_v`` in float32).
+    """The field as the results file holds it (``std_u``, ``std_v`` in float32).
 
     A new reference stage starts from this, so that a run resumed from the file (which reads
     the base field back) carries on with exactly the numbers an uninterrupted run uses.
     """
     out = replace(field)
-    for name in ("sigma_u", "sigma_v"):
+    for name in ("std_u", "std_v"):
         a = getattr(field, name)
         if a is not None:
             setattr(out, name, np.asarray(a).astype(np.float32).astype(np.float64))

@@ -44,7 +44,7 @@ Datasets (``F`` = ``n_frames``, ``(ny, nx)`` = grid shape)::
     /frames/zncc         (F, ny, nx)   float32  zero-normalised cross-correlation of each match
     /frames/reason       (F, ny, nx)   int8     reason code per point (dic.Reason; 0 = measured)
     /frames/iterations   (F, ny, nx)   int16    Gauss-Newton iterations
-    /frames/sigma_u, /frames/sigma_v (F, ny, nx) float32  predicted standard deviation of u and
+    /frames/std_u, /frames/std_v (F, ny, nx) float32  predicted standard deviation of u and
                                                 v from each subset's Hessian and the image
                                                 noise (NaN where not measured or unknown)
     /frames/reference    (F,)          int32    index of the image each frame was matched against
@@ -135,7 +135,8 @@ from dic.errors import InputError
 from dic.field import DisplacementField
 from dic.sequence.h5file import load_h5py
 
-__all__ = ["FORMAT", "FORMAT_VERSION", "STRAIN_COMPONENTS", "strain_key"]
+__all__ = ["FORMAT", "FORMAT_VERSION", "FORMER_NAMES", "STRAIN_COMPONENTS", "stored_name",
+           "strain_key"]
 
 #: value of the root attribute ``format``
 FORMAT = "dic-results"
@@ -169,6 +170,18 @@ def strain_key(measure: str, window: int) -> str:
     return f"{measure}_w{int(window)}"
 
 
+#: former names of per-frame datasets, as files written before the rename hold them
+FORMER_NAMES = {"std_u": "sigma_u", "std_v": "sigma_v"}
+
+
+def stored_name(frames, name: str) -> str:
+    """The dataset name ``name`` has in the ``/frames`` group ``frames`` (files written before
+    the rename hold ``sigma_u``, ``sigma_v`` instead of ``std_u``, ``std_v``)."""
+    if name not in frames and FORMER_NAMES.get(name) in frames:
+        return FORMER_NAMES[name]
+    return name
+
+
 def frame_layout(ny: int, nx: int, second: bool):
     """(name, per-frame shape, dtype) of every per-frame dataset."""
     out = [
@@ -178,8 +191,8 @@ def frame_layout(ny: int, nx: int, second: bool):
         ("zncc", (ny, nx), np.float32),
         ("reason", (ny, nx), np.int8),
         ("iterations", (ny, nx), np.int16),
-        ("sigma_u", (ny, nx), np.float32),
-        ("sigma_v", (ny, nx), np.float32),
+        ("std_u", (ny, nx), np.float32),
+        ("std_v", (ny, nx), np.float32),
     ]
     if second:
         out.append(("grad2", (ny, nx, 2, 3), np.float64))
@@ -265,6 +278,6 @@ def read_field(f, k: int, x, y, settings) -> DisplacementField:
     fr = f["frames"]
     kw = {name: fr[name][k] for name in ("u", "v", "grad", "zncc", "reason", "iterations")}
     grad2 = fr["grad2"][k] if "grad2" in fr else None
-    sig = {name: fr[name][k].astype(np.float64) for name in ("sigma_u", "sigma_v")
-           if name in fr}
+    sig = {name: fr[stored_name(fr, name)][k].astype(np.float64) for name in ("std_u", "std_v")
+           if stored_name(fr, name) in fr}
     return DisplacementField(x=x, y=y, grad2=grad2, settings=dict(settings), **kw, **sig)

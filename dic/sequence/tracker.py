@@ -464,6 +464,8 @@ def _drive(items, order, reference, settings, mask, writer, executor, threads, b
     The first stage's matcher is expected in ``_WORKER_CACHE`` (put there by :func:`track`).
     """
     n = len(order)
+    if writer.n_done >= n:  # a finished analysis: nothing to match
+        return
     stage = _Stage(items[reference], mask, None, settings, int(reference))
     stage_key = ("stage", reference)
     start = 0

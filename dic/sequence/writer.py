@@ -23,7 +23,7 @@ from dic.sequence.h5file import load_h5py, one_line, open_h5
 from dic.sequence.layout import (FIX_IMAGES, FIX_SETTINGS, FIX_SPACE, FORMAT, FORMAT_VERSION,
                                  STRAIN_COMPONENTS, TIME_FORMAT_LEN, WRITE_KW, add_grad2,
                                  build_strain_group, fixed_dataset, frame_layout, group_attrs,
-                                 now_utc, read_field, read_format, set_attrs)
+                                 now_utc, read_field, read_format, set_attrs, stored_name)
 
 __all__ = ["ResultsWriter", "open_for_writing", "set_write_hook"]
 
@@ -528,14 +528,15 @@ class ResultsWriter:
             f = self._f
         try:
             fr = f["frames"]
-            names = [*arrays, "reference", "reference_update", "finished"]
+            names = [*(stored_name(fr, n) for n in arrays), "reference", "reference_update",
+                     "finished"]
             # disk blocks for the frame's slots first: a full disk stops here, before HDF5
             # buffers a write it could not carry out (it would report that only when the
             # buffer is dropped, too late to keep n_done honest)
             _at("reserve", k)
             self._reserve(fr, names, k, k + 1)
             for j, (name, a) in enumerate(arrays.items()):
-                fr[name][k] = a
+                fr[stored_name(fr, name)][k] = a  # an older file's name where it has one
                 if j == 0:
                     _at("data", k)
             fr["reference"][k] = np.int32(reference_index)

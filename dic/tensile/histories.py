@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from dic import __version__
-from dic.files import atomic_write
+from dic.files import atomic_write, write_sidecar
 
 __all__ = ["History", "CAUTION"]
 
@@ -114,12 +114,11 @@ class History:
 
     # -- output ---------------------------------------------------------------------------------
     def to_csv(self, path) -> Path:
-        """Write a CSV: a header with units, ``#`` comment lines, then one row per frame.
+        """Write a CSV: a header with units, then one row of numbers per frame.
 
-        The header reads ``frame,time [s],force [N],axial.length [mm],...``; the comment lines
-        carry the caution and how the values were made; NaN is ``nan``. Readable with
-        ``numpy.genfromtxt(path, delimiter=",", names=True, comments="#")`` and with readers
-        that skip ``#`` lines.
+        The header reads ``frame,time [s],force [N],axial.length [mm],...``; NaN is ``nan``, so
+        ``pandas.read_csv(path)`` reads every column as numbers. The caution and how the values
+        were made go into a sidecar JSON of the same name (``gauges.csv`` -> ``gauges.json``).
 
         Parameters
         ----------
@@ -137,8 +136,9 @@ class History:
         p = Path(os.fspath(path))
         head = ["frame", "time [s]", "force [N]"] + [f"{k} [{self.units.get(k, '')}]"
                                                      for k in self.columns]
-        lines = [",".join(head), f"# gauge histories written by dic {__version__}",
-                 f"# {CAUTION}"] + [f"# {n}" for n in self.notes]
+        lines = [",".join(head)]
+        write_sidecar(p, {"content": "gauge histories, one row per frame", "caution": CAUTION,
+                          "notes": list(self.notes)}, software=f"dic {__version__}")
         cols = [self.time, self.force, *self.columns.values()]
         for i, k in enumerate(self.frame):
             lines.append(",".join([str(int(k))] + [_num(c[i]) for c in cols]))

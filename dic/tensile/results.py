@@ -308,11 +308,12 @@ class TensileResults:
 
     def to_csv(self, path) -> Path:
         """One row per result: ``key,name,value,unit,standard,range_low,range_high,range_unit,
-        points,r2,method,note``; the header is followed by ``#`` lines with the caution."""
+        points,r2,method,note`` (``value``, the range, ``points`` and ``r2`` are numbers); the
+        caution and notes go into a sidecar JSON of the same name (``tensile.json`` beside
+        ``tensile.csv`` holds them with every value)."""
         head = ["key", "name", "value", "unit", "standard", "range_low", "range_high",
                 "range_unit", "points", "r2", "method", "note"]
-        lines = [",".join(head), f"# tensile results written by dic {__version__}",
-                 f"# {self.caution}"]
+        lines = [",".join(head)]
         for v in self.values.values():
             lo, hi = v.fit_range if v.fit_range is not None else (math.nan, math.nan)
             cells = [v.key, v.name, _g(v.value), v.unit, v.standard, _g(lo), _g(hi),

@@ -51,6 +51,12 @@ Example (``analysis.toml``)::
     [report]
     frames = [8, 16, -1]
     title = "Tensile test, coupon 7"
+    limits = "shared"               # one colour scale for all frames, or "per-frame"
+
+    [animation]                     # a strain animation (also: dic run ... --animate)
+    component = "yy"                # default "xx"; any strain quantity
+    format = "gif"                  # or "mp4"
+    fps = 4
 
 Relative paths are taken from the folder of the analysis file. Command-line options override the
 file. Unknown keys are errors that name the closest valid key.
@@ -85,9 +91,11 @@ SCHEMA = {
                 "gauge_length_mm": (float, int), "transverse_length_mm": (float, int),
                 "modulus_range_mpa": (list,), "offsets_percent": (list,),
                 "n_range_percent": (list,)},
-    "report": {"frames": (list,), "title": (str,), "write": (bool,)},
+    "report": {"frames": (list,), "title": (str,), "write": (bool,), "limits": (str,)},
     "noise": {"images": (str, list)},
     "stereo": {"right_images": (str, list), "calibration": (str,)},
+    "animation": {"write": (bool,), "component": (str,), "format": (str,),
+                  "fps": (float, int)},
 }
 _SECTIONS = [s for s in SCHEMA if s is not None and s != "frames"]
 
@@ -270,6 +278,12 @@ def load_analysis(path) -> dict:
     if "stereo" in data:   # calibrated cameras: right images and/or the calibration file
         out["stereo"] = {k: rel(v) if isinstance(v, str) else [rel(i) for i in v]
                          for k, v in data["stereo"].items()}
+    if "animation" in data:
+        a = dict(data["animation"])
+        if a.get("format", "gif").lower() not in ("gif", "mp4"):
+            raise ValueError(f"{p.name}: [animation] format = {a['format']!r} is not known; "
+                             f"use \"gif\" or \"mp4\"")
+        out["animation"] = a
     if "noise" in data:
         imgs = data["noise"].get("images")
         if imgs is None:
