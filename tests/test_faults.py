@@ -103,7 +103,7 @@ def _n_done(path):
         return int(f["n_done"][()])
 
 
-FRAME_DATA = ("u", "v", "grad", "zncc", "reason", "iterations", "sigma_u", "sigma_v",
+FRAME_DATA = ("u", "v", "grad", "zncc", "reason", "iterations", "std_u", "std_v",
               "reference", "reference_update")
 
 
@@ -534,9 +534,10 @@ def test_d7_own_maps_in_the_image_folder_are_not_read_as_images(frames, tmp_path
     for _ in range(2):                              # the second run must not trip over the maps
         assert main(["run", str(own), "--out", str(own), "--step", str(STEP), "-q",
                      "--frames", "0:4"]) == 0, capsys.readouterr().err
-        assert list(own.glob("displacements_*.png"))
+        assert list(own.glob("strain_*.png")) and list(own.glob("displacements_*.csv"))
     with Results.open(own / "results.h5") as r:
-        assert all("displacements_" not in n for n in r.image_names)
+        assert not any(Path(n).name.startswith(("displacements_", "strain_"))
+                       for n in r.image_names)
 
 
 def test_d12_files_out_of_natural_order_warn(frames, tmp_path, capsys):

@@ -32,6 +32,7 @@ PATHS = {
     "loaded.png": str(SAMPLES / "coupon_015.png"),
     "ref.png": str(SAMPLES / "coupon_000.png"),
     "static_*.png": str(SAMPLES / "coupon_000.png") + " " + str(SAMPLES / "coupon_001.png"),
+    "frames/": str(SAMPLES) + "/",
 }
 
 
@@ -62,7 +63,32 @@ def commands():
 def test_readme_lists_the_commands_it_promises():
     names = [shlex.split(c)[1] for c in commands()]
     assert names == ["run", "run", "info", "tensile", "report", "export", "pattern", "noise",
-                     "advise"]
+                     "advise", "view", "view", "run"]
+
+
+def run_view(words, cwd):
+    """``dic view`` as written, in its own process: it prints its address, serves the page
+    (fetched once here with the token in the address) and stops on Ctrl-C with exit code 0.
+    ``BROWSER=true`` makes the standard library's webbrowser open nothing (common practice, no
+    source: the documented $BROWSER variable of Python's webbrowser module)."""
+    import signal
+    import subprocess
+    import sys
+    import urllib.request
+
+    env = dict(os.environ, BROWSER="true", PYTHONPATH=str(ROOT))
+    with subprocess.Popen([sys.executable, "-m", "dic", *words[1:]], cwd=cwd, env=env,
+                          stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True) as proc:
+        try:
+            line = proc.stdout.readline()  # blocks until the server prints its address
+            m = re.search(r"(http://127\.0\.0\.1:\d+/\S*)", line)
+            assert m, (words, line)
+            with urllib.request.urlopen(m.group(1), timeout=60) as r:
+                assert r.status == 200 and b"<html" in r.read().lower()
+        finally:
+            proc.send_signal(signal.SIGINT)
+            _out, err = proc.communicate(timeout=60)
+    assert proc.returncode == 0, (words, err)
 
 
 def test_every_command_line_example_and_the_python_example_run_on_the_sample(
@@ -72,6 +98,9 @@ def test_every_command_line_example_and_the_python_example_run_on_the_sample(
         words = shlex.split(adapted(cmd))
         # a shell would expand the glob of static images; the noise command gets the files
         assert words[0] == "dic"
+        if words[1] == "view":  # serves until Ctrl-C: run it in a process of its own
+            run_view(words, tmp_path)
+            continue
         code = main(words[1:])
         out, err = capsys.readouterr()
         assert code == 0, (cmd, err[-2000:])

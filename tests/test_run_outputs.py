@@ -11,10 +11,13 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+import dic
 from dic.cli import main
 
 ROOT = Path(__file__).resolve().parent.parent
 ANALYSIS = ROOT / "sample_images" / "analysis.toml"
+#: images of the sample (coupon_000.png is the reference image)
+N_IMAGES = len(list((ROOT / "sample_images").glob("coupon_*.png")))
 # text columns of tensile.csv (one row per result: its key, name, unit, standard, method, note)
 TEXT_COLUMNS = {"key", "name", "unit", "standard", "range_unit", "method", "note"}
 
@@ -37,7 +40,7 @@ def test_every_table_reads_into_numbers_with_pandas_defaults(demo, tmp_path):
     names = {p.name for p in tables}
     # one map per image but the reference: the axial strain (not the displacement magnitude)
     assert sorted(p.name for p in demo.glob("strain_coupon_*.png")) == [
-        f"strain_coupon_{k:03d}.png" for k in range(1, 24)]
+        f"strain_coupon_{k:03d}.png" for k in range(1, N_IMAGES)]
     assert not list(demo.glob("displacements_*.png"))
     assert {"gauges.csv", "tensile.csv", "displacements_coupon_005.csv",
             "frame_0005.csv"} <= names
@@ -68,7 +71,7 @@ def test_second_run_matches_nothing_and_animates(demo, capsys, monkeypatch):
     monkeypatch.setattr(tracker, "_worker_matcher", no_matching)
     assert main(["run", "--config", str(ANALYSIS), "--out", str(demo), "--animate"]) == 0
     printed = capsys.readouterr().out
-    assert "nothing to track: all 24 of 24 frames" in printed
+    assert f"nothing to track: all {N_IMAGES} of {N_IMAGES} frames" in printed
     assert "already up to date" in printed
     gif = demo / "strain_xx.gif"
     # GIF files start with GIF89a or GIF87a (GIF specification, 1989)
@@ -77,12 +80,16 @@ def test_second_run_matches_nothing_and_animates(demo, capsys, monkeypatch):
     from PIL import Image
 
     with Image.open(gif) as im:
-        assert im.n_frames == 24
+        assert im.n_frames == N_IMAGES
 
 
 def test_last_frame_counts_measurable_points(demo, capsys):
     assert main(["run", "--config", str(ANALYSIS), "--out", str(demo)]) == 0
     line = [ln for ln in capsys.readouterr().out.splitlines() if ln.startswith("last frame")][0]
-    # the points whose subset leaves the image can never be measured; they are named apart
+    # the grid is laid out where subsets fit the image, so no grid point is unmeasurable from
+    # the start; points that later leave the image are counted by their reason
     assert "measurable points measured" in line
-    assert "too near the image edge" in line
+    assert "too near the image edge" not in line and "outside image" in line
+    with dic.load_results(demo / "results.h5") as r:
+        ref = r.field(0)
+        assert ref.n_valid == ref.n_points  # the reference frame: every grid point measured

@@ -191,11 +191,15 @@ def _add_info(commands):
 # --------------------------------------------------------------------------------------------
 # the run command: settings
 # --------------------------------------------------------------------------------------------
+#: name starts of the per-image maps and tables this command writes into an output folder
+OWN_OUTPUTS = ("displacements_", "strain_", "surface_")
+
+
 def _own_output(path, folder):
-    """True for a displacement map or table this command wrote into ``folder``."""
+    """True for a map or table this command wrote into ``folder``."""
     return (folder is not None and path.parent == folder.resolve()
-            and path.name.startswith("displacements_")
-            and path.suffix.lower() in (".png", ".csv"))
+            and path.name.startswith(OWN_OUTPUTS)
+            and path.suffix.lower() in (".png", ".csv", ".json", ".gif", ".mp4"))
 
 
 def _warn_order(files):
@@ -370,6 +374,14 @@ def _export_names(folder, image):
     return folder / f"displacements_{stem}.csv", folder / f"strain_{stem}.png"
 
 
+def _default_window(shape, preferred=9):
+    """The strain window of the maps when the analysis sets none: ``preferred`` points, or the
+    largest odd window (at least 3) that fits a smaller grid of points."""
+    fit = min(shape)
+    fit -= 1 - fit % 2
+    return max(3, min(preferred, fit))
+
+
 def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile=None):
     """Table (CSV with its JSON description) and axial strain map of every completed frame
     that lacks them; the maps share one colour scale and show the gauges.
@@ -400,7 +412,8 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
     if not todo:
         return 0
     reference_image = never = None
-    window, measure = int(strain.get("window", 9)), strain.get("measure", "green-lagrange")
+    measure = strain.get("measure", "green-lagrange")
+    window = int(strain["window"]) if "window" in strain else _default_window(results.shape)
     comp = axial_component(results)
     # one colour scale for every map, so that maps of different frames compare
     limits = strain_limits(results, comp, window=window, measure=measure)
@@ -421,8 +434,7 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
             csv, png = _export_names(folder, names[k])
             # the columns of dic export's tables; 17 digits give the stored numbers bit for
             # bit; written atomically: never half a file
-            frame_to_csv(results, k, csv, window=int(strain.get("window", 9)),
-                         measure=strain.get("measure", "green-lagrange"), digits=17,
+            frame_to_csv(results, k, csv, window=window, measure=measure, digits=17,
                          about=note)
             st_k = results.strain(k, window=window, measure=measure)
             nv = int(np.count_nonzero(np.isfinite(getattr(st_k, comp))))

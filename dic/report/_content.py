@@ -2,9 +2,7 @@
 
 from __future__ import annotations
 
-import dataclasses
 import datetime as _dt
-import io
 import math
 import re
 from collections.abc import Mapping
@@ -17,11 +15,14 @@ from dic.figures.common import (MEASURE_TITLES, display_unit, find_image, frame_
                                 limits_from_top, quantity_values, robust_top)
 from dic.figures.layers import gauge_shapes, grid_view
 from dic.figures.lines import (PLAIN_STRAIN_UNITS, gauge_items, gauge_words, history_figure,
-                               stress_strain_figure, valid_counts, valid_points_plot)
+                               valid_counts, valid_points_plot)
 from dic.figures.maps import measure_comparison, quality_map, strain_map
+from dic.report._blocks import (as_mapping as _as_mapping, figure as _figure,
+                               flatten as _flatten, fmt as _fmt, mm as _mm, with_unit as _with_unit,
+                               words as _words)
 from dic.report._cameras import camera_blocks
-from dic.tensile.results import TensileResults, basis_text, shown_value
-from dic.report._document import Document, FigureBlock, Paragraph, Section, Table
+from dic.report._tensile import tensile_section
+from dic.report._document import Document, Paragraph, Section, Table
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
 
@@ -51,7 +52,6 @@ CAUTIONS = (
 )
 
 #: figure resolution, dots per inch (the same PNG serves the HTML and the PDF)
-FIGURE_DPI = 120
 #: largest number of frames listed one by one in the data-quality table
 _MAX_ROWS = 60
 #: opacity of the strain maps over the specimen image: strain reads first, the image faintly
@@ -60,134 +60,6 @@ MAP_OPACITY = 0.9
 MAP_COMPONENTS = ("xx", "yy", "xy")
 
 # quantity keywords -> the standard that defines them
-_STANDARDS = (
-    (("poisson",), "ASTM E132"),
-    (("modulus", "young"), "ASTM E111"),
-    (("proof", "rp0", "rp02", "yield", "tensile strength", "tensile_strength", "rm",
-      "uniform elongation", "uniform_elongation", "ag", "elongation", "a_percent"),
-     "ISO 6892-1"),
-    (("n value", "n_value", "hardening", "strain hardening", "swift", "hollomon"), "ISO 10275"),
-    (("r value", "r_value", "anisotropy", "lankford"), "ISO 10113"),
-    (("extensometer", "class"), "ISO 9513"),
-)
-# unit suffixes of keys -> unit text
-_UNIT_SUFFIX = {"px": "px", "mm": "mm", "microstrain": "\u00b5\u03b5", "ue": "\u00b5\u03b5",
-                "percent": "%", "pct": "%", "s": "s", "kn": "kN", "n": "N", "mpa": "MPa",
-                "gpa": "GPa", "deg": "\u00b0", "mm_per_px": "mm/px"}
-
-
-# --------------------------------------------------------------------------------------------
-# small formatting helpers
-# --------------------------------------------------------------------------------------------
-def _fmt(value, digits=4):
-    """A value as short text."""
-    if value is None:
-        return "\u2013"
-    if isinstance(value, (bool, np.bool_)):
-        return "yes" if value else "no"
-    if isinstance(value, (int, np.integer)):
-        return str(int(value))
-    if isinstance(value, (float, np.floating)):
-        v = float(value)
-        if not math.isfinite(v):
-            return "not known" if math.isnan(v) else str(v)
-        if v == 0 or 1e-3 <= abs(v) < 1e6:  # plain notation, ``digits`` significant digits
-            return np.format_float_positional(v, precision=digits, unique=False,
-                                              fractional=False, trim="-")
-        return f"{v:.{digits}g}"
-    if isinstance(value, np.ndarray):
-        flat = value.ravel()
-        if flat.size > 8 and flat.dtype.kind in "fiu":
-            return (f"{flat.size} values, {_fmt(np.nanmin(flat))} to {_fmt(np.nanmax(flat))}"
-                    if np.isfinite(flat).any() else f"{flat.size} values, none known")
-        value = flat.tolist()
-    if isinstance(value, (list, tuple)):
-        items = [_fmt(v) for v in value[:8]]
-        return ", ".join(items) + (f", \u2026 ({len(value)} in all)" if len(value) > 8 else "")
-    return str(value)
-
-
-def _words(key):
-    """``proof_strength_mpa`` -> (``Proof strength``, ``MPa``)."""
-    parts = str(key).strip().split("_")
-    unit = ""
-    for n in (3, 2, 1):
-        tail = "_".join(parts[-n:]).lower()
-        if len(parts) > n and tail in _UNIT_SUFFIX:
-            unit = _UNIT_SUFFIX[tail]
-            parts = parts[:-n]
-            break
-    text = " ".join(p for p in parts if p)
-    return (text[:1].upper() + text[1:]) if text else str(key), unit
-
-
-def _with_unit(value, unit):
-    text = _fmt(value)
-    return f"{text} {unit}" if unit and text not in ("\u2013", "not known") else text
-
-
-def _standard_for(text):
-    t = str(text).lower().replace("-", " ")
-    words = set(t.replace("_", " ").split())
-    for keys, std in _STANDARDS:
-        for k in keys:
-            if (" " in k or "_" in k) and k.replace("_", " ") in t.replace("_", " "):
-                return std
-            if k in words or (len(k) > 3 and k in t):
-                return std
-    return ""
-
-
-def _as_mapping(obj, name):
-    """A plain mapping from a ``to_dict()`` / ``as_dict()`` object, a dataclass or a mapping."""
-    if obj is None:
-        return None
-    for attr in ("to_dict", "as_dict"):
-        method = getattr(obj, attr, None)
-        if callable(method):
-            obj = method()
-            break
-    else:
-        if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
-            obj = dataclasses.asdict(obj)
-    if not isinstance(obj, Mapping):
-        raise ValueError(f"{name}: expected an object with to_dict() or a mapping of names to "
-                         f"values; got {type(obj).__name__}")
-    return dict(obj)
-
-
-def _flatten(mapping, prefix=""):
-    out = {}
-    for key, value in mapping.items():
-        k = f"{prefix}{key}"
-        if isinstance(value, Mapping):
-            out.update(_flatten(value, k + " / "))
-        else:
-            out[k] = value
-    return out
-
-
-def _png(fig):
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=FIGURE_DPI)
-    data = buf.getvalue()
-    # the PNG header holds the true pixel size (IHDR: width, height as big-endian uint32)
-    w, h = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
-    return data, w, h
-
-
-def _figure(fig, caption, alt):
-    data, w, h = _png(fig)
-    return FigureBlock(png=data, width=w, height=h, caption=caption, alt=alt)
-
-
-def _mm(px, scale):
-    return f" ({px * scale:.3g} mm)" if scale is not None and px is not None else ""
-
-
-# --------------------------------------------------------------------------------------------
-# sections
-# --------------------------------------------------------------------------------------------
 def _overview(res, info):
     n, nf = len(res), res.n_frames
     names = res.image_names
@@ -526,150 +398,6 @@ def _gauges(res, gauges, shapes=()):
                                      "Largest magnitude"))]
 
 
-def _tensile_content(tensile):
-    """``(rows, notes, cautions)``: rows ``(quantity, value, standard, how found)``."""
-    rows_attr = getattr(tensile, "rows", None)
-    if callable(rows_attr):
-        rows_attr = rows_attr()
-    if rows_attr is not None and not isinstance(tensile, Mapping):
-        rows = []
-        for r in rows_attr:
-            cells = [_fmt(c) for c in (r if isinstance(r, (list, tuple)) else [r])]
-            cells += [""] * (4 - len(cells))
-            if not cells[2]:
-                cells[2] = _standard_for(cells[0])
-            rows.append(tuple(cells[:4]))
-        return rows, [], []
-    mapping = _as_mapping(tensile, "tensile")
-    rows, notes, cautions = [], [], []
-
-    def walk(m, prefix):
-        for key, value in m.items():
-            label, unit = _words(key)
-            label = f"{prefix}{label}"
-            lk = str(key).lower()
-            if isinstance(value, Mapping) and "value" in value:
-                name = str(value.get("name") or value.get("label") or label)
-                sym = value.get("key")
-                if sym and str(sym) not in name:
-                    name += f" ({sym})"
-                unit = str(value.get("unit") or unit)
-                unit = "" if unit in ("-", "1") else unit
-                std = str(value.get("standard") or _standard_for(f"{key} {name}"))
-                how = str(value.get("method") or "")
-                fr = value.get("fit_range")
-                if isinstance(fr, (list, tuple)) and len(fr) == 2 and all(
-                        isinstance(v, (int, float)) for v in fr):
-                    how += (f" (data from {_fmt(fr[0])} to {_fmt(fr[1])} "
-                            f"{value.get('range_unit', '')})").replace(" )", ")")
-                if value.get("note"):
-                    how += f"; {value['note']}"
-                rows.append((name, _with_unit(value["value"], unit), std, how.strip("; ")))
-            elif isinstance(value, Mapping):
-                walk(value, "" if lk in ("values", "results") else f"{label} / ")
-            elif lk in ("caution", "cautions"):
-                cautions.extend(value if isinstance(value, (list, tuple)) else [value])
-            elif lk in ("notes", "note"):
-                notes.extend(value if isinstance(value, (list, tuple)) else [value])
-            elif lk == "software":
-                continue
-            elif isinstance(value, str) and len(value) > 60:
-                notes.append(f"{label}: {value}")
-            else:
-                rows.append((label, _with_unit(value, unit), _standard_for(key), ""))
-
-    walk(mapping, "")
-    return rows, [str(n) for n in notes], [str(c) for c in cautions]
-
-
-def _tensile_figure(tensile):
-    """The stress-strain figure of the tensile input; None when the input carries no curve.
-
-    A :class:`~dic.tensile.results.TensileResults` is drawn with
-    :func:`~dic.figures.lines.stress_strain_figure`; another object gives its ``figure``
-    (a Figure, or a method that takes no arguments and returns one); a plain mapping of values
-    has none.
-    """
-    from matplotlib.figure import Figure
-
-    if isinstance(tensile, Figure):
-        return tensile
-    if isinstance(tensile, TensileResults):
-        fig, _ = stress_strain_figure(tensile)
-        return fig
-    fig = getattr(tensile, "figure", None)
-    if fig is None:
-        return None
-    if callable(fig) and not isinstance(fig, Figure):
-        fig = fig()
-    if isinstance(fig, tuple) and fig and isinstance(fig[0], Figure):
-        fig = fig[0]
-    if not isinstance(fig, Figure):
-        raise ValueError(f"tensile: its figure is a {type(fig).__name__}, not a matplotlib "
-                         f"Figure; give a Figure (or a figure() method returning one), or "
-                         f"leave it out")
-    return fig
-
-
-def _tensile_results_blocks(res):
-    """Table, warnings and notes of a :class:`~dic.tensile.results.TensileResults`, in the
-    units the command line prints (E in GPa, strengths in MPa, strains in %)."""
-    rows = []
-    for v in res.values.values():
-        text, unit = shown_value(v)
-        how = v.method
-        if v.fit_range is not None:
-            lo, hi = v.fit_range
-            how += (f" (data from {100 * lo:.3g} to {100 * hi:.3g} % strain)"
-                    if v.range_unit == "mm/mm" else
-                    f" (data from {lo:.4g} to {hi:.4g} {v.range_unit})")
-        rows.append((f"{v.name} ({v.key})", f"{text} {unit}".strip(), basis_text(v) or "\u2013",
-                     v.standard, how))
-    blocks = [Table(rows=rows, header=("Quantity", "Value", "Basis and uncertainty",
-                                       "Standard", "How found"))]
-    blocks += [Paragraph(f"Warning: {w}", "caution") for w in res.warnings]
-    blocks += [Paragraph(f"{v.key}: {v.note}", "note") for v in res.values.values() if v.note]
-    blocks += [Paragraph(n, "note") for n in res.notes]
-    blocks.append(Paragraph(res.caution, "caution"))
-    return blocks
-
-
-def _tensile(tensile):
-    from matplotlib.figure import Figure
-
-    blocks = [Paragraph(
-        "Tensile properties computed from the force log and the optical strain. Each "
-        "quantity is defined as in the standard named beside it: ISO 6892-1 (proof strength, "
-        "tensile strength, uniform elongation), ASTM E111 (modulus), ASTM E132 (Poisson's "
-        "ratio), ISO 10275 (strain-hardening exponent n), ISO 10113 (plastic strain ratio r). "
-        "Whether the test as a whole meets a standard depends on the specimen, the machine and "
-        "the extensometer verification (see Cautions).")]
-    if isinstance(tensile, TensileResults):
-        blocks += _tensile_results_blocks(tensile)
-    elif not isinstance(tensile, Figure):
-        rows, notes, cautions = _tensile_content(tensile)
-        if rows:
-            if any(r[3] for r in rows):
-                blocks.append(Table(rows=rows, header=("Quantity", "Value", "Standard",
-                                                       "How found")))
-            else:
-                blocks.append(Table(rows=[r[:3] for r in rows],
-                                    header=("Quantity", "Value", "Standard")))
-    else:
-        notes, cautions = [], []
-    # the curve right after its table, so that the two stay together on a page
-    fig = _tensile_figure(tensile)
-    if fig is not None:
-        blocks.append(_figure(fig, "Stress-strain curve with the fitted lines.",
-                              "Stress-strain curve"))
-    else:
-        blocks.append(Paragraph("No stress-strain curve is drawn: the tensile input gives "
-                                "values only, without the measured curve.", "note"))
-    blocks += [Paragraph(n, "note") for n in notes]
-    blocks += [Paragraph(c, "caution") for c in cautions]
-    return blocks
-
-
 def _quality(res, info, k_last):
     counts, total, median = valid_counts(res)
     n = len(res)
@@ -815,7 +543,7 @@ def build_document(res, *, frames=None, window=9, measure="green-lagrange", gaug
     if gauges:
         add("gauges", _gauges(res, gauges, shapes))
     if tensile is not None:
-        add("tensile", _tensile(tensile))
+        add("tensile", tensile_section(tensile))
     add("quality", _quality(res, info, chosen[-1]))
     add("cautions", [Paragraph(t, "caution") for t in CAUTIONS])
     return doc
