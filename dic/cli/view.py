@@ -59,13 +59,13 @@ def run_view(args) -> int:
         raise ValueError(f"--port: {args.port} is not a port number; give 0 to 65535 (0 picks "
                          "a free one)")
     server = ViewServer(source_for(args.path, args.config_out), args.port)
-    print(f"dic view: {server.url}", flush=True)
-    print("dic view: press Ctrl-C to stop", file=sys.stderr, flush=True)
-    if not args.no_browser:
-        import webbrowser
+    try:  # from here on, Ctrl-C at any moment stops the server cleanly
+        print(f"dic view: {server.url}", flush=True)
+        print("dic view: press Ctrl-C to stop", file=sys.stderr, flush=True)
+        if not args.no_browser:
+            import webbrowser
 
-        webbrowser.open(server.url)
-    try:
+            webbrowser.open(server.url)
         server.serve_forever()
     except KeyboardInterrupt:
         print("dic view: stopped", file=sys.stderr)

@@ -181,9 +181,11 @@ class ViewServer:
         self.port = self.httpd.server_address[1]
         self.url = f"http://{HOST}:{self.port}/?t={self.token}"
         self._thread = None
+        self._warm = None
         warm = getattr(source, "warm_up", None)
         if warm is not None:  # the first picture is ready sooner while the browser starts
-            threading.Thread(target=warm, daemon=True).start()
+            self._warm = threading.Thread(target=warm, daemon=True, name="dic-view-warm-up")
+            self._warm.start()
 
     @property
     def mode(self) -> str:
@@ -207,6 +209,11 @@ class ViewServer:
             self._thread.join(5)
             self._thread = None
         self.httpd.server_close()
+        # the warm-up runs compiled code and reads the results file: let it end before the file
+        # is closed and the interpreter shuts down (a thread killed inside such code aborts)
+        if self._warm is not None:
+            self._warm.join(120)
+            self._warm = None
         close = getattr(self.source, "close", None)
         if close is not None:
             close()
