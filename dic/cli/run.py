@@ -30,7 +30,7 @@ RESULTS_NAME = "results.h5"
 _RESULTS_SUFFIXES = (".h5", ".hdf5")
 
 # defaults of dic.track, shown in --help and used when neither option nor analysis file sets one
-_DEFAULTS = dict(subset=21, step=10, shape_function="affine", interpolation="quintic",
+_DEFAULTS = dict(subset=21, step=10, shape_function="auto", interpolation="quintic",
                  min_zncc=0.9, search=60, block=8, reference=0)
 _STRAIN_DEFAULTS = dict(window=9, measure="green-lagrange")
 
@@ -127,7 +127,7 @@ def _add_run(commands):
                        help="measure inside this rectangle only (px, corners included)")
     where.add_argument("--roi-mask", metavar="PATH",
                        help="measure where this mask image (same size) is non-zero")
-    m.add_argument("--shape-function", choices=("affine", "quadratic"),
+    m.add_argument("--shape-function", choices=("auto", "affine", "quadratic"),
                    help=f"subset shape function (default: {d['shape_function']})")
     m.add_argument("--interpolation", choices=("quintic", "cubic"),
                    help=f"B-spline interpolation of the deformed image (default: "

@@ -102,7 +102,16 @@ def _settings(res, info, metro):
     vsg = info["vsg"]
     shape = s.get("shape_function", "not recorded")
     shape_text = {"affine": "affine (first order: translation and displacement gradients)",
-                  "quadratic": "quadratic (second order)"}.get(shape, str(shape))
+                  "quadratic": "quadratic (second order)",
+                  "auto": "chosen per point: first order, second order where the neighbours' "
+                          "gradients show a curvature that would bias first order"
+                  }.get(shape, str(shape))
+    n_done = len(res)
+    order = res.field(n_done - 1).shape_order if n_done else None
+    if order is not None and shape == "auto":
+        order = np.asarray(order)
+        shape_text += (f" (last frame: first order at {int(np.count_nonzero(order == 1))}, "
+                       f"second order at {int(np.count_nonzero(order == 2))} points)")
     interp = s.get("interpolation", "not recorded")
     updates = info["updates"]
     ref = s.get("reference", 0)

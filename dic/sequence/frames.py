@@ -53,7 +53,7 @@ class TrackSettings:
 
     subset: int = 21
     step: int = 10
-    shape_function: str = "affine"
+    shape_function: str = "auto"
     interpolation: str = "quintic"
     min_zncc: float = 0.9
     search: int = 60
@@ -151,7 +151,9 @@ def compose_increment(base: DisplacementField, inc: DisplacementField, dx, dy):
         u=np.where(ok, base.u + du, nan), v=np.where(ok, base.v + dv, nan),
         grad=np.where(ok[..., None, None], F - eye, nan),
         zncc=np.where(ok, inc.zncc, nan), reason=reason,
-        iterations=inc.iterations.copy(), grad2=None, settings=dict(inc.settings), **sig)
+        iterations=inc.iterations.copy(), grad2=None, settings=dict(inc.settings),
+        shape_order=(None if inc.shape_order is None
+                     else np.where(ok, inc.shape_order, 0).astype(np.int8)), **sig)
 
 
 @dataclass

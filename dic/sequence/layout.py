@@ -47,6 +47,9 @@ Datasets (``F`` = ``n_frames``, ``(ny, nx)`` = grid shape)::
     /frames/std_u, /frames/std_v (F, ny, nx) float32  predicted standard deviation of u and
                                                 v from each subset's Hessian and the image
                                                 noise (NaN where not measured or unknown)
+    /frames/shape_order  (F, ny, nx)   int8     order of the subset shape function used per
+                                                point: 1 or 2, 0 where not measured (files
+                                                made before it was stored have none)
     /frames/reference    (F,)          int32    index of the image each frame was matched against
     /frames/reference_update (F,)      uint8    1 where the tracker switched to a new reference
     /frames/finished     (F,)          ASCII    ISO 8601 UTC time each frame was completed
@@ -177,8 +180,9 @@ FORMER_NAMES = {"std_u": "sigma_u", "std_v": "sigma_v"}
 def stored_name(frames, name: str) -> str:
     """The dataset name ``name`` has in the ``/frames`` group ``frames`` (files written before
     the rename hold ``sigma_u``, ``sigma_v`` instead of ``std_u``, ``std_v``)."""
-    if name not in frames and FORMER_NAMES.get(name) in frames:
-        return FORMER_NAMES[name]
+    former = FORMER_NAMES.get(name)
+    if former is not None and name not in frames and former in frames:
+        return former
     return name
 
 
@@ -193,6 +197,7 @@ def frame_layout(ny: int, nx: int, second: bool):
         ("iterations", (ny, nx), np.int16),
         ("std_u", (ny, nx), np.float32),
         ("std_v", (ny, nx), np.float32),
+        ("shape_order", (ny, nx), np.int8),
     ]
     if second:
         out.append(("grad2", (ny, nx, 2, 3), np.float64))
@@ -278,6 +283,9 @@ def read_field(f, k: int, x, y, settings) -> DisplacementField:
     fr = f["frames"]
     kw = {name: fr[name][k] for name in ("u", "v", "grad", "zncc", "reason", "iterations")}
     grad2 = fr["grad2"][k] if "grad2" in fr else None
+    # order of the shape function per point (files made before it was stored have none)
+    order = fr["shape_order"][k] if "shape_order" in fr else None
     sig = {name: fr[stored_name(fr, name)][k].astype(np.float64) for name in ("std_u", "std_v")
            if stored_name(fr, name) in fr}
-    return DisplacementField(x=x, y=y, grad2=grad2, settings=dict(settings), **kw, **sig)
+    return DisplacementField(x=x, y=y, grad2=grad2, settings=dict(settings), shape_order=order,
+                             **kw, **sig)

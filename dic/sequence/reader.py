@@ -296,7 +296,13 @@ def results_info(path) -> str:
                          + (" ..." if refs.size > 20 else "")
                          + (f"; updates at frames {', '.join(str(int(i)) for i in updates[:20])}"
                             if updates.size else ""))
-            lines.append(f"last frame ({n - 1}): {r.field(n - 1).summary()}")
+            last = r.field(n - 1)
+            lines.append(f"last frame ({n - 1}): {last.summary()}")
+            if last.shape_order is not None:
+                order = np.asarray(last.shape_order)
+                lines.append(f"shape function: {r.settings.get('shape_function', '?')}; last "
+                             f"frame: first order at {int(np.count_nonzero(order == 1))}, "
+                             f"second order at {int(np.count_nonzero(order == 2))} points")
         scale = (f"{r.scale:g} mm/px" if r.scale is not None else
                  "unknown (results in px)")
         lines.append(f"scale: {scale}")

@@ -299,7 +299,7 @@ def _make_executor(workers, cluster):
 # the driver
 # ------------------------------------------------------------------------------------------
 def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None,
-          shape_function="affine", interpolation="quintic", min_zncc=0.9, search=60,
+          shape_function="auto", interpolation="quintic", min_zncc=0.9, search=60,
           block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
           scale=None, overwrite=False, progress=False, strain=None, right_images=None,
           calibration=None):

@@ -509,8 +509,8 @@ class ResultsWriter:
         arrays = {}
         for name, shape, dtype in frame_layout(ny, nx, with_grad2):
             value = getattr(field, name)
-            if value is None:  # grad2 of a frame without it (e.g. a combined field): NaN
-                value = np.full(shape, np.nan)
+            if value is None:  # no grad2 (e.g. a combined field): NaN; no shape order: 0
+                value = np.zeros(shape) if name == "shape_order" else np.full(shape, np.nan)
             a = np.asarray(value)
             if a.shape != shape:
                 raise InputError(f"field.{name}: shape {a.shape}, the file's grid needs {shape}; "
@@ -528,6 +528,7 @@ class ResultsWriter:
             f = self._f
         try:
             fr = f["frames"]
+            arrays = {n: a for n, a in arrays.items() if stored_name(fr, n) in fr}  # older files
             names = [*(stored_name(fr, n) for n in arrays), "reference", "reference_update",
                      "finished"]
             # disk blocks for the frame's slots first: a full disk stops here, before HDF5

@@ -10,7 +10,7 @@ Example (``analysis.toml``)::
     [matching]
     subset = 21
     step = 10
-    shape_function = "affine"      # or "quadratic"
+    shape_function = "auto"        # or "affine", "quadratic"
     interpolation = "quintic"      # or "cubic"
     min_zncc = 0.9
     search = 60
