@@ -147,6 +147,12 @@ def test_no_import_circle():
 def test_no_import_of_private_names_from_another_module():
     modules, edges = _graph()
     bad = []
+    # ``from pkg import _module`` takes a private name from the package, even for its own
+    # modules: import the names needed from the private module instead
+    for m, path in modules.items():
+        for target, names, line in _imports(m, path):
+            bad += [f"{m}:{line} takes private name {n} from {target}" for n in names
+                    if n.startswith("_") and not n.startswith("__") and n != "__version__"]
     for m, es in edges.items():
         mpkg = _package(m, modules[m])
         for t, names, line in es:

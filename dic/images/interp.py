@@ -87,7 +87,7 @@ def prefilter(image: np.ndarray, order: int = 3) -> BSplineImage:
     .. [2] P. Thévenaz, T. Blu, M. Unser, "Interpolation revisited", IEEE Trans. Med. Imaging
        19 (2000) 739-758.
     """
-    from dic.images import _interp_kernel as k
+    from dic.images._interp_kernel import filter_cols, filter_rows
 
     order = _check_order(order)
     img = np.ascontiguousarray(image, dtype=np.float64)
@@ -100,8 +100,8 @@ def prefilter(image: np.ndarray, order: int = 3) -> BSplineImage:
     rows, cols = img.shape
     coef = np.empty((rows + 2 * pad, cols + 2 * pad))
     inner = coef[pad:pad + rows, pad:pad + cols]
-    k.filter_rows(img, poles, gain, inner)
-    k.filter_cols(inner, poles, gain)
+    filter_rows(img, poles, gain, inner)
+    filter_cols(inner, poles, gain)
     # whole-sample symmetric border (c[-k] = c[k]), matching the mirror boundary condition
     coef[:pad, pad:pad + cols] = inner[pad:0:-1]
     coef[pad + rows:, pad:pad + cols] = inner[rows - 2:rows - 2 - pad:-1]
@@ -143,7 +143,7 @@ def reference_gradients(spline: BSplineImage) -> tuple[np.ndarray, np.ndarray]:
     gx, gy : ndarray, shape (rows, cols)
         d/dx (along columns) and d/dy (along rows) of the interpolant at integer positions.
     """
-    from dic.images import _interp_kernel as kern
+    from dic.images._interp_kernel import separable_at_nodes
 
     k = spline.order // 2
     offsets = np.arange(-k, k + 1, dtype=np.float64)
@@ -153,8 +153,8 @@ def reference_gradients(spline: BSplineImage) -> tuple[np.ndarray, np.ndarray]:
     rows, cols = spline.shape
     gx = np.empty((rows, cols))
     gy = np.empty((rows, cols))
-    kern.separable_at_nodes(spline.coef, spline.pad, rows, cols, der, val, gx)
-    kern.separable_at_nodes(spline.coef, spline.pad, rows, cols, val, der, gy)
+    separable_at_nodes(spline.coef, spline.pad, rows, cols, der, val, gx)
+    separable_at_nodes(spline.coef, spline.pad, rows, cols, val, der, gy)
     return gx, gy
 
 
@@ -176,7 +176,7 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     -------
     gx, gy : ndarray, shape (rows, cols)
     """
-    from dic.images import _interp_kernel as kern
+    from dic.images._interp_kernel import derivative_x, derivative_y, filter_cols, filter_rows
 
     order = _check_order(order)
     img = np.ascontiguousarray(image, dtype=np.float64)
@@ -190,17 +190,17 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     rows, cols = img.shape
     # along x: coefficients of each row, mirrored k samples beyond both ends, then d/dx
     a = np.empty((rows, cols + 2 * k))
-    kern.filter_rows(img, poles, gain, a[:, k:k + cols])
+    filter_rows(img, poles, gain, a[:, k:k + cols])
     a[:, :k] = a[:, 2 * k:k:-1]
     a[:, k + cols:] = a[:, k + cols - 2:cols - 2:-1]
     gx = np.empty((rows, cols))
-    kern.derivative_x(a, k, cols, der, gx)
+    derivative_x(a, k, cols, der, gx)
     # along y: the same on the columns
     b = np.empty((rows + 2 * k, cols))
     b[k:k + rows] = img
-    kern.filter_cols(b[k:k + rows], poles, gain)
+    filter_cols(b[k:k + rows], poles, gain)
     b[:k] = b[2 * k:k:-1]
     b[k + rows:] = b[k + rows - 2:rows - 2:-1]
     gy = np.empty((rows, cols))
-    kern.derivative_y(b, der, gy)
+    derivative_y(b, der, gy)
     return gx, gy

@@ -54,9 +54,13 @@ class _Propagation:
     """State of one reliability-guided propagation over the point grid."""
 
     def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc, weak_sigma=0.0):
-        from dic.matching import _waves
+        from types import SimpleNamespace
 
-        self.w = _waves
+        from dic.matching._waves import BAD, GOOD, NOT_CANDIDATE, TODO, fill_between, next_wave
+
+        #: the propagation's compiled bookkeeping and point states (loaded on first use)
+        self.w = SimpleNamespace(BAD=BAD, GOOD=GOOD, NOT_CANDIDATE=NOT_CANDIDATE, TODO=TODO,
+                                 fill_between=fill_between, next_wave=next_wave)
         self.m = matcher
         self.ny, self.nx = candidate.shape
         self.px = np.ascontiguousarray(gx, dtype=np.int64).ravel()
@@ -64,7 +68,7 @@ class _Propagation:
         self.min_zncc = min_zncc
         self.weak_sigma = weak_sigma
         n = candidate.size
-        self.state = np.where(candidate.ravel(), _waves.TODO, _waves.NOT_CANDIDATE).astype(
+        self.state = np.where(candidate.ravel(), TODO, NOT_CANDIDATE).astype(
             np.int8)
         self.reason = np.select([candidate.ravel(), ~in_image.ravel()],
                                 [Reason.NOT_REACHED, Reason.OUTSIDE_IMAGE],

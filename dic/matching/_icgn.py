@@ -143,7 +143,7 @@ class SubsetMatcher:
 
     def match(self, xs, ys, p0) -> MatchResult:
         """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
-        from dic.matching import _icgn_kernel as kern
+        from dic.matching._icgn_kernel import match_first, match_general
 
         xs = np.ascontiguousarray(xs, dtype=np.int64)
         ys = np.ascontiguousarray(ys, dtype=np.int64)
@@ -165,8 +165,8 @@ class SubsetMatcher:
                     self.smat, out.uncertainty)
             # only the solver a run uses gets compiled (first-order moment sums by default)
             if self.fast and not self.second:
-                run_chunks(kern.match_first, n, *common, *tail, min_chunk=8)
+                run_chunks(match_first, n, *common, *tail, min_chunk=8)
             else:
-                run_chunks(kern.match_general, n, *common, self.second, *tail, min_chunk=8)
+                run_chunks(match_general, n, *common, self.second, *tail, min_chunk=8)
         self.kernel_time += time.perf_counter() - t0
         return out

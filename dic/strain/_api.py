@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from dic.strain import _measures as m
+from dic.strain._measures import (canonical_measure, determinant, out_of_plane as zz_out_of_plane,
+                                  strain_tensor)
 from dic.strain._gradients import displacement_gradient
 from dic.strain._result import StrainField
 
@@ -86,15 +87,15 @@ def strain_field(field, *, window: int = 9, measure: str = "green-lagrange", fit
        Image Correlation, 2018, doi:10.32720/idics/gpg.ed1.
     .. [4] G. A. Holzapfel, Nonlinear Solid Mechanics, Wiley, 2000.
     """
-    canon = m.canonical_measure(measure)
+    canon = canonical_measure(measure)
     if out_of_plane not in (None, "incompressible"):
         raise ValueError(f"out_of_plane must be None or 'incompressible' (got {out_of_plane!r})")
     fitted = displacement_gradient(field, window=window, fit=fit, min_points=min_points)
     F = fitted.grad + np.eye(2)
-    valid = fitted.valid & (m._det(F) > 0.0)  # NaN compares False
+    valid = fitted.valid & (determinant(F) > 0.0)  # NaN compares False
     F[~valid] = np.nan
-    T = m.strain_tensor(F, canon)
-    zz = m.out_of_plane(F, canon) if out_of_plane else None
+    T = strain_tensor(F, canon)
+    zz = zz_out_of_plane(F, canon) if out_of_plane else None
 
     settings = getattr(field, "settings", None) or {}
     step = float(settings.get("step", 0) or fitted.spacing[0])

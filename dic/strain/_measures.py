@@ -92,7 +92,7 @@ def _as_F(F) -> np.ndarray:
     return F
 
 
-def _sym(xx, yy, xy) -> np.ndarray:
+def symmetric_matrix(xx, yy, xy) -> np.ndarray:
     """Stack tensor components into symmetric ``(..., 2, 2)`` matrices."""
     out = np.empty(np.shape(xx) + (2, 2))
     out[..., 0, 0] = xx
@@ -102,7 +102,8 @@ def _sym(xx, yy, xy) -> np.ndarray:
     return out
 
 
-def _det(F) -> np.ndarray:
+def determinant(F) -> np.ndarray:
+    """Determinant of ``(..., 2, 2)`` matrices."""
     return F[..., 0, 0] * F[..., 1, 1] - F[..., 0, 1] * F[..., 1, 0]
 
 
@@ -116,7 +117,7 @@ def _grad(F) -> np.ndarray:
 
 def _proper(F) -> np.ndarray:
     """Mask of points with ``det F > 0`` (NaN compares False)."""
-    return _det(F) > 0.0
+    return determinant(F) > 0.0
 
 
 def _sym_eig(xx, yy, xy):
@@ -131,7 +132,7 @@ def _sym_eig(xx, yy, xy):
 def _spectral(l1, l2, c, s) -> np.ndarray:
     """Symmetric tensor with eigenvalues l1 (along (c, s)) and l2 (perpendicular)."""
     cc, ss, cs = c * c, s * s, c * s
-    return _sym(l1 * cc + l2 * ss, l1 * ss + l2 * cc, (l1 - l2) * cs)
+    return symmetric_matrix(l1 * cc + l2 * ss, l1 * ss + l2 * cc, (l1 - l2) * cs)
 
 
 def _tensor_of_E(F, fun) -> np.ndarray:
@@ -201,7 +202,7 @@ def infinitesimal(F) -> np.ndarray:
 
 def _inverse(F) -> np.ndarray:
     """Closed-form inverse of 2x2 matrices; NaN where ``det F <= 0``."""
-    det = _det(F)
+    det = determinant(F)
     ok = det > 0.0
     inv = np.full_like(F, np.nan)
     d = det[ok]

@@ -8,7 +8,11 @@ from typing import NamedTuple
 
 import numpy as np
 
-from dic.strain import _measures as m
+from dic.strain._measures import (area_change, canonical_measure, equivalent_strain, max_shear,
+                                  measure_difference, nonlinear_mask, nonlinear_part,
+                                  nonlinear_share, out_of_plane as zz_out_of_plane,
+                                  principal_strains, rotation_angle, strain_tensor,
+                                  symmetric_matrix)
 from dic.strain._sample import bilinear
 
 __all__ = ["StrainField", "LineProfile", "COMPONENTS"]
@@ -113,7 +117,7 @@ class StrainField:
 
     def tensor(self) -> np.ndarray:
         """The strain tensors as symmetric matrices, shape (ny, nx, 2, 2)."""
-        return m._sym(self.xx, self.yy, self.xy)
+        return symmetric_matrix(self.xx, self.yy, self.xy)
 
     def summary(self) -> str:
         """One line: measure, window, VSG and valid points (shear is tensor shear)."""
@@ -134,15 +138,15 @@ class StrainField:
         -------
         StrainField
         """
-        canon = m.canonical_measure(name)
-        T = m.strain_tensor(self.F, canon)
-        zz = None if self.zz_assumption is None else m.out_of_plane(self.F, canon)
+        canon = canonical_measure(name)
+        T = strain_tensor(self.F, canon)
+        zz = None if self.zz_assumption is None else zz_out_of_plane(self.F, canon)
         return dataclasses.replace(self, xx=T[..., 0, 0], yy=T[..., 1, 1], xy=T[..., 0, 1],
                                    measure=canon, zz=zz)
 
     def difference(self, other: str) -> np.ndarray:
         """This measure minus ``other`` from the same gradients, shape (ny, nx, 2, 2)."""
-        return m.measure_difference(self.F, self.measure, other)
+        return measure_difference(self.F, self.measure, other)
 
     # -- derived quantities -----------------------------------------------------------------
     def principal(self):
@@ -151,11 +155,11 @@ class StrainField:
         The angle is that of the major direction, in degrees from +x towards +y (image
         coordinates, so clockwise on screen), in (-90, 90].
         """
-        return m.principal_strains(self.xx, self.yy, self.xy)
+        return principal_strains(self.xx, self.yy, self.xy)
 
     def max_shear(self) -> np.ndarray:
         """Maximum in-plane TENSOR shear ``(major - minor) / 2``."""
-        return m.max_shear(self.xx, self.yy, self.xy)
+        return max_shear(self.xx, self.yy, self.xy)
 
     def equivalent(self, out_of_plane: str = "incompressible") -> np.ndarray:
         """Von Mises equivalent strain ``sqrt(2/3 eps_dev : eps_dev)``.
@@ -166,29 +170,29 @@ class StrainField:
         """
         zz = self.zz
         if zz is None and out_of_plane == "incompressible":
-            zz = m.out_of_plane(self.F, self.measure)
-        return m.equivalent_strain(self.xx, self.yy, self.xy, zz, measure=self.measure,
+            zz = zz_out_of_plane(self.F, self.measure)
+        return equivalent_strain(self.xx, self.yy, self.xy, zz, measure=self.measure,
                                    out_of_plane=out_of_plane)
 
     def rotation(self) -> np.ndarray:
         """Rigid rotation angle from the polar decomposition, degrees (+x towards +y)."""
-        return m.rotation_angle(self.F)
+        return rotation_angle(self.F)
 
     def area_change(self) -> np.ndarray:
         """Relative in-plane area change ``det F - 1``."""
-        return m.area_change(self.F)
+        return area_change(self.F)
 
     def nonlinear_part(self) -> np.ndarray:
         """Quadratic term of Green-Lagrange strain ``(grad u)^T grad u / 2``, (ny, nx, 2, 2)."""
-        return m.nonlinear_part(self.F)
+        return nonlinear_part(self.F)
 
     def nonlinear_share(self, *, floor: float = 1e-9) -> np.ndarray:
         """``||Q||_F / ||eps||_F`` per point; NaN where ``||eps||_F <= floor``."""
-        return m.nonlinear_share(self.F, floor=floor)
+        return nonlinear_share(self.F, floor=floor)
 
     def nonlinear_mask(self, *, threshold: float = 0.01, floor: float = 1e-9) -> np.ndarray:
         """Points where the nonlinear share exceeds ``threshold`` (default 1 %)."""
-        return m.nonlinear_mask(self.F, threshold=threshold, floor=floor)
+        return nonlinear_mask(self.F, threshold=threshold, floor=floor)
 
     def component(self, name: str = "xx") -> np.ndarray:
         """A scalar field by name: one of :data:`COMPONENTS` (``xy`` is tensor shear)."""
