@@ -16,7 +16,7 @@ track, load_results
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 from dic._version import __version__
 from dic.field import DisplacementField, Reason
@@ -42,22 +42,9 @@ _SUBMODULES = {
     "matching": "dic.matching", "strain": "dic.strain", "sequence": "dic.sequence",
     "metrology": "dic.metrology", "tensile": "dic.tensile", "figures": "dic.figures",
     "report": "dic.report", "export": "dic.export", "workflow": "dic.workflow",
-    "stereo": "dic.stereo",
+    "stereo": "dic.stereo", "view": "dic.view",
 }
 
 __all__ = ["__version__", "DisplacementField", "Reason", *_LAZY]
 
-
-def __getattr__(name):
-    if name in _LAZY:
-        value = getattr(importlib.import_module(_LAZY[name]), name)
-    elif name in _SUBMODULES:
-        value = importlib.import_module(_SUBMODULES[name])
-    else:
-        raise AttributeError(f"module 'dic' has no attribute {name!r}")
-    globals()[name] = value
-    return value
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_LAZY) | set(_SUBMODULES))
+__getattr__, __dir__ = lazy_exports(__name__, _LAZY, _SUBMODULES)

@@ -22,7 +22,7 @@ Names load on first attribute access (PEP 562), so importing this package stays 
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 # public name -> module that defines it
 _NAMES = {
@@ -38,17 +38,4 @@ _MODULES = ("common", "layers", "maps", "lines", "animation")
 
 __all__ = sorted(_NAMES)
 
-
-def __getattr__(name):
-    if name in _NAMES:
-        value = getattr(importlib.import_module(f"{__name__}.{_NAMES[name]}"), name)
-    elif name in _MODULES:
-        value = importlib.import_module(f"{__name__}.{name}")
-    else:
-        raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-    globals()[name] = value
-    return value
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_NAMES) | set(_MODULES))
+__getattr__, __dir__ = lazy_exports(__name__, _NAMES, _MODULES)

@@ -16,12 +16,8 @@ The modules load on first attribute access, so importing this package stays ligh
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 _MODULES = ("io", "roi", "interp", "synth")
 
-
-def __getattr__(name):
-    if name in _MODULES:
-        return importlib.import_module(f"{__name__}.{name}")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+__getattr__, __dir__ = lazy_exports(__name__, {}, _MODULES)

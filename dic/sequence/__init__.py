@@ -20,7 +20,7 @@ The modules load on first attribute access, so importing this package stays ligh
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 # public name -> module that defines it (PEP 562)
 _NAMES = {
@@ -35,14 +35,4 @@ _MODULES = ("frames", "tracker", "layout", "writer", "reader", "checks", "h5file
 
 __all__ = list(_NAMES)
 
-
-def __getattr__(name):
-    if name in _NAMES:
-        return getattr(importlib.import_module(f"{__name__}.{_NAMES[name]}"), name)
-    if name in _MODULES:
-        return importlib.import_module(f"{__name__}.{name}")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted([*globals(), *_NAMES, *_MODULES])
+__getattr__, __dir__ = lazy_exports(__name__, _NAMES, _MODULES)

@@ -29,7 +29,7 @@ The names load on first use, so importing this package stays light.
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 _LAZY = {
     "Camera": "dic.stereo.camera",
@@ -56,10 +56,4 @@ _MODULES = ("camera", "calibration", "calfile", "undistort", "render", "match", 
 
 __all__ = list(_LAZY)
 
-
-def __getattr__(name):
-    if name in _LAZY:
-        return getattr(importlib.import_module(_LAZY[name]), name)
-    if name in _MODULES:
-        return importlib.import_module(f"{__name__}.{name}")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+__getattr__, __dir__ = lazy_exports(__name__, _LAZY, _MODULES)

@@ -20,7 +20,7 @@ The public names load on first use, so importing this package stays light.
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 _NAMES = {
     "gauges": ("GaugeLine", "AreaGauge", "PointProbe", "gauge_histories", "axial_line",
@@ -38,14 +38,4 @@ _MODULES = tuple(_NAMES) + ("fits",)
 
 __all__ = sorted(_WHERE)
 
-
-def __getattr__(name):
-    if name in _WHERE:
-        return getattr(importlib.import_module(f"{__name__}.{_WHERE[name]}"), name)
-    if name in _MODULES:
-        return importlib.import_module(f"{__name__}.{name}")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_WHERE) | set(_MODULES))
+__getattr__, __dir__ = lazy_exports(__name__, _WHERE, _MODULES)

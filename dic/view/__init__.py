@@ -25,7 +25,7 @@ The public names load on first use, so importing this package stays light.
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 _NAMES = {
     "server": ("ViewServer", "start_server", "source_for"),
@@ -36,14 +36,4 @@ _WHERE = {name: module for module, names in _NAMES.items() for name in names}
 
 __all__ = sorted(_WHERE)
 
-
-def __getattr__(name):
-    if name in _WHERE:
-        return getattr(importlib.import_module(f"{__name__}.{_WHERE[name]}"), name)
-    if name in _NAMES:
-        return importlib.import_module(f"{__name__}.{name}")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
-
-
-def __dir__():
-    return sorted(set(globals()) | set(_WHERE) | set(_NAMES))
+__getattr__, __dir__ = lazy_exports(__name__, _WHERE, tuple(_NAMES))

@@ -11,17 +11,11 @@ run
 
 from __future__ import annotations
 
-import importlib
+from dic.lazy import lazy_exports
 
 _WHERE = {"load_analysis": "config", "scale_from_line": "config", "finish": "run",
           "tensile_outputs": "run", "settings_self_check": "run"}
 
 __all__ = sorted(_WHERE)
 
-
-def __getattr__(name):
-    if name in _WHERE:
-        return getattr(importlib.import_module(f"{__name__}.{_WHERE[name]}"), name)
-    if name in ("config", "run"):
-        return importlib.import_module(f"{__name__}.{name}")
-    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+__getattr__, __dir__ = lazy_exports(__name__, _WHERE, ("config", "run"))
