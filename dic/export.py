@@ -339,7 +339,7 @@ def _write_text(p, text_writer):
 
 
 def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
-                 measure="green-lagrange", digits=9, about=None):
+                 measure="green-lagrange", digits=9, about=None, field=None, strain=None):
     """Write one frame of a results file as a CSV table: positions, displacements, strain.
 
     Parameters
@@ -359,6 +359,9 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
         Significant digits (17 gives every float back bit for bit).
     about : dict, optional
         More facts for the sidecar JSON.
+    field, strain : optional
+        Frame ``k``'s displacement field and its strain at ``window`` and ``measure``, when
+        the caller has them already (they are then not read or computed again).
 
     Returns
     -------
@@ -379,8 +382,8 @@ def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
     res, opened = _open(results)
     try:
         kk = _frame(res, k)
-        f = res.field(kk)
-        s = res.strain(kk, window=window, measure=measure)
+        f = res.field(kk) if field is None else field
+        s = res.strain(kk, window=window, measure=measure) if strain is None else strain
         scale = res.scale
         n = f.n_points
         g = np.asarray(f.grad, dtype=np.float64).reshape(n, 2, 2)
@@ -647,7 +650,7 @@ def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONEN
             arrays.append(_vtk_array(np.where(f.valid, f.zncc, np.nan).ravel(), "zncc"))
             arrays.append(_vtk_array(np.asarray(reason, dtype=np.int8).ravel(), "reason"))
             if surface is not None:
-                arrays += [_vtk_array(a.ravel(), nm) for nm, a in surface["extra"](k).items()]
+                arrays += [_vtk_array(a.ravel(), nm) for nm, a in surface["extra"](k, f).items()]
             comment = (f"dic {__version__} export of frame {k} (image {res.image_names[k]}); "
                        f"points and displacements in {unit}"
                        + (f" ({scale:g} mm/px)" if scale is not None else "") + "; "
@@ -689,9 +692,9 @@ def _surface(res):
     return {"points": vtk_points(st),
             "displacement": lambda k: np.stack([st.U[k], st.V[k], st.W[k]], -1).reshape(-1, 3),
             "reason": lambda k: st.reason[k],
-            "extra": lambda k: {"W_mm": st.W[k], "shape_mm": st.shape_mm(),
-                                "ray_gap_mm": gap[k], "u_px": res.field(k).u,
-                                "v_px": res.field(k).v}}
+            # f: frame k's field, already read by the caller
+            "extra": lambda k, f: {"W_mm": st.W[k], "shape_mm": st.shape_mm(),
+                                   "ray_gap_mm": gap[k], "u_px": f.u, "v_px": f.v}}
 
 
 def export_results(results, out_dir, *, format="csv", frames=None,

@@ -434,9 +434,9 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
             csv, png = _export_names(folder, names[k])
             # the columns of dic export's tables; 17 digits give the stored numbers bit for
             # bit; written atomically: never half a file
-            frame_to_csv(results, k, csv, window=window, measure=measure, digits=17,
-                         about=note)
             st_k = results.strain(k, window=window, measure=measure)
+            frame_to_csv(results, k, csv, window=window, measure=measure, digits=17,
+                         about=note, field=field, strain=st_k)
             nv = int(np.count_nonzero(np.isfinite(getattr(st_k, comp))))
             fig, _ = strain_map(
                 st_k, reference_image, component=comp, limits=limits, scale=results.scale,

@@ -51,7 +51,6 @@ CAUTIONS = (
     "lighting) follows local rules and the machine maker's instructions, not this report.",
 )
 
-#: figure resolution, dots per inch (the same PNG serves the HTML and the PDF)
 #: largest number of frames listed one by one in the data-quality table
 _MAX_ROWS = 60
 #: opacity of the strain maps over the specimen image: strain reads first, the image faintly

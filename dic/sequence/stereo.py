@@ -209,7 +209,9 @@ def _lens(results, cal, strain):
     return arrays, attrs, comps, window, measure
 
 
-def _right_field(left_ref, right_img, stereo, left, settings, roi):
+def _right_field(left_ref, right_img, stereo, left, settings, roi, prepared):
+    """Frame's right image matched from the left reference grid (``prepared``: the left
+    reference's spline gradients, computed once for the whole sequence)."""
     from dic.matching import correlate
 
     both = np.isfinite(left.u) & np.isfinite(stereo.u)
@@ -219,7 +221,7 @@ def _right_field(left_ref, right_img, stereo, left, settings, roi):
     k = np.unravel_index(int(np.argmax(score)), score.shape)
     seed = (float(stereo.x[k]), float(stereo.y[k]), float(stereo.u[k] + left.u[k]),
             float(stereo.v[k] + left.v[k]))
-    return correlate(left_ref, right_img, seeds=[seed], roi=roi, **settings)
+    return correlate(left_ref, right_img, seeds=[seed], roi=roi, _prepared=prepared, **settings)
 
 
 def _stereo(results, cal, left_items, right_items, strain, max_gap_px):
@@ -254,13 +256,19 @@ def _stereo(results, cal, left_items, right_items, strain, max_gap_px):
     out["reason"] = np.zeros((n, ny, nx), np.int8)
     comps = {c: np.full((n, ny, nx), np.nan) for c in ("xx", "yy", "xy")}
     apart = {StereoReason.RAYS_APART}
+    from dic.images import interp
+    from dic.matching import INTERPOLATIONS
+
+    # the left reference is prepared once, not again for every frame
+    prepared = interp.reference_gradients(interp.prefilter(
+        left_ref, INTERPOLATIONS[opts.get("interpolation", "quintic")]))
     for j in range(n):
         left = results.field(j)
         if frames[j] == ref and np.allclose(np.nan_to_num(left.u), 0, atol=1e-9):
             right = stereo
         else:
             right = _right_field(left_ref, _image(right_items[frames[j]]), stereo, left, opts,
-                                 roi)
+                                 roi, prepared)
         why_l = np.asarray(left.reason, np.int8).copy()
         if right is None:
             P = np.full((ny, nx, 3), np.nan)

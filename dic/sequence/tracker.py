@@ -631,14 +631,8 @@ def _write_strain(writer, k, total, strain):
 def _fill_strain(writer, strain):
     """Store the strain of completed frames that lack it (a stop between a frame and its
     strain, or a strain write that failed): from the stored displacements."""
-    flags = None
-    for k in range(writer.n_done):
-        if flags is not None and flags[k]:
-            continue
-        s = _strain_of(writer.read_field(k), strain)
-        if flags is None:
-            flags = writer.strain_written(s.measure, int(s.window))
-            if flags[k]:
-                continue
+    flags = writer.strain_written(strain.get("measure", "green-lagrange"),
+                                  int(strain.get("window", 9)))
+    for k in np.flatnonzero(np.asarray(flags) == 0):
         log.info("frame %d: storing its strain, missing after the last stop", k)
-        writer.write_strain_frame(k, s)
+        writer.write_strain_frame(int(k), _strain_of(writer.read_field(int(k)), strain))

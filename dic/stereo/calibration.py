@@ -288,14 +288,14 @@ def calibrate(left_images, right_images=None, *, target="chessboard", inner_corn
     for i in range(len(left)):
         missing = []
         for c, images in enumerate(cams):
-            u8, _ = _as_gray_u8(images[i], i)
-            size = (u8.shape[1], u8.shape[0])
+            full = _as_gray_u8(images[i], i)[1]  # read once, at full bit depth
+            size = (full.shape[1], full.shape[0])
             if sizes[c] is None:
                 sizes[c] = size
             elif sizes[c] != size:
                 raise InputError(f"calibration image {names[i]!r} is {size[0]}x{size[1]} px; "
                                  f"the others of that camera are {sizes[c][0]}x{sizes[c][1]}")
-            corners[c][i] = find_corners(u8, (cols, rows))
+            corners[c][i] = find_corners(full, (cols, rows))  # refined on the full depth
             if corners[c][i] is None:
                 missing.append("left" if c == 0 else "right")
         if missing:

@@ -225,13 +225,14 @@ class ResultsData:
     def strain(self, k, measure, window):
         """The strain field of frame ``k`` (what ``Results.strain(k, ...)`` returns)."""
         from dic.errors import TooFewPoints
-        from dic.strain import canonical_measure, strain_field
+        from dic.strain import canonical_measure
 
         measure = canonical_measure(measure)
         with self._lock:
             def make():
-                try:
-                    return strain_field(self.field(k), window=window, measure=measure)
+                try:  # surface strain for two cameras, lens-corrected strain for one
+                    return self.results.strain(self._frame(k), window=int(window),
+                                               measure=measure)
                 except TooFewPoints:
                     return None
             return self._strains.get((self._frame(k), measure, int(window)), make)

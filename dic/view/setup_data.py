@@ -116,11 +116,15 @@ class SetupData:
 
         with self._lock:
             if self._ref is None:
-                k = int(self.base.get("reference", 0)) if isinstance(
-                    self.base.get("reference", 0), int) else 0
-                self._ref = read_image(self.images[min(max(k, 0), len(self.images) - 1)],
+                self._ref = read_image(self.images[self.reference_index()],
                                        name="reference image")
             return self._ref
+
+    def reference_index(self) -> int:
+        """Position of the reference image in the folder (the analysis file's, else 0)."""
+        k = self.base.get("reference", 0)
+        k = k if isinstance(k, int) and not isinstance(k, bool) else 0
+        return min(max(k, 0), len(self.images) - 1)
 
     def info(self) -> dict:
         """Everything the set-up page needs once: images, size, the settings it starts from."""
@@ -144,7 +148,8 @@ class SetupData:
 
         if not 0 <= k < len(self.images):
             raise InputError(f"frame: give an image number from 0 to {len(self.images) - 1}")
-        return grey_png(self.reference() if k == 0 else read_image(self.images[k]))
+        return grey_png(self.reference() if k == self.reference_index()
+                        else read_image(self.images[k]))
 
     # -- the region -----------------------------------------------------------------------------
     def _shape_roi(self, shape):
