@@ -61,14 +61,7 @@ def _component_values(field, component):
 def _limits(values, signed, limits):
     """Colour limits: given, or from the 99.5th percentile of the measured values."""
     if limits is not None:
-        try:
-            lo, hi = (float(t) for t in limits)
-        except (TypeError, ValueError):
-            lo = hi = float("nan")
-        if not (np.isfinite(lo) and np.isfinite(hi) and lo < hi):
-            raise ValueError(f"limits must be two finite numbers (low, high) with low < high, "
-                             f"got {limits!r}; e.g. limits=(0, 5)")
-        return lo, hi
+        return check_limits(limits)
     data = np.abs(values.compressed())
     top = float(np.percentile(data, ROBUST_PERCENTILE)) if data.size else 0.0
     if not top > 0.0:

@@ -457,22 +457,23 @@ def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lag
             units[f"{g.name}.{c}"] = _UNITS.get(c, "mm/mm")
 
     vsg = None
+    if src.stereo:    # two cameras: lengths between the end points in 3-D, mm
+        from dic.sequence.stereofile import positions_at
+        length0 = {g.name: math.dist(*positions_at(src._results, 0, *line_px[g.name].T))
+                   for g in lines}
     for row, k in enumerate(ks):
         f = src.field(k)
         for g in lines:
             P = line_px[g.name]
-            if src.stereo:    # two cameras: distance between the end points in 3-D, mm
-                from dic.sequence.stereofile import positions_at
-                Q0, Q = (positions_at(src._results, j, P[:, 0], P[:, 1]) for j in (0, int(k)))
-                L0, L = math.dist(Q0[0], Q0[1]), math.dist(Q[0], Q[1])
-                lam = L / L0
+            if src.stereo:
+                L0, L = length0[g.name], math.dist(*positions_at(src._results, int(k), *P.T))
                 cols[f"{g.name}.length"][row] = L
             else:
                 u, v = displacement_at(f, P[:, 0], P[:, 1])
                 L0 = math.dist(P[0], P[1])
                 L = math.hypot(P[1, 0] + u[1] - P[0, 0] - u[0], P[1, 1] + v[1] - P[0, 1] - v[0])
-                lam = L / L0
                 cols[f"{g.name}.length"][row] = L * lscale
+            lam = L / L0
             cols[f"{g.name}.engineering"][row] = lam - 1.0
             cols[f"{g.name}.hencky"][row] = math.log(lam) if lam > 0 else math.nan
             cols[f"{g.name}.green-lagrange"][row] = 0.5 * (lam * lam - 1.0)
