@@ -36,31 +36,35 @@ def _filter_rows(lo, hi, img, poles, gain, out):
         for r in range(r0, r1):
             for i in range(n):
                 out[r, i] = img[r, i] * gain
-        if n == 1:
-            continue
-        for z in poles:
-            h = _horizon(z, n)
-            k = z / (z * z - 1.0)
-            for r in range(r0, r1):
-                s = out[r, 0]
-                zn = z
-                for i in range(1, h):
-                    s += zn * out[r, i]
-                    zn *= z
-                out[r, 0] = s
-            for i in range(1, n):
-                for r in range(r0, r1):
-                    out[r, i] += z * out[r, i - 1]
-            for r in range(r0, r1):
-                out[r, n - 1] = k * (z * out[r, n - 2] + out[r, n - 1])
-            for i in range(n - 2, -1, -1):
-                for r in range(r0, r1):
-                    out[r, i] = z * (out[r, i + 1] - out[r, i])
+        if n > 1:
+            _recurse_rows(out[r0:r1], r1 - r0, 0, n, poles)
 
 
 def filter_rows(img, poles, gain, out):
     """Recursive B-spline prefilter along axis 1 (mirror boundaries), rows in parallel."""
     run_chunks(_filter_rows, img.shape[0], img, poles, gain, out, min_chunk=16)
+
+
+@njit(cache=True, nogil=True)
+def _recurse_cols(buf, off, n, w, poles):
+    """The recursive prefilter along axis 0 of ``buf[off:off + n, :w]``, in place (mirror
+    boundaries; the gain already applied), the inner loop running across the columns."""
+    for z in poles:
+        h = _horizon(z, n)
+        zn = z
+        for r in range(1, h):
+            for c in range(w):
+                buf[off, c] += zn * buf[off + r, c]
+            zn *= z
+        for r in range(off + 1, off + n):
+            for c in range(w):
+                buf[r, c] += z * buf[r - 1, c]
+        k = z / (z * z - 1.0)
+        for c in range(w):
+            buf[off + n - 1, c] = k * (z * buf[off + n - 2, c] + buf[off + n - 1, c])
+        for r in range(off + n - 2, off - 1, -1):
+            for c in range(w):
+                buf[r, c] = z * (buf[r + 1, c] - buf[r, c])
 
 
 @njit(cache=True, nogil=True)
@@ -73,24 +77,91 @@ def _filter_cols(lo, hi, a, poles, gain):
         for r in range(n):
             for c in range(c0, c1):
                 a[r, c] *= gain
-        if n == 1:
-            continue
-        for z in poles:
-            h = _horizon(z, n)
+        if n > 1:
+            _recurse_cols(a[:, c0:c1], 0, n, c1 - c0, poles)
+
+
+@njit(cache=True, nogil=True)
+def _recurse_rows(buf, nr, off, n, poles):
+    """The recursive prefilter along axis 1 of ``buf[:nr, off:off + n]``, in place (mirror
+    boundaries; the gain already applied), the inner loop running across the rows."""
+    for z in poles:
+        h = _horizon(z, n)
+        k = z / (z * z - 1.0)
+        for r in range(nr):
+            s = buf[r, off]
             zn = z
-            for r in range(1, h):
-                for c in range(c0, c1):
-                    a[0, c] += zn * a[r, c]
+            for i in range(1, h):
+                s += zn * buf[r, off + i]
                 zn *= z
-            for r in range(1, n):
-                for c in range(c0, c1):
-                    a[r, c] += z * a[r - 1, c]
-            k = z / (z * z - 1.0)
-            for c in range(c0, c1):
-                a[n - 1, c] = k * (z * a[n - 2, c] + a[n - 1, c])
-            for r in range(n - 2, -1, -1):
-                for c in range(c0, c1):
-                    a[r, c] = z * (a[r + 1, c] - a[r, c])
+            buf[r, off] = s
+        for i in range(off + 1, off + n):
+            for r in range(nr):
+                buf[r, i] += z * buf[r, i - 1]
+        for r in range(nr):
+            buf[r, off + n - 1] = k * (z * buf[r, off + n - 2] + buf[r, off + n - 1])
+        for i in range(off + n - 2, off - 1, -1):
+            for r in range(nr):
+                buf[r, i] = z * (buf[r, i + 1] - buf[r, i])
+
+
+@njit(cache=True, nogil=True)
+def _gradient_x(lo, hi, img, poles, gain, der, out):
+    """d/dx of the interpolating spline at the pixels of rows lo..hi-1: the prefilter along
+    each row, then the derivative filter ``der``, eight rows at a time in a small buffer."""
+    n = img.shape[1]
+    kk = der.shape[0] // 2
+    buf = np.empty((8, n + 2 * kk))
+    for r0 in range(lo, hi, 8):
+        nr = min(hi, r0 + 8) - r0
+        for r in range(nr):
+            for i in range(n):
+                buf[r, kk + i] = img[r0 + r, i] * gain
+        _recurse_rows(buf, nr, kk, n, poles)
+        for r in range(nr):
+            # whole-sample mirror beyond both ends: c[-j] = c[j], c[n - 1 + j] = c[n - 1 - j]
+            for j in range(1, kk + 1):
+                buf[r, kk - j] = buf[r, kk + j]
+                buf[r, kk + n - 1 + j] = buf[r, kk + n - 1 - j]
+            for c in range(n):
+                acc = 0.0
+                for j in range(der.shape[0]):
+                    acc += der[j] * buf[r, c + j]
+                out[r0 + r, c] = acc
+
+
+@njit(cache=True, nogil=True)
+def _gradient_y(lo, hi, img, poles, gain, der, out):
+    """d/dy of the interpolating spline at the pixels of column blocks lo..hi-1: the prefilter
+    along each column, then the derivative filter ``der``, in a buffer one block wide."""
+    n, cols = img.shape
+    kk = der.shape[0] // 2
+    buf = np.empty((n + 2 * kk, _BLOCK))
+    for b in range(lo, hi):
+        c0 = b * _BLOCK
+        w = min(cols, c0 + _BLOCK) - c0
+        for r in range(n):
+            for c in range(w):
+                buf[kk + r, c] = img[r, c0 + c] * gain
+        _recurse_cols(buf, kk, n, w, poles)
+        for j in range(1, kk + 1):
+            for c in range(w):
+                buf[kk - j, c] = buf[kk + j, c]
+                buf[kk + n - 1 + j, c] = buf[kk + n - 1 - j, c]
+        for r in range(n):
+            for c in range(w):
+                out[r, c0 + c] = 0.0
+            for j in range(der.shape[0]):
+                dj = der[j]
+                for c in range(w):
+                    out[r, c0 + c] += dj * buf[r + j, c]
+
+
+def spline_gradients(img, poles, gain, der, gx, gy):
+    """Both derivatives of the interpolating spline at every pixel (rows and column blocks in
+    parallel), with no image-sized temporary arrays."""
+    run_chunks(_gradient_x, img.shape[0], img, poles, gain, der, gx, min_chunk=16)
+    run_chunks(_gradient_y, (img.shape[1] + _BLOCK - 1) // _BLOCK, img, poles, gain, der, gy)
 
 
 def filter_cols(a, poles, gain):
@@ -129,13 +200,3 @@ def separable_at_nodes(coef, pad, rows, cols, wx, wy, out):
     tmp = np.empty((rows + 2 * ky, cols))
     run_chunks(_filter_x, rows + 2 * ky, coef, pad - ky, pad, cols, wx, tmp, min_chunk=16)
     run_chunks(_filter_y, rows, tmp, wy, out, min_chunk=16)
-
-
-def derivative_x(a, k, cols, w, out):
-    """out[r, c] = sum_j w[j] a[r, k + c + j - K] (rows in parallel)."""
-    run_chunks(_filter_x, out.shape[0], a, 0, k, cols, w, out, min_chunk=16)
-
-
-def derivative_y(a, w, out):
-    """out[r, c] = sum_j w[j] a[r + j, c] (a has len(w) - 1 more rows than out)."""
-    run_chunks(_filter_y, out.shape[0], a, w, out, min_chunk=16)

@@ -176,7 +176,7 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     -------
     gx, gy : ndarray, shape (rows, cols)
     """
-    from dic.images._interp_kernel import derivative_x, derivative_y, filter_cols, filter_rows
+    from dic.images._interp_kernel import spline_gradients
 
     order = _check_order(order)
     img = np.ascontiguousarray(image, dtype=np.float64)
@@ -187,20 +187,9 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     poles = _POLES[order]
     gain = float(np.prod([(1.0 - z) * (1.0 - 1.0 / z) for z in poles]))
     der = bspline_derivative(-np.arange(-k, k + 1, dtype=np.float64), order)
-    rows, cols = img.shape
-    # along x: coefficients of each row, mirrored k samples beyond both ends, then d/dx
-    a = np.empty((rows, cols + 2 * k))
-    filter_rows(img, poles, gain, a[:, k:k + cols])
-    a[:, :k] = a[:, 2 * k:k:-1]
-    a[:, k + cols:] = a[:, k + cols - 2:cols - 2:-1]
-    gx = np.empty((rows, cols))
-    derivative_x(a, k, cols, der, gx)
-    # along y: the same on the columns
-    b = np.empty((rows + 2 * k, cols))
-    b[k:k + rows] = img
-    filter_cols(b[k:k + rows], poles, gain)
-    b[:k] = b[2 * k:k:-1]
-    b[k + rows:] = b[k + rows - 2:rows - 2:-1]
-    gy = np.empty((rows, cols))
-    derivative_y(b, der, gy)
+    gx = np.empty(img.shape)
+    gy = np.empty(img.shape)
+    # along x: the coefficients of each row, mirrored beyond both ends, then d/dx (and the
+    # same along y), a few lines at a time in small buffers
+    spline_gradients(img, poles, gain, der, gx, gy)
     return gx, gy

@@ -33,6 +33,12 @@ AUTO_BIAS = 0.01
 #: noisy, low-texture photographs the ZNCC stays low although the match is well determined
 WEAK_ZNCC = 0.5
 WEAK_SIGMA = 0.5
+#: the texture check before matching skips only subsets whose predicted standard deviation
+#: exceeds this many times max_sigma: the single-image noise estimate counts fine texture as
+#: noise (on a photographed stereo pair, scikit-image's motorcycle, its central patch gave 4.6
+#: grey levels, the whole image 2.7) and with the plain limit it took 17 % of the measurable
+#: points of smooth surfaces as flat, which the residual of the match found well determined
+PRECHECK = 3.0
 #: normalised median test (Westerweel & Scarano 2005): noise level (px) and threshold
 MEDIAN_EPS = 0.1
 MEDIAN_THRESHOLD = 2.0
@@ -48,6 +54,12 @@ _SEED_TRIES = 7
 _MIN_ISLAND = 10
 # grids at least this many points across propagate over a coarse lattice first
 _COARSE_MIN = 12
+# ... and over every fourth point first when at least this many across
+_COARSE4_MIN = 32
+# ... to this fraction of the tolerance
+_COARSE_TOLERANCE = 0.1
+# blocks of the noise estimate behind the texture rule (dic.matching.image_noise)
+_NOISE_BLOCKS = 4000
 
 
 class _Propagation:
@@ -56,11 +68,13 @@ class _Propagation:
     def __init__(self, matcher, gx, gy, candidate, in_image, min_zncc, weak_sigma=0.0):
         from types import SimpleNamespace
 
-        from dic.matching._waves import BAD, GOOD, NOT_CANDIDATE, TODO, fill_between, next_wave
+        from dic.matching._waves import (BAD, DEFERRED, GOOD, NOT_CANDIDATE, TODO,
+                                         fill_between, next_wave)
 
         #: the propagation's compiled bookkeeping and point states (loaded on first use)
         self.w = SimpleNamespace(BAD=BAD, GOOD=GOOD, NOT_CANDIDATE=NOT_CANDIDATE, TODO=TODO,
-                                 fill_between=fill_between, next_wave=next_wave)
+                                 DEFERRED=DEFERRED, fill_between=fill_between,
+                                 next_wave=next_wave)
         self.m = matcher
         self.ny, self.nx = candidate.shape
         self.px = np.ascontiguousarray(gx, dtype=np.int64).ravel()
@@ -83,33 +97,34 @@ class _Propagation:
         self.n_matched = 0
         self.seed_time = 0.0
 
-    def mark_flat(self, min_std, max_sigma, noise):
-        """Mark points whose reference subset has too little texture before any matching:
-        grey-level standard deviation below ``min_std``, or a predicted standard deviation of
-        u or v above ``max_sigma`` px (see :func:`dic.matching.translation_sigma`)."""
+    def mark_flat(self, idx):
+        """Apply the texture rule of the matcher (:func:`SubsetMatcher`: ``min_std``,
+        ``min_grad2``) to points ``idx`` before any matching; mark the flat ones ``FLAT``
+        and return a boolean array, True where flat.
+
+        The solver applies the same rule to every point it is given, so this is needed only
+        where no match is tried: seed candidates (an FFT search on a flat subset is wasted) and
+        the points of a part of the ROI where no seed took hold."""
         from dic.images.parallel import run_chunks
         from dic.matching._icgn_kernel import subset_stats
 
-        todo = np.flatnonzero(self.state == self.w.TODO)
-        std, sxx, syy = np.empty(todo.size), np.empty(todo.size), np.empty(todo.size)
-        run_chunks(subset_stats, todo.size, self.m.reference, self.m.gx, self.m.gy,
-                   self.px[todo], self.py[todo], self.m.half, std, sxx, syy, min_chunk=64)
-        self.std[todo] = std
-        # the translation-only prediction of dic.matching.translation_sigma, from the same sums
-        s2 = float(np.nansum(np.square(np.asarray(noise, dtype=np.float64))))
-        smin = np.minimum(sxx, syy)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            sig = np.where(smin > 1e-12 * max(float(smin.max(initial=0.0)), 1e-300),
-                           np.sqrt(s2 / smin), np.inf)
-        # a constant subset (std at rounding level of its grey values) is flat whatever noise
-        scale = 1e-6 * max(float(np.abs(self.m.reference).max(initial=0.0)), 1e-300)
-        flat = todo[(std < min_std) | (std <= scale) | ~(sig <= max_sigma)]
-        self.state[flat] = self.w.BAD
-        self.reason[flat] = Reason.FLAT
+        idx = np.asarray(idx, np.int64)
+        std, sxx, syy = np.empty(idx.size), np.empty(idx.size), np.empty(idx.size)
+        run_chunks(subset_stats, idx.size, self.m.reference, self.m.gx, self.m.gy,
+                   self.px[idx], self.py[idx], self.m.half, std, sxx, syy, min_chunk=64)
+        self.std[idx] = std
+        m = self.m
+        flat = (std < m.min_std) | (std <= m.std_floor) | (np.minimum(sxx, syy) <= m.min_grad2)
+        self.state[idx[flat]] = self.w.BAD
+        self.reason[idx[flat]] = Reason.FLAT
+        return flat
 
-    def run(self, idx, p0, *, retry_later=False):
-        """Match points ``idx`` from ``p0``; return the indices that matched well."""
-        res = self.m.match(self.px[idx], self.py[idx], p0)
+    def run(self, idx, p0, *, retry_later=False, on_fail=None, tolerance=None):
+        """Match points ``idx`` from ``p0``; return the indices that matched well.
+
+        Points that fail become ``BAD``, or ``TODO`` again with ``retry_later`` (a failed
+        start from an outside guess is no verdict), or ``on_fail`` when given."""
+        res = self.m.match(self.px[idx], self.py[idx], p0, tolerance)
         self.n_matched += len(idx)
         good = (res.status == Reason.MEASURED) & (res.zncc >= self.min_zncc)
         # a noisy but well-determined match: low ZNCC, small standard deviation from the fit
@@ -117,51 +132,60 @@ class _Propagation:
                               & (res.zncc >= WEAK_ZNCC))
         if weak.size and self.weak_sigma > 0:
             npix = (2 * self.m.half + 1) ** 2
-            su, sv = posterior_sigma(self.std[idx[weak]], res.zncc[weak],
+            su, sv = posterior_sigma(res.std[weak], res.zncc[weak],
                                      res.uncertainty[weak], npix, n_params(self.m.second),
                                      self.m.order)
             good[weak] = (su <= self.weak_sigma) & (sv <= self.weak_sigma)
         status = np.where((res.status == Reason.MEASURED) & ~good, Reason.LOW_ZNCC,
                           res.status).astype(np.int8)
         self.params[idx] = res.params
+        self.std[idx] = res.std
         self.zncc[idx] = res.zncc
         self.iters[idx] = res.iterations
         self.sigma[idx] = res.sigma_factor
         self.unc[idx] = res.uncertainty
         self.reason[idx] = status
-        if retry_later:
-            # a failed start from an outside guess is no verdict: neighbours may still reach it
-            self.state[idx] = np.where(good, self.w.GOOD, self.w.TODO)
-        else:
-            self.state[idx] = np.where(good, self.w.GOOD, self.w.BAD)
+        if on_fail is None:
+            on_fail = self.w.TODO if retry_later else self.w.BAD
+        # a subset without texture is flat whatever the starting guess: no retry
+        self.state[idx] = np.where(good, self.w.GOOD,
+                                   np.where(res.status == Reason.FLAT, self.w.BAD, on_fail))
         return idx[good]
 
     def propagate(self, new_good):
         """Grow outwards from ``new_good`` until no neighbour is left to match.
 
-        On larger grids the growth first runs over the lattice of every second point (a quarter
-        of the points, with diagonal neighbours, in a quarter of the number of waves); the
-        points in between are then matched in
-        one row-ordered batch from their best matched neighbour, which keeps both cores busy
-        and the image data in cache. Points that fail there get one more try from a
-        4-neighbour before the final waves over the full grid.
+        On larger grids the growth first runs over a coarse lattice: every fourth point (every
+        second on smaller grids), with diagonal neighbours, in a quarter of the number of
+        waves. The points in between are then matched in one row-ordered batch, each from the
+        median of its matched lattice neighbours' predictions, which keeps both cores busy and
+        the image data in cache. A lattice point that fails from its far neighbour is tried
+        again in that batch; a point that fails in the batch gets one more try from a
+        4-neighbour in the final waves over the full grid.
         """
+        w = self.w
         if self.ny >= _COARSE_MIN and self.nx >= _COARSE_MIN and new_good.size:
-            self._waves(new_good, 2)
-            idx, p0 = self.w.fill_between(self.state, self.zncc, self.params, self.nx,
-                                          self.ny, self.px, self.py, self.m.second)
+            stride = 4 if min(self.ny, self.nx) >= _COARSE4_MIN else 2
+            # the lattice points start from a neighbour far away and are the starting guesses
+            # of all the others: they are matched to a tenth of the tolerance
+            self._waves(new_good, stride, on_fail=w.DEFERRED,
+                        tolerance=_COARSE_TOLERANCE * self.m.tolerance)
+            self.state[self.state == w.DEFERRED] = w.TODO
+            tried = np.zeros(0, np.int64)
+            idx, p0 = w.fill_between(self.state, self.zncc, self.params, self.nx, self.ny,
+                                     self.px, self.py, self.m.second, stride // 2)
             if idx.size:
                 self.run(idx, p0, retry_later=True)
-                tried = idx[self.state[idx] == self.w.TODO]
-                new_good = np.flatnonzero(self.state == self.w.GOOD)
-                self._waves(new_good, 1)
-                # a point that failed from two different neighbours is not tried again
-                left = tried[self.state[tried] == self.w.TODO]
-                self.state[left] = self.w.BAD
-                return
+                tried = idx[self.state[idx] == w.TODO]
+            new_good = np.flatnonzero(self.state == w.GOOD)
+            self._waves(new_good, 1)
+            # a point that failed from two different neighbours is not tried again
+            left = tried[self.state[tried] == w.TODO]
+            self.state[left] = w.BAD
+            return
         self._waves(new_good, 1)
 
-    def _waves(self, new_good, stride):
+    def _waves(self, new_good, stride, on_fail=None, tolerance=None):
         while new_good.size:
             idx, p0 = self.w.next_wave(self.state, self.zncc, self.params, self.nx, self.ny,
                                        self.px, self.py, self.m.second,
@@ -169,7 +193,7 @@ class _Propagation:
                                        8 if stride > 1 else 4)
             if idx.size == 0:
                 break
-            new_good = self.run(idx, p0)
+            new_good = self.run(idx, p0, on_fail=on_fail, tolerance=tolerance)
 
 
 def _seed_candidates(comp_idx, px, py):
@@ -189,6 +213,8 @@ def _try_seed(prop, k, ref, deformed, search, guess=None, start=None):
     guess, or an FFT search; True if it is a good seed."""
     from dic.matching._seed import fft_guess
 
+    if prop.mark_flat([k])[0]:
+        return False
     if start is not None and np.all(np.isfinite(start[k])):
         if prop.run(np.array([k], np.int64), start[k][None, :], retry_later=True).size:
             return True
@@ -288,9 +314,10 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         Subsets whose grey-level standard deviation is below this fraction of the image's
         1-99 percentile range are flat and not matched (off by default: ``max_sigma`` decides).
     max_sigma : float, optional
-        Points whose standard deviation of u or v exceeds this many px are ``FLAT``: before
-        matching, predicted from the image noise and the subset's grey-level gradients; after
-        it, from the residual of the converged match (``std_u``, ``std_v``).
+        Points whose standard deviation of u or v exceeds this many px are ``FLAT``: judged
+        from the residual of the converged match (``std_u``, ``std_v``). Before matching,
+        subsets whose standard deviation predicted from the estimated image noise and their
+        grey-level gradients exceeds three times this are skipped as hopeless.
     initial : DisplacementField, optional
         A field on the same grid (for example from the previous image of a sequence) that
         gives the seed points their starting guesses instead of the FFT search; the other
@@ -348,11 +375,18 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
                          f"{candidate.shape}; use a field from the same ROI, subset and step")
     noise = _image_noise(image_noise, ref, dfm, gx[candidate], gy[candidate], subset)
 
-    # the grey-level range of the ROI, from a sparse sample (exactness is not needed here)
-    sample = ref[::3, ::3][mask[::3, ::3]]
-    lo, hi = np.percentile(sample if sample.size > 100 else ref[mask], [1, 99])
-    min_std = min_texture * float(hi - lo)
+    min_std = 0.0
+    if min_texture > 0:
+        # the grey-level range of the ROI, from a sparse sample (exactness is not needed here)
+        sample = ref[::3, ::3][mask[::3, ::3]]
+        lo, hi = np.percentile(sample if sample.size > 100 else ref[mask], [1, 99])
+        min_std = min_texture * float(hi - lo)
     max_sigma = _check_max_sigma(max_sigma)
+    # the translation-only prediction sqrt(noise^2 / SSSIG) of dic.matching.translation_sigma
+    # above PRECHECK x max_sigma, turned into a bound on SSSIG (applied by the solver to every
+    # subset before it iterates); the residual of the match decides the rest
+    noise2 = float(np.nansum(np.square(np.asarray(noise, dtype=np.float64))))
+    min_grad2 = noise2 / (PRECHECK * max_sigma) ** 2
     auto = SHAPE_FUNCTIONS[str(shape_function).lower()] == 0
     prev_threads = None
     if workers is not None:
@@ -367,11 +401,11 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     try:
         matcher = SubsetMatcher(ref, dfm, subset=subset, second_order=second, order=order,
                                 max_iterations=max_iterations, tolerance=tolerance,
-                                min_std=min_std, reference_gradients=_prepared)
+                                min_std=min_std, min_grad2=min_grad2,
+                                reference_gradients=_prepared)
         t1 = time.perf_counter()
         prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc,
                             WEAK_SIGMA * max_sigma)
-        prop.mark_flat(min_std, max_sigma, noise)
         _solve(prop, ref, dfm, search, seed_list, initial)
         t2 = time.perf_counter()
         k_solve = matcher.kernel_time
@@ -459,7 +493,9 @@ def _image_noise(value, ref, dfm, px, py, subset):
     if c1 - c0 > big:
         c0 = (c0 + c1 - big) // 2
         c1 = c0 + big
-    return (image_noise(ref[r0:r1, c0:c1]), image_noise(dfm[r0:r1, c0:c1]))
+    # a subsample of the blocks is enough for the texture rule (a few per cent of scatter)
+    return (image_noise(ref[r0:r1, c0:c1], max_blocks=_NOISE_BLOCKS),
+            image_noise(dfm[r0:r1, c0:c1], max_blocks=_NOISE_BLOCKS))
 
 
 def _irregular_points(shape, subset, order, px, py, wanted):
@@ -510,8 +546,7 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
             if comp.size < _MIN_ISLAND and (rank > 0 or (prop.state == w.GOOD).any()):
                 # a small patch cut off from the rest cannot be checked against neighbours:
                 # a seed there is as likely to lock onto a false match as a true one
-                prop.state[comp] = w.BAD
-                prop.reason[comp] = Reason.NOT_REACHED
+                _unreached(prop, comp)
                 continue
             for k in _seed_candidates(comp, prop.px, prop.py):
                 if prop.state[k] != w.TODO:
@@ -531,12 +566,18 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
                 prop.state[k] = w.BAD  # a seed that failed is not retried as a seed
             else:
                 # no seed took hold in this part: its points stay unmeasured
-                rest = comp[prop.state[comp] == w.TODO]
-                prop.state[rest] = w.BAD
-                prop.reason[rest] = Reason.NOT_REACHED
+                _unreached(prop, comp[prop.state[comp] == w.TODO])
         if not progress and not (prop.state == w.TODO).any():
             break
     _explain_unreached(prop, ref.shape)
+
+
+def _unreached(prop, idx):
+    """Points ``idx`` that no match will be tried at: ``FLAT`` where their subset lacks
+    texture (a blank image, the inside of a flat patch), otherwise ``NOT_REACHED``."""
+    rest = idx[~prop.mark_flat(idx)]
+    prop.state[rest] = prop.w.BAD
+    prop.reason[rest] = Reason.NOT_REACHED
 
 
 def _explain_unreached(prop, shape):

@@ -177,66 +177,20 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
     .. [1] J. Westerweel, F. Scarano, "Universal outlier detection for PIV data", Experiments
        in Fluids 39 (2005) 1096-1100.
     """
+    from dic.matching._median_kernel import median_outliers
+
+    valid = np.asarray(valid, bool)
     ny, nx = valid.shape
     out = np.zeros((ny, nx), bool)
-    x = np.asarray(x, dtype=np.float64)
-    y = np.asarray(y, dtype=np.float64)
-    offs = [(dr, dc) for dr in (-1, 0, 1) for dc in (-1, 0, 1) if (dr, dc) != (0, 0)]
 
-    def padded(a):
-        return np.pad(np.asarray(a, dtype=np.float64), 1, constant_values=np.nan)
+    def f64(a):
+        return np.ascontiguousarray(a, dtype=np.float64)
 
-    def shifted(p, dr, dc):
-        return p[1 + dr:1 + dr + ny, 1 + dc:1 + dc + nx]
-
-    xp, yp = padded(x), padded(y)
-    dd = {o: (x - shifted(xp, *o), y - shifted(yp, *o)) for o in offs}
-    for i, comp in enumerate((u, v)):
-        a = np.where(valid, comp, np.nan)
-        ap = padded(a)
-        gxp = padded(np.where(valid, grad[..., i, 0], np.nan))
-        gyp = padded(np.where(valid, grad[..., i, 1], np.nan))
-        if grad2 is None:
-            hp = None
-        else:
-            h = np.nan_to_num(np.asarray(grad2, dtype=np.float64)[..., i, :])
-            hp = [padded(h[..., k]) for k in range(3)]
-        preds = []
-        for o in offs:
-            ddx, ddy = dd[o]
-            pr = shifted(ap, *o) + shifted(gxp, *o) * ddx + shifted(gyp, *o) * ddy
-            if hp is not None:
-                pr = pr + (0.5 * shifted(hp[0], *o) * ddx * ddx
-                           + shifted(hp[1], *o) * ddx * ddy
-                           + 0.5 * shifted(hp[2], *o) * ddy * ddy)
-            preds.append(pr)
-        nb = np.stack(preds)
-        count = np.isfinite(nb).sum(axis=0)
-        if ny >= 3 and nx >= 3:
-            # a point without a measured neighbour on a full grid cannot be checked: an island
-            # of one point inside unmeasured ground is as likely a false match as a true one
-            out |= valid & (count <= 1)
-        ok = valid & (count >= min_neighbours)
-        if not ok.any():
-            continue
-        sub = nb[:, ok].T
-        with np.errstate(invalid="ignore"):
-            med = _nanmedian_rows(sub)
-            rm = _nanmedian_rows(np.abs(sub - med[:, None]))
-        r0 = np.abs(a[ok] - med) / (rm + eps)
-        out[ok] |= r0 > threshold
+    comps = np.stack([np.where(valid, u, np.nan), np.where(valid, v, np.nan)])
+    g2 = np.zeros((ny, nx, 2, 3)) if grad2 is None else np.nan_to_num(f64(grad2))
+    median_outliers(f64(x), f64(y), comps, f64(grad), g2, valid, float(eps), float(threshold),
+                    int(min_neighbours), out)
     return out
-
-
-def _nanmedian_rows(a):
-    """Median of the finite entries of each row (as ``np.nanmedian(a, axis=1)``; rows here
-    have at least one finite entry): a sort puts NaN last, so the median sits at the middle of
-    the finite part. Several times faster than nanmedian on many short rows."""
-    s = np.sort(a, axis=1)
-    k = np.isfinite(a).sum(axis=1)
-    lo = np.take_along_axis(s, np.maximum(k - 1, 0)[:, None] // 2, axis=1)[:, 0]
-    hi = np.take_along_axis(s, k[:, None] // 2, axis=1)[:, 0]
-    return np.where(k > 0, 0.5 * (lo + hi), np.nan)
 
 
 def translation_sigma(gx, gy, xs, ys, half, noise):

@@ -91,6 +91,8 @@ class MatchResult:
     #: per point the u and v diagonal entries of H^-1, H^-1 M H^-1 and H^-1 M H^-1 M H^-1
     #: (6 numbers), see :func:`dic.metrology.point_sigma`; NaN where H was not inverted
     uncertainty: np.ndarray | None = None
+    #: grey-level standard deviation of each reference subset (NaN where not computed)
+    std: np.ndarray | None = None
 
 
 class SubsetMatcher:
@@ -115,13 +117,19 @@ class SubsetMatcher:
         by the subset half-width (a displacement at the subset edge, in px).
     min_std : float
         Subsets whose grey-level standard deviation is below this are flat (not matched).
+    min_grad2 : float
+        Subsets whose smaller sum of squared x or y grey-level gradients (SSSIG) is at most
+        this are flat: ``noise^2 / max_sigma^2`` turns the translation-only prediction
+        ``sqrt(noise^2 / SSSIG)`` into this rule (see :func:`dic.matching.translation_sigma`).
+        Subsets with a standard deviation at the rounding level of the image's grey values are
+        always flat.
     reference_spline : BSplineImage, optional
         Already computed coefficients of the reference image (reused along a sequence).
     """
 
     def __init__(self, reference, deformed, *, subset, second_order=False, order=3,
-                 max_iterations=50, tolerance=1e-3, min_std=0.0, reference_gradients=None,
-                 deformed_spline=None):
+                 max_iterations=50, tolerance=1e-3, min_std=0.0, min_grad2=0.0,
+                 reference_gradients=None, deformed_spline=None):
         self.reference = np.ascontiguousarray(reference, dtype=np.float64)
         self.half = int(subset) // 2
         self.second = bool(second_order)
@@ -129,6 +137,9 @@ class SubsetMatcher:
         self.max_iterations = int(max_iterations)
         self.tolerance = float(tolerance)
         self.min_std = float(min_std)
+        self.min_grad2 = float(min_grad2)
+        # a constant subset (std at rounding level of its grey values) is flat whatever noise
+        self.std_floor = 1e-6 * max(float(max(np.max(self.reference, initial=0.0), -np.min(self.reference, initial=0.0))), 1e-300)
         self.border = edge_margin(self.order)
         self.fast = True
         if reference_gradients is None:
@@ -141,8 +152,9 @@ class SubsetMatcher:
         #: seconds spent in the compiled solver (all calls of :meth:`match`)
         self.kernel_time = 0.0
 
-    def match(self, xs, ys, p0) -> MatchResult:
-        """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``."""
+    def match(self, xs, ys, p0, tolerance=None) -> MatchResult:
+        """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``
+        (to ``tolerance`` when given instead of the matcher's own)."""
         from dic.matching._icgn_kernel import match_first, match_general
 
         xs = np.ascontiguousarray(xs, dtype=np.int64)
@@ -151,7 +163,9 @@ class SubsetMatcher:
         npar = n_params(self.second)
         p0 = np.ascontiguousarray(np.broadcast_to(p0, (n, npar)), dtype=np.float64)
         out = MatchResult(np.empty((n, npar)), np.empty(n, np.int8), np.empty(n),
-                          np.empty(n, np.int16), np.empty(n), np.full((n, 6), np.nan))
+                          np.empty(n, np.int16), np.empty(n), np.full((n, 6), np.nan),
+                          np.full(n, np.nan))
+        flat = np.array([self.min_std, self.std_floor, self.min_grad2])
         import time
 
         t0 = time.perf_counter()
@@ -160,9 +174,10 @@ class SubsetMatcher:
 
             common = (self.reference, self.gx, self.gy, self.spline.coef, self.spline.pad,
                       self.order, xs, ys, p0, self.half)
-            tail = (self.max_iterations, self.tolerance, self.min_std, float(self.border),
+            tol = self.tolerance if tolerance is None else float(tolerance)
+            tail = (self.max_iterations, tol, flat, float(self.border),
                     out.params, out.status, out.zncc, out.iterations, out.sigma_factor,
-                    self.smat, out.uncertainty)
+                    self.smat, out.uncertainty, out.std)
             # only the solver a run uses gets compiled (first-order moment sums by default)
             if self.fast and not self.second:
                 run_chunks(match_first, n, *common, *tail, min_chunk=8)

@@ -25,11 +25,8 @@ DEGENERATE = 7
 
 
 @njit(cache=True, fastmath=True)
-def _eval_cubic(c, pad, x, y):
-    ix = int(np.floor(x))
-    iy = int(np.floor(y))
-    t = x - ix
-    s = y - iy
+def _cubic_at(c, pad, ix, iy, t, s):
+    """Cubic spline value at (ix + t, iy + s), ix, iy integer, t, s in [0, 1)."""
     t2 = t * t
     s2 = s * s
     omt = 1.0 - t
@@ -52,6 +49,13 @@ def _eval_cubic(c, pad, x, y):
     acc += wy3 * (wx0 * c[r + 3, q] + wx1 * c[r + 3, q + 1] + wx2 * c[r + 3, q + 2]
                   + wx3 * c[r + 3, q + 3])
     return acc
+
+
+@njit(cache=True, fastmath=True)
+def _eval_cubic(c, pad, x, y):
+    ix = int(np.floor(x))
+    iy = int(np.floor(y))
+    return _cubic_at(c, pad, ix, iy, x - ix, y - iy)
 
 
 @njit(cache=True, fastmath=True)
@@ -78,11 +82,10 @@ def _row6(c, r, q, x0, x1, x2, x3, x4, x5):
 
 
 @njit(cache=True, fastmath=True)
-def _eval_quintic(c, pad, x, y):
-    ix = int(np.floor(x))
-    iy = int(np.floor(y))
-    x0, x1, x2, x3, x4, x5 = _w5(x - ix)
-    y0, y1, y2, y3, y4, y5 = _w5(y - iy)
+def _quintic_at(c, pad, ix, iy, t, s):
+    """Quintic spline value at (ix + t, iy + s), ix, iy integer, t, s in [0, 1)."""
+    x0, x1, x2, x3, x4, x5 = _w5(t)
+    y0, y1, y2, y3, y4, y5 = _w5(s)
     # indices are non-negative by construction (padded coefficients)
     r = np.uint64(iy + pad - 2)
     q = np.uint64(ix + pad - 2)
@@ -92,6 +95,55 @@ def _eval_quintic(c, pad, x, y):
             + y3 * _row6(c, r + np.uint64(3), q, x0, x1, x2, x3, x4, x5)
             + y4 * _row6(c, r + np.uint64(4), q, x0, x1, x2, x3, x4, x5)
             + y5 * _row6(c, r + np.uint64(5), q, x0, x1, x2, x3, x4, x5)) * (1.0 / 14400.0)
+
+
+@njit(cache=True, fastmath=True)
+def _eval_quintic(c, pad, x, y):
+    ix = int(np.floor(x))
+    iy = int(np.floor(y))
+    return _quintic_at(c, pad, ix, iy, x - ix, y - iy)
+
+
+@njit(cache=True, fastmath=True)
+def _row_cells(ax, bx, cx, ay, by, cy, ns, frac, cell):
+    """First pass over one row of a warped subset: the positions ``x_i = ax + bx i + cx i^2``,
+    ``y_i = ay + by i + cy i^2`` (i = 0..ns-1), split into integer parts (``cell``, (2, ns))
+    and fractions (``frac``, (2, ns)). Returns the row's (min x, max x, min y, max y).
+
+    Rounding the whole row in a loop of its own, which the compiler turns into SIMD
+    instructions, before the spline sums of :func:`_row_values` is much faster than rounding
+    each position just before its sum."""
+    lo_x = np.inf
+    hi_x = -np.inf
+    lo_y = np.inf
+    hi_y = -np.inf
+    for i in range(ns):
+        fi = float(i)
+        xw = ax + (bx + cx * fi) * fi
+        yw = ay + (by + cy * fi) * fi
+        lo_x = min(lo_x, xw)
+        hi_x = max(hi_x, xw)
+        lo_y = min(lo_y, yw)
+        hi_y = max(hi_y, yw)
+        fx = np.floor(xw)
+        fy = np.floor(yw)
+        frac[0, i] = xw - fx
+        frac[1, i] = yw - fy
+        cell[0, i] = int(fx)
+        cell[1, i] = int(fy)
+    return lo_x, hi_x, lo_y, hi_y
+
+
+@njit(cache=True, fastmath=True)
+def _row_values(c, pad, order, ns, out, frac, cell):
+    """Second pass: the spline values at the positions of :func:`_row_cells` into ``out``
+    (the positions must lie inside the padded coefficients)."""
+    if order == 3:
+        for i in range(ns):
+            out[i] = _cubic_at(c, pad, cell[0, i], cell[1, i], frac[0, i], frac[1, i])
+    else:
+        for i in range(ns):
+            out[i] = _quintic_at(c, pad, cell[0, i], cell[1, i], frac[0, i], frac[1, i])
 
 
 @njit(cache=True, fastmath=True)
@@ -218,12 +270,13 @@ def _compose_second(p, dp):
 
 @njit(cache=True, fastmath=True)
 def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy, uyy, v, vx,
-                    vy, vxx, vxy, vyy, xmin, xmax, ymax, fn, jac, jg):
+                    vy, vxx, vxy, vyy, xmin, xmax, ymax, fn, jac, jg, gb, frac, cell):
     """Sample the warped subset; any spline order and shape function.
 
     Returns (inside, sum g, sum g^2, sum fn*g) and fills jg = sum J^T g."""
     npar = jac.shape[1]
     ns = 2 * half + 1
+    h = float(half)
     sg = 0.0
     sg2 = 0.0
     sfg = 0.0
@@ -232,16 +285,29 @@ def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy,
     n = 0
     for j in range(ns):
         dy = float(j - half)
+        # along the row, with dx = i - half: x = A + B dx + C dx^2 (and likewise y)
+        if second:
+            ax = x0 + u + uy * dy + 0.5 * uyy * dy * dy
+            bx = 1.0 + ux + uxy * dy
+            cx = 0.5 * uxx
+            ay = y0 + dy + v + vy * dy + 0.5 * vyy * dy * dy
+            by = vx + vxy * dy
+            cy = 0.5 * vxx
+        else:
+            ax = x0 + u + uy * dy
+            bx = 1.0 + ux
+            cx = 0.0
+            ay = y0 + dy + v + vy * dy
+            by = vx
+            cy = 0.0
+        lo_x, hi_x, lo_y, hi_y = _row_cells(ax - bx * h + cx * h * h, bx - 2.0 * cx * h, cx,
+                                            ay - by * h + cy * h * h, by - 2.0 * cy * h, cy,
+                                            ns, frac, cell)
+        if not (lo_x >= xmin and hi_x <= xmax and lo_y >= xmin and hi_y <= ymax):
+            return False, sg, sg2, sfg
+        _row_values(coef, pad, order, ns, gb, frac, cell)
         for i in range(ns):
-            dx = float(i - half)
-            xw = x0 + dx + u + ux * dx + uy * dy
-            yw = y0 + dy + v + vx * dx + vy * dy
-            if second:
-                xw += 0.5 * uxx * dx * dx + uxy * dx * dy + 0.5 * uyy * dy * dy
-                yw += 0.5 * vxx * dx * dx + vxy * dx * dy + 0.5 * vyy * dy * dy
-            if not (xw >= xmin and xw <= xmax and yw >= xmin and yw <= ymax):
-                return False, sg, sg2, sfg
-            g = _eval(coef, pad, order, xw, yw)
+            g = gb[i]
             sg += g
             sg2 += g * g
             sfg += fn[n] * g
@@ -331,10 +397,22 @@ def _uncertainty_terms(hinv, smat, k, unc):
 
 
 @njit(cache=True, fastmath=True)
+def _too_flat(flat, sd, sxx, syy):
+    """The texture rule before matching. ``flat = (min_std, std_floor, min_grad2)``: a
+    subset is flat when its grey-level standard deviation ``sd`` is below ``min_std`` or at most
+    ``std_floor`` (rounding level: a constant subset), or when the smaller of its sums of
+    squared x and y gradients (``sxx``, ``syy``; SSSIG, Pan et al. 2008) is at most
+    ``min_grad2``: the translation-only standard deviation ``sqrt(noise^2 / SSSIG)`` would then
+    exceed the largest allowed (see :func:`dic.matching.translation_sigma`)."""
+    return sd < flat[0] or sd <= flat[1] or min(sxx, syy) <= flat[2]
+
+
+@njit(cache=True, fastmath=True)
 def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter, tol,
-               min_std, border, fn, jac, smat, unc):
-    """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor);
-    fills ``unc`` (see :func:`_uncertainty_terms`) once the Hessian is inverted."""
+               flat, border, fn, jac, smat, unc, gb, frac, cell):
+    """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor,
+    subset standard deviation); fills ``unc`` (see :func:`_uncertainty_terms`) once the
+    Hessian is inverted. ``flat`` holds the texture thresholds of :func:`_too_flat`."""
     rows, cols = ref.shape
     npar = 12 if second else 6
     ns = 2 * half + 1
@@ -381,8 +459,14 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
                 jac[n, 5] = fy * dy
             n += 1
     df = np.sqrt(ss)
-    if df < min_std * np.sqrt(npix):
-        return FLAT, np.nan, 0, np.nan
+    sd = np.sqrt(ss / npix)
+    sxx = 0.0
+    syy = 0.0
+    for n in range(npix):
+        sxx += jac[n, 0] * jac[n, 0]
+        syy += jac[n, npar // 2] * jac[n, npar // 2]
+    if _too_flat(flat, sd, sxx, syy):
+        return FLAT, np.nan, 0, np.nan, sd
     hess = np.zeros((npar, npar))
     jsum = np.zeros(npar)
     jf = np.zeros(npar)
@@ -399,7 +483,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
     # reject near-singular Hessians (too little texture in some direction)
     hinv = np.empty((npar, npar))
     if not _spd_inverse(hess, hinv):
-        return FLAT, np.nan, 0, np.nan
+        return FLAT, np.nan, 0, np.nan, sd
     # sigma of u per unit image noise: sqrt(2 * (H^-1)_uu) is the usual first-order estimate
     sigma_factor = np.sqrt(hinv[0, 0])
     _uncertainty_terms(hinv, smat, 6 if second else 3, unc)
@@ -423,13 +507,13 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
             uxx = uxy = uyy = vxx = vxy = vyy = 0.0
         inside, sg, sg2, sfg = _sample_general(coef, pad, order, x0, y0, half, second, u, ux,
                                                uy, uxx, uxy, uyy, v, vx, vy, vxx, vxy, vyy,
-                                               xmin, xmax, ymax, fn, jac, jg)
+                                               xmin, xmax, ymax, fn, jac, jg, gb, frac, cell)
         if not inside:
-            return OUTSIDE_IMAGE, np.nan, it, sigma_factor
+            return OUTSIDE_IMAGE, np.nan, it, sigma_factor, sd
         gm = sg / npix
         dg2 = sg2 - npix * gm * gm
         if dg2 <= 0.0:
-            return FLAT, np.nan, it, sigma_factor
+            return FLAT, np.nan, it, sigma_factor, sd
         dgn = np.sqrt(dg2)
         zncc = sfg / (df * dgn)
         # b = sum J^T [(f - fm) - (df/dg)(g - gm)]
@@ -452,25 +536,25 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
                     + (half * dp[4]) ** 2 + (half * dp[5]) ** 2)
             ok = _compose_affine(p, dp)
         if not ok:
-            return DEGENERATE, np.nan, it, sigma_factor
+            return DEGENERATE, np.nan, it, sigma_factor, sd
         for a in range(npar):
             if not np.isfinite(p[a]):
-                return DEGENERATE, np.nan, it, sigma_factor
+                return DEGENERATE, np.nan, it, sigma_factor, sd
         if second:
             det = (1.0 + p[1]) * (1.0 + p[8]) - p[2] * p[7]
         else:
             det = (1.0 + p[1]) * (1.0 + p[5]) - p[2] * p[4]
         if det < 0.05:
-            return DEGENERATE, np.nan, it, sigma_factor
+            return DEGENERATE, np.nan, it, sigma_factor, sd
         if np.sqrt(norm) < tol:
             status = MEASURED
             break
-    return status, zncc, it, sigma_factor
+    return status, zncc, it, sigma_factor, sd
 
 
 @njit(cache=True, fastmath=True)
-def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, min_std,
-                  border, smat, unc):
+def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, flat,
+                  border, smat, unc, gb, frac, cell):
     """First-order IC-GN for one subset, without per-point scratch arrays.
 
     Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
@@ -555,10 +639,11 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
     fm = sf / npix
     ss = sf2 - npix * fm * fm
     if ss <= 0.0:
-        return FLAT, np.nan, 0, np.nan
+        return FLAT, np.nan, 0, np.nan, 0.0
     df = np.sqrt(ss)
-    if df < min_std * np.sqrt(npix):
-        return FLAT, np.nan, 0, np.nan
+    sd = np.sqrt(ss / npix)
+    if _too_flat(flat, sd, A1, C1):
+        return FLAT, np.nan, 0, np.nan, sd
     hess = np.empty((6, 6))
     hess[0, 0] = A1
     hess[0, 1] = Ax
@@ -586,7 +671,7 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
             hess[a, b] = hess[b, a]
     hinv = np.empty((6, 6))
     if not _spd_inverse(hess, hinv):
-        return FLAT, np.nan, 0, np.nan
+        return FLAT, np.nan, 0, np.nan, sd
     sigma_factor = np.sqrt(hinv[0, 0])
     _uncertainty_terms(hinv, smat, 3, unc)
     # J^T (f - fm) and J^T 1
@@ -620,7 +705,7 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
                 xw = x0 + cx + u + ux * cx + uy * cy
                 yw = y0 + cy + v + vx * cx + vy * cy
                 if not (xw >= xmin and xw <= xmax and yw >= xmin and yw <= ymax):
-                    return OUTSIDE_IMAGE, np.nan, it, sigma_factor
+                    return OUTSIDE_IMAGE, np.nan, it, sigma_factor, sd
         sg = 0.0
         sg2 = 0.0
         sfg = 0.0
@@ -631,15 +716,12 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
             xr = x0 + u + uy * dy - (1.0 + ux) * h
             yr = y0 + dy + v + vy * dy - vx * h
             rx0 = rx1 = ry0 = ry1 = 0.0
+            _row_cells(xr, 1.0 + ux, 0.0, yr, vx, 0.0, ns, frac, cell)
+            _row_values(coef, pad, order, ns, gb, frac, cell)
             for i in range(ns):
                 q = np.uint64(x0 - half + i)
                 dx = float(i - half)
-                xw = xr + (1.0 + ux) * i
-                yw = yr + vx * i
-                if order == 3:
-                    g = _eval_cubic(coef, pad, xw, yw)
-                else:
-                    g = _eval_quintic(coef, pad, xw, yw)
+                g = gb[i]
                 sg += g
                 sg2 += g * g
                 sfg += ref[r, q] * g
@@ -658,7 +740,7 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
         gm = sg / npix
         dg2 = sg2 - npix * gm * gm
         if dg2 <= 0.0:
-            return FLAT, np.nan, it, sigma_factor
+            return FLAT, np.nan, it, sigma_factor, sd
         dgn = np.sqrt(dg2)
         zncc = (sfg - fm * sg) / (df * dgn)
         ratio = df / dgn
@@ -678,21 +760,21 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
         norm = (dp[0] ** 2 + dp[3] ** 2 + (h * dp[1]) ** 2 + (h * dp[2]) ** 2
                 + (h * dp[4]) ** 2 + (h * dp[5]) ** 2)
         if not _compose_affine(p, dp):
-            return DEGENERATE, np.nan, it, sigma_factor
+            return DEGENERATE, np.nan, it, sigma_factor, sd
         for a in range(6):
             if not np.isfinite(p[a]):
-                return DEGENERATE, np.nan, it, sigma_factor
+                return DEGENERATE, np.nan, it, sigma_factor, sd
         if (1.0 + p[1]) * (1.0 + p[5]) - p[2] * p[4] < 0.05:
-            return DEGENERATE, np.nan, it, sigma_factor
+            return DEGENERATE, np.nan, it, sigma_factor, sd
         if np.sqrt(norm) < tol:
-            return MEASURED, zncc, it, sigma_factor
-    return NO_CONVERGENCE, zncc, it, sigma_factor
+            return MEASURED, zncc, it, sigma_factor, sd
+    return NO_CONVERGENCE, zncc, it, sigma_factor, sd
 
 
 @njit(cache=True, nogil=True, fastmath=True)
 def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max_iter, tol,
-                min_std, border, out_p, out_status, out_zncc, out_iter, out_sigma, smat,
-                out_unc):
+                flat, border, out_p, out_status, out_zncc, out_iter, out_sigma, smat,
+                out_unc, out_std):
     """Match the subsets centred on integer pixels (xs[k], ys[k]), k = lo..hi-1, first order.
 
     The moment-sum solver :func:`_match_affine`. ``out_unc[k]`` receives the uncertainty terms
@@ -700,26 +782,32 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
     subset sum of the outer products of the shape-function vectors. Kept apart from
     :func:`match_general` so that a run compiles only the solver it uses."""
     p = np.empty(6)
+    ns = 2 * half + 1
+    gb = np.empty(ns)
+    frac = np.empty((2, ns))
+    cell = np.empty((2, ns), np.int64)
     for k in range(lo, hi):
         for a in range(6):
             p[a] = p_init[k, a]
         unc = out_unc[k]
         for a in range(6):
             unc[a] = np.nan
-        st, zn, it, sf = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
-                                       half, max_iter, tol, min_std, border, smat, unc)
+        st, zn, it, sf, sd = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
+                                           half, max_iter, tol, flat, border, smat, unc,
+                                           gb, frac, cell)
         for a in range(6):
             out_p[k, a] = p[a]
         out_status[k] = st
         out_zncc[k] = zn
         out_iter[k] = it
         out_sigma[k] = sf
+        out_std[k] = sd
 
 
 @njit(cache=True, nogil=True, fastmath=True)
 def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second,
-                  max_iter, tol, min_std, border, out_p, out_status, out_zncc, out_iter,
-                  out_sigma, smat, out_unc):
+                  max_iter, tol, flat, border, out_p, out_status, out_zncc, out_iter,
+                  out_sigma, smat, out_unc, out_std):
     """As :func:`match_first` with the general solver :func:`_match_one` (second order, or
     first order through the steepest-descent images, which the tests compare with the
     moment-sum solver)."""
@@ -729,21 +817,25 @@ def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, s
     fn = np.empty(ns * ns)
     jac = np.empty((ns * ns, npar))
     p = np.empty(npar)
+    gb = np.empty(ns)
+    frac = np.empty((2, ns))
+    cell = np.empty((2, ns), np.int64)
     for k in range(lo, hi):
         for a in range(npar):
             p[a] = p_init[k, a]
         unc = out_unc[k]
         for a in range(6):
             unc[a] = np.nan
-        st, zn, it, sf = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p, half,
-                                    second, max_iter, tol, min_std, border, fn, jac,
-                                    smat, unc)
+        st, zn, it, sf, sd = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
+                                        half, second, max_iter, tol, flat, border, fn, jac,
+                                        smat, unc, gb, frac, cell)
         for a in range(npar):
             out_p[k, a] = p[a]
         out_status[k] = st
         out_zncc[k] = zn
         out_iter[k] = it
         out_sigma[k] = sf
+        out_std[k] = sd
 
 
 @njit(cache=True, nogil=True)

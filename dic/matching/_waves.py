@@ -9,6 +9,8 @@ TODO = 1
 QUEUED = 2
 GOOD = 3
 BAD = 4
+#: failed in the coarse waves (a far neighbour's guess); tried again from a nearer one
+DEFERRED = 5
 
 # neighbour offsets (rows, columns): the four along the grid, then the diagonals
 _DR = (-1, 1, 0, 0, -1, -1, 1, 1)
@@ -102,43 +104,67 @@ def next_wave(state, zncc, params, nx, ny, px, py, second, new_good, stride, nbr
 
 
 @njit(cache=True)
-def fill_between(state, zncc, params, nx, ny, px, py, second):
-    """Unmatched points with a matched point among their 8 neighbours, with starting guesses.
+def _median_of(a, k):
+    """Median of the first ``k`` entries of ``a`` (sorted in place; k >= 1)."""
+    for i in range(1, k):
+        t = a[i]
+        j = i - 1
+        while j >= 0 and a[j] > t:
+            a[j + 1] = a[j]
+            j -= 1
+        a[j + 1] = t
+    if k % 2:
+        return a[k // 2]
+    return 0.5 * (a[k // 2 - 1] + a[k // 2])
 
-    Used after propagation over a coarse lattice: the points in between are then matched in one
-    batch, in row order, each from its best-correlated matched neighbour.
+
+@njit(cache=True)
+def fill_between(state, zncc, params, nx, ny, px, py, second, reach):
+    """Unmatched points with a matched point at most ``reach`` grid places away (along rows,
+    columns or diagonals), with starting guesses.
+
+    Used after propagation over a coarse lattice (every ``2 reach``-th point): the points in
+    between are then matched in one batch, in row order. Each starts from the median,
+    parameter by parameter, of the shape functions of the matched points within ``reach``,
+    carried over to it: points on opposite sides bracket it, so the errors of their gradients
+    (and the field's curvature) largely cancel, and one false match cannot mislead it.
     """
     npar = params.shape[1]
     n = nx * ny
     buf = np.empty(n, np.int64)
-    src = np.empty(n, np.int64)
     m = 0
     for q in range(n):
         if state[q] != TODO:
             continue
         r = q // nx
         c = q - r * nx
-        best = -1
-        bz = -2.0
-        for dr in range(-1, 2):
-            for dc in range(-1, 2):
-                rr = r + dr
-                cc = c + dc
-                if rr < 0 or rr >= ny or cc < 0 or cc >= nx:
-                    continue
-                nb = rr * nx + cc
-                if state[nb] == GOOD and zncc[nb] > bz:
-                    bz = zncc[nb]
-                    best = nb
-        if best >= 0:
+        found = False
+        for rr in range(max(r - reach, 0), min(r + reach + 1, ny)):
+            for cc in range(max(c - reach, 0), min(c + reach + 1, nx)):
+                if state[rr * nx + cc] == GOOD:
+                    found = True
+        if found:
             buf[m] = q
-            src[m] = best
             m += 1
     idx = buf[:m].copy()
     p0 = np.empty((m, npar))
+    w = 2 * reach + 1
+    preds = np.empty((w * w, npar))
+    col = np.empty(w * w)
     for t in range(m):
         q = idx[t]
-        best = src[t]
-        shift_params(params[best], float(px[q] - px[best]), float(py[q] - py[best]), second,
-                     p0[t])
+        r = q // nx
+        c = q - r * nx
+        k = 0
+        for rr in range(max(r - reach, 0), min(r + reach + 1, ny)):
+            for cc in range(max(c - reach, 0), min(c + reach + 1, nx)):
+                nb = rr * nx + cc
+                if state[nb] == GOOD:
+                    shift_params(params[nb], float(px[q] - px[nb]), float(py[q] - py[nb]),
+                                 second, preds[k])
+                    k += 1
+        for a in range(npar):
+            for j in range(k):
+                col[j] = preds[j, a]
+            p0[t, a] = _median_of(col, k)
     return idx, p0
