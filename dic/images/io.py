@@ -95,7 +95,10 @@ def read_image(source, *, name="image"):
         raw = _check_array(source, name)
         where = name
     grey = _to_grey(raw)
-    _check_grey(grey, where)
+    # a 2-D array was already checked to be finite, and copying to float64 keeps it so
+    # (unless it held wider floats)
+    _check_grey(grey, where, finite_known=not isinstance(source, (str, os.PathLike))
+                and raw.ndim == 2 and raw.dtype.itemsize <= 8)
     return grey
 
 
@@ -466,14 +469,14 @@ def _to_grey(raw):
     return grey
 
 
-def _check_grey(grey, where):
+def _check_grey(grey, where, finite_known=False):
     rows, cols = grey.shape
     if rows < MIN_IMAGE_SIZE or cols < MIN_IMAGE_SIZE:
         raise ValueError(
             f"{where} is {rows} x {cols} pixels (rows x cols); images need at least "
             f"{MIN_IMAGE_SIZE} x {MIN_IMAGE_SIZE} pixels: pass the whole image, not a crop"
         )
-    n = grey.size - int(np.count_nonzero(np.isfinite(grey)))
+    n = 0 if finite_known else grey.size - int(np.count_nonzero(np.isfinite(grey)))
     if n:  # NaN/inf stored in a float file, or colour samples whose weighted sum overflowed
         raise ValueError(
             f"{where} contains {n} non-finite pixels (NaN or inf); replace them, e.g. with "
