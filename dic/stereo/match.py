@@ -21,9 +21,16 @@ import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["epipolar_guess", "match_cameras", "match_frame"]
+__all__ = ["epipolar_guess", "match_cameras", "match_frame", "right_shape_function",
+           "STEREO_SHAPE_FUNCTION"]
 
 _DEPTHS = 4000
+#: shape function of the right camera's matches when the caller leaves the choice open
+#: (``'auto'``): one order for every point and every frame (see :func:`right_shape_function`).
+#: On rendered 50 mm cylinders (subsets 21-31 px) first and second order did equally well up
+#: to 45 degrees of view angle (hoop strain within 70 microstrain); second order did worse at
+#: grazing angles.
+STEREO_SHAPE_FUNCTION = "affine"
 
 
 def _zncc(a, b):
@@ -99,6 +106,8 @@ def match_cameras(left, right, calibration, *, subset=21, step=10, roi=None, see
         Left pixel of the seed; default the centre of the ROI (or of the image).
     **options
         Passed to :func:`dic.correlate` (``shape_function``, ``min_zncc``, ...).
+        ``shape_function='auto'`` (or none given) means :data:`STEREO_SHAPE_FUNCTION` for every
+        point, kept for the deformed frames (:func:`right_shape_function`).
 
     Returns
     -------
@@ -128,6 +137,7 @@ def match_cameras(left, right, calibration, *, subset=21, step=10, roi=None, see
         raise InputError(f"no match for the seed at {seed} along its line in the right image "
                          f"(best correlation {score:.2f}); give another seed or check the "
                          "calibration")
+    options["shape_function"] = right_shape_function(None, options)
     return correlate(left, right, subset=subset, step=step, roi=roi,
                      seeds=[(seed[0], seed[1], xr - seed[0], yr - seed[1])], **options)
 
@@ -173,6 +183,35 @@ def match_frame(left_ref, left_def, right_def, stereo, *, subset=21, step=10, ro
     k = np.unravel_index(int(np.argmax(score)), score.shape)
     seed = (float(stereo.x[k]), float(stereo.y[k]), float(stereo.u[k] + left.u[k]),
             float(stereo.v[k] + left.v[k]))
+    right_opts = {**options, "shape_function": right_shape_function(stereo, options)}
     right = correlate(left_ref, right_def, subset=subset, step=step, roi=roi, seeds=[seed],
-                      **options)
+                      **right_opts)
     return left, right
+
+
+def right_shape_function(stereo, options=None):
+    """Shape function for matching the left reference grid into the right camera's images.
+
+    The right camera's matches of every frame take the shape function of the stereo
+    correspondence, so that each point's bias from the shape function (which grows with the
+    perspective change between the views) is the same in the reference and the deformed state
+    and cancels in the displacements and strain. Points matched to first order in one state and
+    second order in another (``'auto'`` deciding per point and per image) were measured to
+    read up to 5,000 microstrain off on a rendered cylinder.
+
+    Parameters
+    ----------
+    stereo : DisplacementField
+        The stereo correspondence (:func:`match_cameras`).
+    options : dict, optional
+        The caller's options, used when the correspondence does not say.
+
+    Returns
+    -------
+    str
+        ``'affine'`` or ``'quadratic'``.
+    """
+    used = (getattr(stereo, "settings", None) or {}).get("shape_function")
+    if used not in ("affine", "quadratic"):
+        used = (options or {}).get("shape_function")
+    return used if used in ("affine", "quadratic") else STEREO_SHAPE_FUNCTION
