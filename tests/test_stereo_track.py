@@ -272,3 +272,64 @@ def test_one_camera_scale_from_the_specimen_plane(tmp_path):
           f"{np.sqrt(np.mean(err ** 2)) * 1e3:.1f} µm RMS, max {err.max() * 1e3:.1f} µm")
     # the target's axes are the plate's: the slide reads (4, 3) mm everywhere
     assert np.sqrt(np.mean(err ** 2)) < 0.02
+
+
+def _stored(out):
+    st = load_stereo(out)
+    with dic.load_results(out) as r:
+        key = r.strain_keys()[0]
+        strain = [r.stored_strain(j, key) for j in range(len(r))]
+        written = r.strain_written(key)[:len(r)].copy()
+    return st, strain, written
+
+
+@pytest.mark.parametrize("where", ["match", "strain"])
+def test_stereo_stopped_mid_run_keeps_frames_and_resumes(stereo_run, tmp_path, monkeypatch,
+                                                        where):
+    # the run stops at frame 2 (a failure injected while matching its right image) or right
+    # after frame 1's 3-D data are stored, before its strain: every completed frame stays
+    # readable, and the same call again finishes a file equal to the uninterrupted run's
+    import dic.sequence.stereo as stereo_mod
+
+    m = stereo_run
+    out = tmp_path / "stopped.h5"
+    calls = {"n": 0}
+
+    class Stop(Exception):
+        pass
+
+    if where == "match":
+        real = stereo_mod._right_field
+
+        def failing(*a, **k):
+            calls["n"] += 1
+            if calls["n"] == 2:                # frame 0 needs no match; frame 2 fails
+                raise Stop("killed")
+            return real(*a, **k)
+        monkeypatch.setattr(stereo_mod, "_right_field", failing)
+    else:
+        real = stereo_mod._write_strain
+
+        def failing(out_, j, *a, **k):
+            if j == 1:
+                raise Stop("killed")
+            return real(out_, j, *a, **k)
+        monkeypatch.setattr(stereo_mod, "_write_strain", failing)
+    with pytest.raises(Stop):
+        dic.track(m["L"], out, right_images=m["R"], calibration=m["cal"], subset=25, step=10)
+    monkeypatch.undo()
+    full, full_strain, _ = _stored(m["out"])
+    part = load_stereo(out)
+    # frames 0 and 1 are whole (n_done = 2) and equal to the uninterrupted run's
+    assert part.X.shape[0] == 2
+    for name in ("X", "Y", "Z", "U", "V", "W", "reason", "right_u"):
+        np.testing.assert_array_equal(getattr(part, name), getattr(full, name)[:2])
+    dic.track(m["L"], out, right_images=m["R"], calibration=m["cal"], subset=25,
+              step=10).close()
+    again, strain, written = _stored(out)
+    assert np.all(written == 1)
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
+    for a, b in zip(strain, full_strain):
+        for c in ("xx", "yy", "xy"):
+            np.testing.assert_array_equal(a[c], b[c])
