@@ -333,3 +333,38 @@ def test_stereo_stopped_mid_run_keeps_frames_and_resumes(stereo_run, tmp_path, m
     for a, b in zip(strain, full_strain):
         for c in ("xx", "yy", "xy"):
             np.testing.assert_array_equal(a[c], b[c])
+
+
+def test_grazing_points_flagged_in_the_results_file(stereo_run, tmp_path):
+    # a 50 mm cylinder filling the images: the points either camera sees at more than 45
+    # degrees from the normal (dic.stereo.grid_points) carry Reason.OBLIQUE in /stereo, in
+    # 'dic info' and in the VTK export's reason array, like the other reasons
+    from dic.stereo.render import Cylinder
+
+    m = stereo_run
+    left, right = rig()
+    axes = np.column_stack([[0.0, 1.0, 0.0], [0.0, 0.0, -1.0], [-1.0, 0.0, 0.0]])
+    states = [Cylinder([0.0, 0.0, 350.0], axes, 50.0),
+              Cylinder([0.0, 0.0, 350.0], axes, 50.0, axial_stretch=1.02, hoop_stretch=1.01)]
+    sp = surface_speckle(100.0, blob_mm=1.0, pitch=0.2, seed=7)
+    out = tmp_path / "cyl.h5"
+    dic.track([render_surface(left, s, sp) for s in states], out,
+              right_images=[render_surface(right, s, sp) for s in states],
+              calibration=m["cal"], subset=25, step=10).close()
+    st = load_stereo(out)
+    steep = st.reason[-1] == dic.Reason.OBLIQUE
+    assert steep.sum() > 30 and np.all(np.isnan(st.W[-1][steep]))
+    # a point flagged in the reference state stays flagged in every frame (the deformed
+    # state's own view angles may flag a few more)
+    steep0 = st.reason[0] == dic.Reason.OBLIQUE
+    assert steep0.sum() > 30 and np.all(st.reason[-1][steep0] == dic.Reason.OBLIQUE)
+    assert "grazing" in dic.Reason.describe(dic.Reason.OBLIQUE)
+    assert f"seen at a grazing angle {int(steep.sum())}" in results_info(out)
+    # a wider limit flags fewer points; the limit is part of the stored settings
+    dic.track([render_surface(left, s, sp) for s in states], tmp_path / "wide.h5",
+              right_images=[render_surface(right, s, sp) for s in states],
+              calibration=m["cal"], subset=25, step=10, max_view_angle=60).close()
+    wide = load_stereo(tmp_path / "wide.h5")
+    assert wide.attrs["max_view_angle"] == 60.0
+    assert (wide.reason[-1] == dic.Reason.OBLIQUE).sum() < steep.sum()
+    assert (wide.reason[-1] == 0).sum() > (st.reason[-1] == 0).sum()
