@@ -368,3 +368,62 @@ def test_grazing_points_flagged_in_the_results_file(stereo_run, tmp_path):
     assert wide.attrs["max_view_angle"] == 60.0
     assert (wide.reason[-1] == dic.Reason.OBLIQUE).sum() < steep.sum()
     assert (wide.reason[-1] == 0).sum() > (st.reason[-1] == 0).sum()
+
+
+KILLED_RUN = """
+import sys, time
+import numpy as np
+import dic
+import dic.sequence.stereofile as sf
+real = sf.write_group_frame
+def slow(path, name, k, arrays, **kw):
+    real(path, name, k, arrays, **kw)
+    if k == 1:                      # frame 1 counted: say so, then wait to be killed
+        print("frame 1 written", flush=True)
+        time.sleep(120)
+sf.write_group_frame = slow
+d = np.load(sys.argv[1])
+n = len(d.files) // 2
+dic.track([d[f"L{i}"] for i in range(n)], sys.argv[2], right_images=[d[f"R{i}"] for i in range(n)],
+          calibration=sys.argv[3], subset=25, step=10)
+"""
+
+
+@pytest.mark.skipif(not hasattr(__import__("signal"), "SIGKILL"), reason="needs SIGKILL")
+def test_stereo_run_killed_for_real_keeps_frames_and_resumes(stereo_run, tmp_path):
+    # the process is killed (SIGKILL: no clean-up of any kind) after /stereo frame 1 is
+    # counted: frames 0 and 1 read back equal to the uninterrupted run's, and the same call
+    # finishes a file equal to it
+    import os
+    import signal
+    import subprocess
+    import sys
+
+    m = stereo_run
+    data = tmp_path / "images.npz"
+    np.savez(data, **{f"L{i}": a for i, a in enumerate(m["L"])},
+             **{f"R{i}": a for i, a in enumerate(m["R"])})
+    out = tmp_path / "killed.h5"
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    p = subprocess.Popen([sys.executable, "-c", KILLED_RUN, str(data), str(out),
+                          str(m["folder"] / "cams.toml")], stdout=subprocess.PIPE,
+                         stderr=subprocess.PIPE, text=True, env=env)
+    line = p.stdout.readline()
+    assert line.startswith("frame 1 written"), p.stderr.read()
+    p.send_signal(signal.SIGKILL)
+    p.communicate(timeout=60)
+    assert p.returncode == -signal.SIGKILL
+    full, full_strain, _ = _stored(m["out"])
+    part = load_stereo(out)
+    assert part.X.shape[0] == 2
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(part, name), getattr(full, name)[:2])
+    dic.track(m["L"], out, right_images=m["R"], calibration=m["folder"] / "cams.toml",
+              subset=25, step=10).close()
+    again, strain, written = _stored(out)
+    assert np.all(written == 1)
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
+    for a, b in zip(strain, full_strain):
+        for c in ("xx", "yy", "xy"):
+            np.testing.assert_array_equal(a[c], b[c])
