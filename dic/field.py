@@ -44,6 +44,8 @@ class Reason(enum.IntEnum):
     ONE_CAMERA = 9
     #: two cameras: the two rays pass too far apart (a false match or a calibration off)
     POOR_TRIANGULATION = 10
+    #: two cameras: a camera sees the surface there at a grazing angle (beyond the set limit)
+    OBLIQUE = 11
 
     @classmethod
     def describe(cls, code: int) -> str:
@@ -63,6 +65,7 @@ _DESCRIPTIONS = {
     Reason.INCONSISTENT: "disagrees with its neighbours (median test)",
     Reason.ONE_CAMERA: "seen by one camera only (no 3-D position)",
     Reason.POOR_TRIANGULATION: "the two cameras' rays pass too far apart",
+    Reason.OBLIQUE: "seen at too grazing an angle by a camera (no 3-D position)",
 }
 
 

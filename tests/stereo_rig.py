@@ -1,7 +1,8 @@
-"""The two-camera rig the stereo tests render with (helper module, not a test).
+"""The two-camera rigs the stereo tests render with (helper module, not a test).
 
 Two 400 x 300 px cameras with mild barrel distortion, 100 mm apart, both aimed at a point
-300 mm in front of the left camera; chessboard target of 9 x 6 inner corners, 10 mm squares.
+300 mm in front of the left camera (18.4 degrees between them; a second, wide rig: 33 degrees);
+chessboard target of 9 x 6 inner corners, 10 mm squares.
 """
 
 from __future__ import annotations
@@ -32,6 +33,28 @@ def rig():
 def target_views(n=12, seed=1):
     """Poses and rendered left and right images of the target, over the common view."""
     left, right = rig()
+    ps = target_poses(n, IC, SQ, lateral=25.0, seed=seed)
+    return (ps, [render_chessboard(left, p, IC, SQ) for p in ps],
+            [render_chessboard(right, p, IC, SQ) for p in ps])
+
+
+#: the second rig's angle between the cameras, degrees
+WIDE_ANGLE = 33.0
+
+
+def wide_rig():
+    """Left camera at the world origin; right camera turned 33 degrees toward it, aimed at the
+    point 300 mm in front of the left camera (baseline 300 tan 33 = 195 mm)."""
+    a = np.radians(WIDE_ANGLE)
+    R = rotation_matrix([0.0, a, 0.0])
+    left = Camera(KL, DL, (400, 300))
+    right = Camera(KR, DR, (400, 300), R, -R @ np.array([300.0 * np.tan(a), 0.0, 0.0]))
+    return left, right
+
+
+def wide_target_views(n=12, seed=1):
+    """Poses and rendered left and right images of the target for :func:`wide_rig`."""
+    left, right = wide_rig()
     ps = target_poses(n, IC, SQ, lateral=25.0, seed=seed)
     return (ps, [render_chessboard(left, p, IC, SQ) for p in ps],
             [render_chessboard(right, p, IC, SQ) for p in ps])

@@ -130,3 +130,18 @@ def test_calibrate_command_locates_the_specimen_plane(target_files, tmp_path, ca
                  "--plane-image", str(left[-1]), "--out", str(tmp_path / "c2.toml")])
     err = capsys.readouterr().err
     assert code == 2 and "plane image" in err and err.count("\n") == 1
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--max-view-angle", "100", "--right-images", "R", "--calibration", "c.toml"],
+     "between 0 and 90"),
+    (["--max-view-angle", "50"], "two cameras"),
+])
+def test_run_max_view_angle_bad_input(target_files, tmp_path, capsys, argv, words):
+    folder, left, _ = target_files
+    code = main(["run", str(left[0]), str(left[1]), *argv, "--out", str(tmp_path / "o")])
+    err = capsys.readouterr().err
+    # bad input: one line naming the option and the fix, exit code 2 (the project's CLI rule)
+    assert code == 2
+    assert err.startswith("dic: error:") and err.count("\n") == 1 and words in err
+    assert "--max-view-angle" in err

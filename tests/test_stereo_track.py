@@ -272,3 +272,158 @@ def test_one_camera_scale_from_the_specimen_plane(tmp_path):
           f"{np.sqrt(np.mean(err ** 2)) * 1e3:.1f} µm RMS, max {err.max() * 1e3:.1f} µm")
     # the target's axes are the plate's: the slide reads (4, 3) mm everywhere
     assert np.sqrt(np.mean(err ** 2)) < 0.02
+
+
+def _stored(out):
+    st = load_stereo(out)
+    with dic.load_results(out) as r:
+        key = r.strain_keys()[0]
+        strain = [r.stored_strain(j, key) for j in range(len(r))]
+        written = r.strain_written(key)[:len(r)].copy()
+    return st, strain, written
+
+
+@pytest.mark.parametrize("where", ["match", "strain"])
+def test_stereo_stopped_mid_run_keeps_frames_and_resumes(stereo_run, tmp_path, monkeypatch,
+                                                        where):
+    # the run stops at frame 2 (a failure injected while matching its right image) or right
+    # after frame 1's 3-D data are stored, before its strain: every completed frame stays
+    # readable, and the same call again finishes a file equal to the uninterrupted run's
+    import dic.sequence.stereo as stereo_mod
+
+    m = stereo_run
+    out = tmp_path / "stopped.h5"
+    calls = {"n": 0}
+
+    class Stop(Exception):
+        pass
+
+    if where == "match":
+        real = stereo_mod._right_field
+
+        def failing(*a, **k):
+            calls["n"] += 1
+            if calls["n"] == 2:                # frame 0 needs no match; frame 2 fails
+                raise Stop("killed")
+            return real(*a, **k)
+        monkeypatch.setattr(stereo_mod, "_right_field", failing)
+    else:
+        real = stereo_mod._write_strain
+
+        def failing(out_, j, *a, **k):
+            if j == 1:
+                raise Stop("killed")
+            return real(out_, j, *a, **k)
+        monkeypatch.setattr(stereo_mod, "_write_strain", failing)
+    with pytest.raises(Stop):
+        dic.track(m["L"], out, right_images=m["R"], calibration=m["cal"], subset=25, step=10)
+    monkeypatch.undo()
+    full, full_strain, _ = _stored(m["out"])
+    part = load_stereo(out)
+    # frames 0 and 1 are whole (n_done = 2) and equal to the uninterrupted run's
+    assert part.X.shape[0] == 2
+    for name in ("X", "Y", "Z", "U", "V", "W", "reason", "right_u"):
+        np.testing.assert_array_equal(getattr(part, name), getattr(full, name)[:2])
+    dic.track(m["L"], out, right_images=m["R"], calibration=m["cal"], subset=25,
+              step=10).close()
+    again, strain, written = _stored(out)
+    assert np.all(written == 1)
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
+    for a, b in zip(strain, full_strain):
+        for c in ("xx", "yy", "xy"):
+            np.testing.assert_array_equal(a[c], b[c])
+
+
+def test_grazing_points_flagged_in_the_results_file(stereo_run, tmp_path):
+    # a 50 mm cylinder filling the images: the points either camera sees at more than 45
+    # degrees from the normal (dic.stereo.grid_points) carry Reason.OBLIQUE in /stereo, in
+    # 'dic info' and in the VTK export's reason array, like the other reasons
+    from dic.stereo.render import Cylinder
+
+    m = stereo_run
+    left, right = rig()
+    axes = np.column_stack([[0.0, 1.0, 0.0], [0.0, 0.0, -1.0], [-1.0, 0.0, 0.0]])
+    states = [Cylinder([0.0, 0.0, 350.0], axes, 50.0),
+              Cylinder([0.0, 0.0, 350.0], axes, 50.0, axial_stretch=1.02, hoop_stretch=1.01)]
+    sp = surface_speckle(100.0, blob_mm=1.0, pitch=0.2, seed=7)
+    out = tmp_path / "cyl.h5"
+    dic.track([render_surface(left, s, sp) for s in states], out,
+              right_images=[render_surface(right, s, sp) for s in states],
+              calibration=m["cal"], subset=25, step=10).close()
+    st = load_stereo(out)
+    steep = st.reason[-1] == dic.Reason.OBLIQUE
+    assert steep.sum() > 30 and np.all(np.isnan(st.W[-1][steep]))
+    # a point flagged in the reference state stays flagged in every frame (the deformed
+    # state's own view angles may flag a few more)
+    steep0 = st.reason[0] == dic.Reason.OBLIQUE
+    assert steep0.sum() > 30 and np.all(st.reason[-1][steep0] == dic.Reason.OBLIQUE)
+    assert "grazing" in dic.Reason.describe(dic.Reason.OBLIQUE)
+    assert f"seen at a grazing angle {int(steep.sum())}" in results_info(out)
+    # a wider limit flags fewer points; the limit is part of the stored settings
+    dic.track([render_surface(left, s, sp) for s in states], tmp_path / "wide.h5",
+              right_images=[render_surface(right, s, sp) for s in states],
+              calibration=m["cal"], subset=25, step=10, max_view_angle=60).close()
+    wide = load_stereo(tmp_path / "wide.h5")
+    assert wide.attrs["max_view_angle"] == 60.0
+    assert (wide.reason[-1] == dic.Reason.OBLIQUE).sum() < steep.sum()
+    assert (wide.reason[-1] == 0).sum() > (st.reason[-1] == 0).sum()
+
+
+KILLED_RUN = """
+import sys, time
+import numpy as np
+import dic
+import dic.sequence.stereofile as sf
+real = sf.write_group_frame
+def slow(path, name, k, arrays, **kw):
+    real(path, name, k, arrays, **kw)
+    if k == 1:                      # frame 1 counted: say so, then wait to be killed
+        print("frame 1 written", flush=True)
+        time.sleep(120)
+sf.write_group_frame = slow
+d = np.load(sys.argv[1])
+n = len(d.files) // 2
+dic.track([d[f"L{i}"] for i in range(n)], sys.argv[2], right_images=[d[f"R{i}"] for i in range(n)],
+          calibration=sys.argv[3], subset=25, step=10)
+"""
+
+
+@pytest.mark.skipif(not hasattr(__import__("signal"), "SIGKILL"), reason="needs SIGKILL")
+def test_stereo_run_killed_for_real_keeps_frames_and_resumes(stereo_run, tmp_path):
+    # the process is killed (SIGKILL: no clean-up of any kind) after /stereo frame 1 is
+    # counted: frames 0 and 1 read back equal to the uninterrupted run's, and the same call
+    # finishes a file equal to it
+    import os
+    import signal
+    import subprocess
+    import sys
+
+    m = stereo_run
+    data = tmp_path / "images.npz"
+    np.savez(data, **{f"L{i}": a for i, a in enumerate(m["L"])},
+             **{f"R{i}": a for i, a in enumerate(m["R"])})
+    out = tmp_path / "killed.h5"
+    env = {**os.environ, "PYTHONPATH": os.pathsep.join(sys.path)}
+    p = subprocess.Popen([sys.executable, "-c", KILLED_RUN, str(data), str(out),
+                          str(m["folder"] / "cams.toml")], stdout=subprocess.PIPE,
+                         stderr=subprocess.PIPE, text=True, env=env)
+    line = p.stdout.readline()
+    assert line.startswith("frame 1 written"), p.stderr.read()
+    p.send_signal(signal.SIGKILL)
+    p.communicate(timeout=60)
+    assert p.returncode == -signal.SIGKILL
+    full, full_strain, _ = _stored(m["out"])
+    part = load_stereo(out)
+    assert part.X.shape[0] == 2
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(part, name), getattr(full, name)[:2])
+    dic.track(m["L"], out, right_images=m["R"], calibration=m["folder"] / "cams.toml",
+              subset=25, step=10).close()
+    again, strain, written = _stored(out)
+    assert np.all(written == 1)
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
+    for a, b in zip(strain, full_strain):
+        for c in ("xx", "yy", "xy"):
+            np.testing.assert_array_equal(a[c], b[c])

@@ -176,6 +176,10 @@ def add_camera_options(run_parser):
                         "instant (files, a folder or a glob pattern)")
     c.add_argument("--calibration", type=Path, metavar="TOML",
                    help="calibration file written by 'dic calibrate'")
+    c.add_argument("--max-view-angle", type=float, metavar="DEG",
+                   help="two cameras: points where a camera sees the surface at more than DEG "
+                        "degrees from its normal get no 3-D position (reason 'oblique'; "
+                        "default 45, 90 turns the limit off)")
 
 
 def camera_settings(args, conf) -> dict:
@@ -188,6 +192,15 @@ def camera_settings(args, conf) -> dict:
         raise ValueError("--right-images: two cameras need --calibration cameras.toml (from "
                          "'dic calibrate ... --right-images ...')")
     out = {}
+    angle = getattr(args, "max_view_angle", None)
+    if angle is not None and right is None:
+        raise ValueError("--max-view-angle: it applies to two cameras; give --right-images "
+                         "and --calibration as well, or leave it out")
+    if angle is not None:
+        if not 0 < angle <= 90:
+            raise ValueError(f"--max-view-angle: {angle:g} is not an angle between 0 and 90 "
+                             "degrees; give e.g. 45 (90 turns the limit off)")
+        out["max_view_angle"] = float(angle)
     if right is not None:
         out["right_images"] = [right] if isinstance(right, str) else list(right)
     if cal is not None:

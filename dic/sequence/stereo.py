@@ -20,8 +20,10 @@ of the ideal-pinhole deformed positions with respect to the ideal-pinhole refere
 :mod:`dic.strain` on the regular grid, over the same measured points, so that the bias of a
 plane fitted to the curved lens map cancels; chain rule).
 
-The groups are computed when tracking is done and written whole (atomically); running the same
-call again finds them complete and does nothing more.
+``/stereo`` and the surface strain are written frame by frame after the left camera's 2-D
+tracking (a stopped run keeps every completed frame and carries on from there; running the same
+call again finds everything complete and does nothing more); ``/lens`` is computed when
+tracking is done and written whole (atomically).
 
 References
 ----------
@@ -74,7 +76,7 @@ def _strain_spec(strain, default):
 
 
 def track_calibrated(track_2d, images, out, *, right_images=None, calibration=None,
-                     strain=None, max_gap_px=0.5, **options):
+                     strain=None, max_gap_px=0.5, max_view_angle=None, **options):
     """Track with a calibration: two cameras into 3-D results, or one camera lens-corrected.
 
     Parameters
@@ -96,6 +98,10 @@ def track_calibrated(track_2d, images, out, *, right_images=None, calibration=No
     max_gap_px : float, optional
         Two cameras: points whose rays pass further apart than this (left-camera pixels at the
         point's depth) get ``Reason.POOR_TRIANGULATION``.
+    max_view_angle : float, optional
+        Two cameras: points where either camera sees the surface at more than this many
+        degrees from its normal get ``Reason.OBLIQUE`` (default
+        :data:`dic.stereo.MAX_VIEW_ANGLE`, 45 degrees; see :func:`dic.stereo.grid_points`).
     **options
         Everything else of :func:`dic.track` (``subset``, ``step``, ``roi``, ...).
 
@@ -113,10 +119,17 @@ def track_calibrated(track_2d, images, out, *, right_images=None, calibration=No
         images of another count or size, or a calibration made for another image size.
     """
     from dic.stereo.calfile import as_calibration, calibration_text
+    from dic.stereo.triangulation import MAX_VIEW_ANGLE
 
     if calibration is None:
         raise InputError("calibration: two cameras need a calibration; calibrate with 'dic "
                          "calibrate' and pass the file")
+    angle = MAX_VIEW_ANGLE if max_view_angle is None else max_view_angle
+    if isinstance(angle, bool) or not isinstance(angle, (int, float, np.integer, np.floating)) \
+            or not 0 < float(angle) <= 90:
+        raise InputError(f"max_view_angle: {max_view_angle!r} is not an angle in degrees "
+                         "between 0 and 90; give e.g. 45 (90 turns the limit off)")
+    angle = float(angle)
     cal = as_calibration(calibration)
     if right_images is not None and not cal.stereo:
         raise InputError("calibration: it holds one camera, but right images were given; "
@@ -146,19 +159,28 @@ def track_calibrated(track_2d, images, out, *, right_images=None, calibration=No
         names = [] if right_items is None else [
             f"array {k}" if isinstance(it, np.ndarray) else str(it)
             for k, it in enumerate(right_items)]
+        if right_items is not None:
+            names.append(f"limits {float(max_gap_px)!r} {angle!r}")
         key = _fingerprint(text, names)
         from dic.sequence.stereofile import read_stored
 
         name = "lens" if right_items is None else "stereo"
         stored = read_stored(out, name)
         n = len(results)
-        if stored is not None and stored.get("key") == key and int(stored["n_done"]) == n:
+        if stored is not None and stored.get("key") == key and int(stored["n_done"]) == n \
+                and _strain_done(results, stored, n):
             return results
-        if right_items is None:
-            arrays, attrs, comps, window, measure = _lens(results, cal, strain)
-        else:
-            arrays, attrs, comps, window, measure = _stereo(results, cal, left_items,
-                                                            right_items, strain, max_gap_px)
+        if right_items is not None:
+            settings = dict(results.settings)
+            shape, roi = results.shape, results.roi_mask
+            grid = results.grid_x
+            results.close()
+            _stereo(out, n, settings, shape, roi, grid, cal, left_items, right_items, strain,
+                    max_gap_px, angle, {"calibration": text, "key": key}, stored)
+            from dic.sequence.reader import Results
+
+            return Results.open(out)
+        arrays, attrs, comps, window, measure = _lens(results, cal, strain)
         attrs.update(n_done=n, calibration=text, key=key)
     finally:
         results.close()
@@ -173,6 +195,16 @@ def track_calibrated(track_2d, images, out, *, right_images=None, calibration=No
     from dic.sequence.reader import Results
 
     return Results.open(out)
+
+
+def _strain_done(results, stored, n):
+    """True when the stored strain of a complete group covers every frame."""
+    key = stored.get("strain_key")
+    if key is None:
+        return True                  # /lens: strain written together with the group
+    if key not in results.strain_keys():
+        return False
+    return bool(np.all(results.strain_written(key)[:n]))
 
 
 def _lens(results, cal, strain):
@@ -224,19 +256,32 @@ def _right_field(left_ref, right_img, stereo, left, settings, roi, prepared):
     return correlate(left_ref, right_img, seeds=[seed], roi=roi, _prepared=prepared, **settings)
 
 
-def _stereo(results, cal, left_items, right_items, strain, max_gap_px):
-    """/stereo arrays and the surface strain of every completed frame."""
+def _left_field(out, j):
+    """Frame ``j`` of the left camera's 2-D results (the file is opened for this read only:
+    the 3-D frames are written into the same file between reads)."""
+    from dic.sequence.reader import Results
+
+    with Results.open(out) as r:
+        return r.field(j)
+
+
+def _stereo(out, n, s, shape, roi, grid_x, cal, left_items, right_items, strain, max_gap_px,
+            max_view_angle, ident, stored):
+    """Write ``/stereo`` and the surface strain frame by frame (resuming after the frames a
+    stopped run completed)."""
+    from dic.sequence.stereofile import (FRAME_WORDS, create_frame_group, load_stereo,
+                                         write_group_frame)
+    from dic.sequence.writer import ResultsWriter
     from dic.stereo import StereoReason, grid_points, match_cameras, surface_strain
+    from dic.stereo.match import right_shape_function
 
     window, measure = _strain_spec(strain, STEREO_STRAIN)
-    s = results.settings
     ref = int(s.get("reference", 0))
     frames = [int(k) for k in s.get("frames", range(len(left_items)))]
     opts = {k: s[k] for k in ("subset", "step", "shape_function", "interpolation", "min_zncc")
             if k in s}
     if opts.get("shape_function") not in ("affine", "quadratic", "auto"):
         opts.pop("shape_function", None)
-    roi = results.roi_mask
     left_ref = _image(left_items[ref])
     right_ref = _image(right_items[ref])
     if right_ref.shape != left_ref.shape:
@@ -244,62 +289,94 @@ def _stereo(results, cal, left_items, right_items, strain, max_gap_px):
                          f"images are {left_ref.shape[1]}x{left_ref.shape[0]}; use images of "
                          "one size")
     stereo = match_cameras(left_ref, right_ref, cal, roi=roi, **opts)
-    if stereo.u.shape != results.shape or not np.array_equal(stereo.x, results.grid_x):
+    if stereo.u.shape != tuple(shape) or not np.array_equal(stereo.x, grid_x):
         raise InputError("the stereo grid differs from the tracking grid; use the same subset, "
                          "step and roi")
-    P0, _, why0 = grid_points(cal, stereo, max_gap_px=max_gap_px)
-    n = len(results)
-    ny, nx = results.shape
-    out = {k: np.full((n, ny, nx), np.nan) for k in ("X", "Y", "Z", "U", "V", "W", "right_u",
+    # the right camera keeps the correspondence's shape function in every frame
+    right_opts = {**opts, "shape_function": right_shape_function(stereo, opts)}
+    limits = {"max_gap_px": max_gap_px, "max_view_angle": max_view_angle}
+    P0, _, why0 = grid_points(cal, stereo, **limits)
+    ny, nx = shape
+    attrs = {"strain_kind": "surface", "frame": FRAME_WORDS, "units": "mm",
+             "rms_px": float(cal.rms), "baseline_mm": float(cal.baseline),
+             "angle_deg": float(cal.angle_deg), "max_gap_px": float(max_gap_px),
+             "max_view_angle": float(max_view_angle),
+             "right_shape_function": right_opts["shape_function"],
+             "right_images": [str(getattr(it, "name", "array")) if not isinstance(it, np.ndarray)
+                              else "array" for it in right_items],
+             "strain_key": f"{measure}_w{window}", **ident}
+    start = 0
+    if stored is not None and stored.get("key") == ident["key"] and stored.get("size") == n:
+        start = int(stored["n_done"])          # carry on after the frames already written
+    else:
+        sets = {k: ((n, ny, nx), np.float64) for k in ("X", "Y", "Z", "U", "V", "W", "right_u",
                                                       "right_v")}
-    out["gap"] = np.full((n, ny, nx), np.nan, np.float32)
-    out["reason"] = np.zeros((n, ny, nx), np.int8)
-    comps = {c: np.full((n, ny, nx), np.nan) for c in ("xx", "yy", "xy")}
-    apart = {StereoReason.RAYS_APART}
+        sets.update(gap=((n, ny, nx), np.float32), reason=((n, ny, nx), np.int8))
+        create_frame_group(out, "stereo", sets, attrs)
+    strain_attrs = {"kind": "surface", "fit": "plane"}
+    if start:                                 # a stop between a frame and its strain
+        with ResultsWriter.reopen(out) as w:
+            missing = np.flatnonzero(w.strain_written(measure, window)[:start] == 0)
+        if missing.size:
+            st = load_stereo(out)
+            for j in missing:
+                P = np.stack([st.X[j], st.Y[j], st.Z[j]], -1)
+                _write_strain(out, j, surface_strain(P0, P, window=window, measure=measure),
+                              measure, window, strain_attrs)
     from dic.images import interp
     from dic.matching import INTERPOLATIONS
 
     # the left reference is prepared once, not again for every frame
     prepared = interp.reference_gradients(interp.prefilter(
         left_ref, INTERPOLATIONS[opts.get("interpolation", "quintic")]))
-    for j in range(n):
-        left = results.field(j)
+    for j in range(start, n):
+        left = _left_field(out, j)
         if frames[j] == ref and np.allclose(np.nan_to_num(left.u), 0, atol=1e-9):
             right = stereo
         else:
-            right = _right_field(left_ref, _image(right_items[frames[j]]), stereo, left, opts,
-                                 roi, prepared)
-        why_l = np.asarray(left.reason, np.int8).copy()
-        if right is None:
-            P = np.full((ny, nx, 3), np.nan)
-            gap = np.full((ny, nx), np.nan)
-            why = np.full((ny, nx), StereoReason.LEFT_ONLY, np.int8)
-        else:
-            P, gap, why = grid_points(cal, right, left, max_gap_px=max_gap_px)
+            right = _right_field(left_ref, _image(right_items[frames[j]]), stereo, left,
+                                 right_opts, roi, prepared)
+        P, gap, why_l = _frame_3d(cal, left, right, why0, (ny, nx), limits)
+        row = {"reason": why_l, "gap": gap.astype(np.float32)}
+        for c, nm in enumerate("XYZ"):
+            row[nm] = P[..., c]
+            row["UVW"[c]] = P[..., c] - P0[..., c]
+        row["right_u"] = np.full((ny, nx), np.nan) if right is None else right.u
+        row["right_v"] = np.full((ny, nx), np.nan) if right is None else right.v
+        write_group_frame(out, "stereo", j, row)
+        _write_strain(out, j, surface_strain(P0, P, window=window, measure=measure), measure,
+                      window, strain_attrs)
         m = why_l == Reason.MEASURED
-        for w in (why0, why):
-            bad = m & (w != StereoReason.MEASURED)
-            why_l[bad & np.isin(w, list(apart))] = Reason.POOR_TRIANGULATION
-            why_l[bad & ~np.isin(w, list(apart))] = Reason.ONE_CAMERA
-            m = why_l == Reason.MEASURED
-        P = np.where(m[..., None], P, np.nan)
-        out["reason"][j] = why_l
-        out["gap"][j] = gap
-        for c, name in enumerate("XYZ"):
-            out[name][j] = P[..., c]
-            out["UVW"[c]][j] = P[..., c] - P0[..., c]
-        if right is not None:
-            out["right_u"][j], out["right_v"][j] = right.u, right.v
-        E = surface_strain(P0, P, window=window, measure=measure)
-        comps["xx"][j], comps["yy"][j], comps["xy"][j] = E[..., 0, 0], E[..., 1, 1], E[..., 0, 1]
         log.info("stereo frame %d: %d of %d points in 3-D", j, int(m.sum()), m.size)
-    from dic.sequence.stereofile import FRAME_WORDS
 
-    attrs = {"strain_kind": "surface", "frame": FRAME_WORDS, "units": "mm",
-             "rms_px": float(cal.rms), "baseline_mm": float(cal.baseline),
-             "angle_deg": float(cal.angle_deg), "max_gap_px": float(max_gap_px),
-             "right_images": [str(getattr(it, "name", "array")) if not isinstance(it, np.ndarray)
-                              else "array" for it in right_items],
-             "strain_key": f"{measure}_w{window}"}
-    return out, attrs, comps, window, measure
 
+def _frame_3d(cal, left, right, why0, shape, limits):
+    """3-D positions, ray gaps and reasons of one frame (reference reasons carried over)."""
+    from dic.stereo import StereoReason, grid_points
+
+    if right is None:
+        P = np.full(shape + (3,), np.nan)
+        gap = np.full(shape, np.nan)
+        why = np.full(shape, StereoReason.LEFT_ONLY, np.int8)
+    else:
+        P, gap, why = grid_points(cal, right, left, **limits)
+    why_l = np.asarray(left.reason, np.int8).copy()
+    m = why_l == Reason.MEASURED
+    codes = {StereoReason.RAYS_APART: Reason.POOR_TRIANGULATION,
+             StereoReason.OBLIQUE: Reason.OBLIQUE}
+    for w in (why0, why):
+        bad = m & (w != StereoReason.MEASURED)
+        why_l[bad] = Reason.ONE_CAMERA
+        for code, reason in codes.items():
+            why_l[bad & (w == code)] = reason
+        m = why_l == Reason.MEASURED
+    P = np.where(m[..., None], P, np.nan)
+    return P, gap, why_l
+
+
+def _write_strain(out, j, E, measure, window, attrs):
+    from dic.sequence.writer import ResultsWriter
+
+    comps = {"xx": E[..., 0, 0], "yy": E[..., 1, 1], "xy": E[..., 0, 1]}
+    with ResultsWriter.reopen(out) as w:
+        w.write_strain(measure, window, comps, start=int(j), attrs=attrs)

@@ -11,12 +11,14 @@ are in the group ``/stereo`` (``F`` = frames, ``(ny, nx)`` = grid)::
     /stereo/right_u, right_v (F, ny, nx) float64  position in the right image minus the grid
                                               position, px
     /stereo/reason       (F, ny, nx) int8     dic.Reason per point (0 = measured in 3-D;
-                                              ONE_CAMERA, POOR_TRIANGULATION, or the left
-                                              image's own reason)
-    attributes: frame (the coordinate frame in words), units "mm", n_done (frames held),
+                                              ONE_CAMERA, POOR_TRIANGULATION, OBLIQUE, or the
+                                              left image's own reason)
+    /stereo/n_done       ()          int64    frames completed: frames 0 .. n_done-1 are whole
+    attributes: frame (the coordinate frame in words), units "mm",
                 calibration (the calibration file's text), rms_px, baseline_mm, angle_deg,
                 right_images (JSON list),
-                key (fingerprint of calibration and right images), strain_key, max_gap_px
+                key (fingerprint of calibration, right images and limits), strain_key,
+                max_gap_px, max_view_angle (degrees; "none" when not limited)
 
 The left camera's frame: origin at its optical centre, ``X`` along image columns, ``Y`` along
 image rows, ``Z`` along the optical axis toward the scene.
@@ -30,8 +32,13 @@ One camera with a calibration adds ``/lens``: displacements corrected for lens d
     /lens/U_mm, V_mm     (F, ny, nx) float64  ... and displacements on it, mm
     attributes: n_done, calibration, key
 
-Both groups are written whole, when tracking is done, on a copy of the file that then replaces
-it atomically (:func:`dic.files.atomic_write`); a file without them reads as before.
+``/stereo`` is written frame by frame like ``/frames``: the group is made once with every
+dataset allocated at full size (:func:`create_frame_group`, on a copy of the file that then
+replaces it atomically), then each frame is written in place, flushed to disk, and only then
+counted in ``/stereo/n_done`` (:func:`write_group_frame`); a run killed at any moment leaves
+frames ``0 .. n_done-1`` whole and readable, and the next run carries on from there.
+``/lens`` is written whole, when tracking is done, on a copy of the file (atomic). Older files
+whose groups count frames in an ``n_done`` attribute read as before.
 """
 
 from __future__ import annotations
@@ -43,11 +50,12 @@ from pathlib import Path
 import numpy as np
 
 from dic.field import Reason
-from dic.files import atomic_write, sparse_copy
+from dic.files import atomic_write, lock_file, sparse_copy, unlock_file
 from dic.sequence.h5file import open_h5
-from dic.sequence.layout import WRITE_KW, group_attrs
+from dic.sequence.layout import WRITE_KW, fixed_dataset, group_attrs
 
-__all__ = ["StereoData", "LensData", "write_group", "read_stored", "load_stereo", "load_lens",
+__all__ = ["StereoData", "LensData", "write_group", "create_frame_group", "write_group_frame",
+           "frames_held", "read_stored", "load_stereo", "load_lens",
            "info_lines", "FRAME_WORDS", "shape_deviation", "vtk_points", "has_stereo",
            "surface_strain_field", "corrected_strain", "lens_strain_field", "positions_at",
            "mean_scale"]
@@ -186,10 +194,94 @@ def write_group(path, name, arrays, attrs) -> None:
                 g.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) else v
 
 
+def create_frame_group(path, name, datasets, attrs) -> None:
+    """Replace group ``name`` with datasets allocated at full size and ``n_done = 0``.
+
+    Atomic (on a copy of the file that then replaces it); the frames are then written one by
+    one with :func:`write_group_frame`.
+
+    Parameters
+    ----------
+    path : str or Path
+        A results file no writer has open.
+    name : str
+    datasets : dict
+        ``{name: (shape, dtype)}``, frames along the first axis.
+    attrs : dict
+        As for :func:`write_group`.
+    """
+    p = Path(path)
+    with atomic_write(p, None) as tmp:
+        sparse_copy(p, tmp)
+        with open_h5(tmp, "r+", "update", **WRITE_KW) as h:
+            if name in h:
+                del h[name]
+            g = h.create_group(name)
+            for k, (shape, dtype) in datasets.items():
+                fixed_dataset(g, k, tuple(shape), dtype)
+            fixed_dataset(g, "n_done", (), np.int64)[()] = np.int64(0)
+            for k, v in attrs.items():
+                g.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) else v
+
+
+def write_group_frame(path, name, k, arrays, *, fsync=True) -> None:
+    """Write frame ``k`` of group ``name`` in place, then count it in ``n_done``.
+
+    The frame's numbers are flushed (and synced to disk) before ``n_done`` becomes ``k + 1``,
+    so a kill at any moment leaves frames ``0 .. n_done-1`` whole. Only raw data change: the
+    datasets were allocated by :func:`create_frame_group`.
+
+    Parameters
+    ----------
+    path : str or Path
+    name : str
+    k : int
+        Must equal the group's ``n_done`` (frames are written in order).
+    arrays : dict of ndarray
+        One frame of each dataset.
+    fsync : bool, optional
+        Sync to disk before counting the frame.
+    """
+    import os
+
+    from dic.errors import InputError
+
+    p = Path(path)
+    lock = lock_file(p, "results file")
+    try:
+        with open_h5(p, "r+", "update", **WRITE_KW) as f:
+            g = f[name]
+            done = int(g["n_done"][()])
+            if int(k) != done:
+                raise InputError(f"frame {k} of /{name} written out of order; the group "
+                                 f"holds frames 0..{done - 1}")
+            for nm, a in arrays.items():
+                g[nm][k] = a
+            f.flush()
+            if fsync:
+                os.fsync(f.id.get_vfd_handle())
+            g["n_done"][()] = np.int64(k + 1)
+            f.flush()
+    finally:
+        unlock_file(lock)
+
+
+def frames_held(g) -> int:
+    """Frames held by an open ``/stereo`` or ``/lens`` group (``n_done`` dataset, or the
+    attribute of older files)."""
+    return int(g["n_done"][()]) if "n_done" in g else int(g.attrs.get("n_done", 0))
+
+
 def read_stored(path, name):
-    """Attributes of group ``name``, or None when the file has none."""
+    """Attributes of group ``name`` with its ``n_done`` and ``size`` (frames allocated), or
+    None when the file has none."""
     with open_h5(Path(path), "r", "read", locking=False) as f:
-        return group_attrs(f[name]) if name in f else None
+        if name not in f:
+            return None
+        g = f[name]
+        first = next((g[k] for k in g if g[k].ndim == 3), None)
+        return {**group_attrs(g), "n_done": frames_held(g),
+                "size": int(first.shape[0]) if first is not None else 0}
 
 
 def _load(path, name, fields, cls):
@@ -202,7 +294,7 @@ def _load(path, name, fields, cls):
                              + ("right_images and a two-camera calibration" if name == "stereo"
                                 else "a calibration"))
         g = f[name]
-        n = int(g.attrs["n_done"])
+        n = frames_held(g)
         data = {k: (g[k][:n] if g[k].ndim == 3 else g[k][()]) for k in fields if k in g}
         return cls(**data, attrs=group_attrs(g))
 
@@ -229,7 +321,7 @@ def info_lines(f) -> list:
     lines = []
     if "stereo" in f:
         g = f["stereo"]
-        n = int(g.attrs["n_done"])
+        n = frames_held(g)
         lines.append(f"two cameras: 3-D positions X, Y, Z and displacements U, V, W in mm for "
                      f"{n} frames ({g.attrs.get('frame', '')})")
         if n:
@@ -239,14 +331,15 @@ def info_lines(f) -> list:
             lines.append(f"last frame 3-D: {int(ok.sum())} of {ok.size} points; W "
                          + (f"{np.nanmin(W):.4g}..{np.nanmax(W):.4g} mm" if ok.any() else "-")
                          + f"; seen by one camera only {int((why == Reason.ONE_CAMERA).sum())}"
-                         f", rays too far apart {int((why == Reason.POOR_TRIANGULATION).sum())}")
+                         f", rays too far apart {int((why == Reason.POOR_TRIANGULATION).sum())}"
+                         f", seen at a grazing angle {int((why == Reason.OBLIQUE).sum())}")
         a = group_attrs(g)
         lines.append(f"calibration: reprojection {a.get('rms_px', float('nan')):.3f} px RMS, "
                      f"baseline {a.get('baseline_mm', float('nan')):.2f} mm, angle "
                      f"{a.get('angle_deg', float('nan')):.2f} degrees")
     if "lens" in f:
         g = f["lens"]
-        lines.append(f"lens distortion: displacements corrected for {int(g.attrs['n_done'])} "
+        lines.append(f"lens distortion: displacements corrected for {frames_held(g)} "
                      "frames (/lens/u, /lens/v; stored strain uses them)")
     return lines
 
@@ -284,7 +377,7 @@ def surface_strain_field(res, k, *, window=None, measure=None, fit="plane"):
             raise InputError(f"res: '{res.path}' holds no /stereo results; track with "
                              "right_images and a two-camera calibration")
         g = f["stereo"]
-        n = int(g.attrs["n_done"])
+        n = frames_held(g)
         if isinstance(k, bool) or not isinstance(k, (int, np.integer)) or not -n <= k < n:
             raise InputError(f"k: frame {k!r} is not stored; use 0 to {n - 1}")
         k = int(k) % n

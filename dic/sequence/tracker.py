@@ -302,7 +302,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
           shape_function="auto", interpolation="quintic", min_zncc=0.9, search=60,
           block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
           scale=None, overwrite=False, progress=False, strain=None, right_images=None,
-          calibration=None):
+          calibration=None, max_view_angle=None):
     """Track a sequence of images and write a results file.
 
     Parameters
@@ -343,6 +343,10 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     calibration : dic.stereo.Calibration or path, optional
         From :func:`dic.calibrate` or a calibration file. With one camera, the displacements
         are corrected for lens distortion before strain.
+    max_view_angle : float, optional
+        Two cameras: points where a camera sees the surface at more than this many degrees
+        from its normal get no 3-D position (``Reason.OBLIQUE``); default 45
+        (:func:`dic.stereo.grid_points`).
 
     Returns
     -------
@@ -359,6 +363,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
 
         return track_calibrated(
             track, resolve_images(images), out, calibration=calibration, strain=strain,
+            max_view_angle=max_view_angle,
             right_images=None if right_images is None else resolve_images(right_images),
             subset=subset, step=step, roi=roi, reference=reference, frames=frames,
             shape_function=shape_function, interpolation=interpolation, min_zncc=min_zncc,

@@ -12,8 +12,11 @@ calfile
 undistort
     Measured points and displacements corrected for lens distortion.
 match
-    The left reference grid matched into the right image (epipolar starting guess) and into a
-    deformed pair.
+    The left reference grid matched into the right image (epipolar starting guess, or paired
+    keypoints for large perspective changes) and into a deformed pair.
+features
+    Keypoints paired across the two views (SIFT, epipolar check, RANSAC): a starting
+    displacement and gradient for every grid point.
 triangulation
     3-D positions in the left camera's frame, with the gap between the two rays.
 surface
@@ -42,16 +45,22 @@ _LAZY = {
     "undistort_displacements": "dic.stereo.undistort",
     "match_cameras": "dic.stereo.match",
     "match_frame": "dic.stereo.match",
+    "feature_pairs": "dic.stereo.features",
+    "feature_guess": "dic.stereo.features",
     "triangulate": "dic.stereo.triangulation",
     "grid_points": "dic.stereo.triangulation",
     "StereoReason": "dic.stereo.triangulation",
     "surface_strain": "dic.stereo.surface",
     "surface_gradient": "dic.stereo.surface",
+    "surface_normals": "dic.stereo.surface",
+    "view_angles": "dic.stereo.surface",
+    "MAX_VIEW_ANGLE": "dic.stereo.triangulation",
     "locate_plane": "dic.stereo.plane",
     "plane_points": "dic.stereo.plane",
     "plane_scale": "dic.stereo.plane",
 }
-_MODULES = ("camera", "calibration", "calfile", "undistort", "render", "match", "triangulation",
+_MODULES = ("camera", "calibration", "calfile", "undistort", "render", "match", "features",
+            "triangulation",
             "surface", "plane")
 
 __all__ = list(_LAZY)

@@ -29,7 +29,7 @@ import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["surface_gradient", "surface_strain"]
+__all__ = ["surface_gradient", "surface_strain", "surface_normals", "view_angles"]
 
 
 def _unit(v):
@@ -142,4 +142,87 @@ def surface_strain(reference, deformed, *, window=5, fit="plane", measure="green
     out = np.full(F.shape, np.nan)
     ok = np.all(np.isfinite(F), axis=(-2, -1))
     out[ok] = strain_tensor(F[ok], measure)
+    return out
+
+
+def surface_normals(points, *, window=5, min_points=None):
+    """Unit normal of a surface at every grid point, from its neighbours' 3-D positions.
+
+    Parameters
+    ----------
+    points : ndarray, shape (ny, nx, 3)
+        3-D positions (mm), left camera's frame; NaN where not measured.
+    window : int, optional
+        Odd side, in grid points, of the neighbourhood whose least-squares plane (singular
+        value decomposition) gives the normal.
+    min_points : int, optional
+        Fewest valid neighbours; default ``(window**2 + 1) // 2``.
+
+    Returns
+    -------
+    ndarray, shape (ny, nx, 3)
+        Unit normals toward the left camera (negative ``Z`` component); NaN where the point or
+        too many of its neighbours are not measured.
+    """
+    P = np.asarray(points, dtype=np.float64)
+    if P.ndim != 3 or P.shape[2] != 3:
+        raise InputError(f"points must be an (ny, nx, 3) array of positions; got {P.shape}")
+    if window < 3 or window % 2 == 0:
+        raise InputError(f"window must be an odd number of grid points >= 3; got {window}")
+    if min_points is None:
+        min_points = (window * window + 1) // 2
+    ny, nx, _ = P.shape
+    h = window // 2
+    out = np.full((ny, nx, 3), np.nan)
+    valid = np.all(np.isfinite(P), -1)
+    for i, j in zip(*np.nonzero(valid)):
+        sl = (slice(max(i - h, 0), i + h + 1), slice(max(j - h, 0), j + h + 1))
+        Q = P[sl][valid[sl]]
+        if len(Q) < max(min_points, 4):
+            continue
+        _, s, vt = np.linalg.svd(Q - Q.mean(0), full_matrices=False)
+        if s[1] <= 1e-9 * max(s[0], 1e-300):
+            continue                           # neighbours on a line: no plane
+        out[i, j] = vt[2] if vt[2, 2] < 0 else -vt[2]
+    return out
+
+
+def view_angles(calibration, points, *, window=5):
+    """Angle between the surface normal and each camera's line of sight, at every grid point.
+
+    0 degrees: the camera looks straight at the surface; toward 90 degrees it sees it edge-on
+    (grazing), so a subset covers ever more surface, squeezed in one direction, and its match
+    in that camera loses accuracy.
+
+    Parameters
+    ----------
+    calibration : Calibration
+        Two-camera calibration (the right camera's centre is ``-R^T T`` in the left frame).
+    points : ndarray, shape (ny, nx, 3)
+        Reference 3-D positions (mm), left camera's frame; NaN where not measured.
+    window : int, optional
+        Neighbourhood of the normal's plane fit (:func:`surface_normals`).
+
+    Returns
+    -------
+    ndarray, shape (ny, nx, 2)
+        Angles in degrees for the left and the right camera; NaN where the normal is unknown.
+
+    References
+    ----------
+    .. [1] M. A. Sutton, J.-J. Orteu and H. W. Schreier, Image Correlation for Shape, Motion
+       and Deformation Measurements, Springer (2009), ch. 5 (stereo systems, view angles).
+    """
+    P = np.asarray(points, dtype=np.float64)
+    n = surface_normals(P, window=window)
+    centres = [np.zeros(3)]
+    if getattr(calibration, "stereo", False):
+        centres.append(-calibration.rotation.T @ np.asarray(calibration.translation).ravel())
+    out = np.full(P.shape[:2] + (2,), np.nan)
+    for c, centre in enumerate(centres):
+        sight = centre - P
+        with np.errstate(invalid="ignore", divide="ignore"):
+            sight = sight / np.linalg.norm(sight, axis=-1, keepdims=True)
+            cosine = np.clip(np.abs(np.sum(sight * n, -1)), 0.0, 1.0)
+        out[..., c] = np.degrees(np.arccos(cosine))
     return out

@@ -20,7 +20,11 @@ import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["triangulate", "ray_gap", "grid_points", "StereoReason"]
+__all__ = ["triangulate", "ray_gap", "grid_points", "StereoReason", "MAX_VIEW_ANGLE"]
+
+#: default largest angle (degrees) between the surface normal and either camera's line of sight
+#: of a point given a 3-D position (see :func:`grid_points`)
+MAX_VIEW_ANGLE = 45.0
 
 
 def _normalised(x, y, fit):
@@ -107,16 +111,18 @@ def triangulate(calibration, xl, yl, xr, yr):
 
 class StereoReason(enum.IntEnum):
     """Why a grid point has no 3-D position (the tracking maps these onto
-    :class:`dic.field.Reason`: ``ONE_CAMERA``, ``POOR_TRIANGULATION``)."""
+    :class:`dic.field.Reason`: ``ONE_CAMERA``, ``POOR_TRIANGULATION``, ``OBLIQUE``)."""
 
     MEASURED = 0
     LEFT_ONLY = 1          # matched in the left image but not in the right one
     RIGHT_ONLY = 2         # matched in the right image but not in the left one
     NEITHER = 3            # matched in neither image
     RAYS_APART = 4         # the two rays pass further apart than max_gap_px allows
+    OBLIQUE = 5            # a camera sees the surface there at more than max_view_angle
 
 
-def grid_points(calibration, right, left=None, *, max_gap_px=0.5):
+def grid_points(calibration, right, left=None, *, max_gap_px=0.5,
+                max_view_angle=MAX_VIEW_ANGLE, window=5):
     """3-D positions of a grid of points from their matches in the two cameras.
 
     Parameters
@@ -135,6 +141,17 @@ def grid_points(calibration, right, left=None, *, max_gap_px=0.5):
         the point's depth (``gap * f / Z``) are poorly triangulated -- a false match, or a
         calibration that no longer fits -- and get no position. A true match with a good
         calibration leaves a few hundredths of a pixel.
+    max_view_angle : float or None, optional
+        Points where the surface normal (the plane of the ``window x window`` triangulated
+        neighbours, :func:`dic.stereo.surface.view_angles`) is further than this many degrees
+        from either camera's line of sight are seen at a grazing angle and get no position
+        (``OBLIQUE``): there a subset covers a strip of surface squeezed several times in one
+        camera, and its match there is no longer good to the accuracy a strain needs. The
+        default, 45 degrees, comes from rendered cylinders (tests/test_stereo_surfaces.py):
+        surface strain within 200 microstrain of the truth up to 45 degrees, errors of
+        500-5,000 microstrain beyond 50. None: no limit.
+    window : int, optional
+        Neighbourhood (odd, grid points) of the normal's plane fit.
 
     Returns
     -------
@@ -160,4 +177,11 @@ def grid_points(calibration, right, left=None, *, max_gap_px=0.5):
         apart = (reason == StereoReason.MEASURED) & ~(gap * f / pts[..., 2] <= max_gap_px)
     reason[apart] = StereoReason.RAYS_APART
     pts[reason != StereoReason.MEASURED] = np.nan
+    if max_view_angle is not None:
+        from dic.stereo.surface import view_angles
+
+        with np.errstate(invalid="ignore"):
+            steep = np.any(view_angles(calibration, pts, window=window) > max_view_angle, -1)
+        reason[steep] = StereoReason.OBLIQUE
+        pts[steep] = np.nan
     return pts, gap, reason
