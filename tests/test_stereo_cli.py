@@ -145,3 +145,15 @@ def test_run_max_view_angle_bad_input(target_files, tmp_path, capsys, argv, word
     assert code == 2
     assert err.startswith("dic: error:") and err.count("\n") == 1 and words in err
     assert "--max-view-angle" in err
+
+
+def test_analysis_file_max_view_angle(target_files, tmp_path, capsys):
+    # the [stereo] table's max_view_angle is read, checked and named in its one-line error
+    folder, left, _ = target_files
+    conf = tmp_path / "a.toml"
+    conf.write_text(f'images = ["{left[0].as_posix()}", "{left[1].as_posix()}"]\n'
+                    f'[stereo]\nmax_view_angle = 120\n')
+    code = main(["run", "--config", str(conf), "--out", str(tmp_path / "o")])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1
+    assert "[stereo] max_view_angle" in err and "two cameras" in err

@@ -193,12 +193,15 @@ def camera_settings(args, conf) -> dict:
                          "'dic calibrate ... --right-images ...')")
     out = {}
     angle = getattr(args, "max_view_angle", None)
+    name = "--max-view-angle"
+    if angle is None and table.get("max_view_angle") is not None:
+        angle, name = table["max_view_angle"], "[stereo] max_view_angle"
     if angle is not None and right is None:
-        raise ValueError("--max-view-angle: it applies to two cameras; give --right-images "
-                         "and --calibration as well, or leave it out")
+        raise ValueError(f"{name}: it applies to two cameras; give the right camera's images "
+                         "and the calibration as well, or leave it out")
     if angle is not None:
         if not 0 < angle <= 90:
-            raise ValueError(f"--max-view-angle: {angle:g} is not an angle between 0 and 90 "
+            raise ValueError(f"{name}: {angle:g} is not an angle between 0 and 90 "
                              "degrees; give e.g. 45 (90 turns the limit off)")
         out["max_view_angle"] = float(angle)
     if right is not None:

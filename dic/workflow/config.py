@@ -44,6 +44,7 @@ Example (``analysis.toml``)::
     [stereo]                        # calibrated cameras (optional)
     calibration = "cameras.toml"    # from 'dic calibrate': one camera is lens-corrected
     right_images = "right/*.tif"    # two cameras: 3-D results and surface strain
+    max_view_angle = 45             # degrees from the surface normal (default 45)
 
     [noise]                         # images of the unloaded specimen: the noise floor
     images = "static/*.tif"
@@ -93,7 +94,8 @@ SCHEMA = {
                 "n_range_percent": (list,)},
     "report": {"frames": (list,), "title": (str,), "write": (bool,), "limits": (str,)},
     "noise": {"images": (str, list)},
-    "stereo": {"right_images": (str, list), "calibration": (str,)},
+    "stereo": {"right_images": (str, list), "calibration": (str,),
+               "max_view_angle": (float, int)},
     "animation": {"write": (bool,), "component": (str,), "format": (str,),
                   "fps": (float, int)},
 }
@@ -276,7 +278,8 @@ def load_analysis(path) -> dict:
     if "report" in data:
         out["report"] = dict(data["report"])
     if "stereo" in data:   # calibrated cameras: right images and/or the calibration file
-        out["stereo"] = {k: rel(v) if isinstance(v, str) else [rel(i) for i in v]
+        out["stereo"] = {k: v if k == "max_view_angle" else
+                         rel(v) if isinstance(v, str) else [rel(i) for i in v]
                          for k, v in data["stereo"].items()}
     if "animation" in data:
         a = dict(data["animation"])
