@@ -25,24 +25,29 @@ def _horizon(z, n):
 
 
 @njit(cache=True, nogil=True)
-def _filter_rows(lo, hi, img, poles, gain, out):
-    """Recursive B-spline prefilter along axis 1 (mirror boundaries), rows lo..hi-1.
-
-    Eight rows at a time, the inner loop running across them: the recursion along a row is a
-    chain of dependent operations, and eight independent chains keep the processor busy."""
-    n = img.shape[1]
-    for r0 in range(lo, hi, 8):
-        r1 = min(hi, r0 + 8)
-        for r in range(r0, r1):
-            for i in range(n):
-                out[r, i] = img[r, i] * gain
-        if n > 1:
-            _recurse_rows(out[r0:r1], r1 - r0, 0, n, poles)
-
-
-def filter_rows(img, poles, gain, out):
-    """Recursive B-spline prefilter along axis 1 (mirror boundaries), rows in parallel."""
-    run_chunks(_filter_rows, img.shape[0], img, poles, gain, out, min_chunk=16)
+def _recurse_rows(buf, nr, off, n, poles):
+    """The recursive prefilter along axis 1 of ``buf[:nr, off:off + n]``, in place (mirror
+    boundaries; the gain already applied), the inner loop running across the rows: the
+    recursion along a row is a chain of dependent operations, and several independent chains
+    keep the processor busy."""
+    for z in poles:
+        h = _horizon(z, n)
+        k = z / (z * z - 1.0)
+        for r in range(nr):
+            s = buf[r, off]
+            zn = z
+            for i in range(1, h):
+                s += zn * buf[r, off + i]
+                zn *= z
+            buf[r, off] = s
+        for i in range(off + 1, off + n):
+            for r in range(nr):
+                buf[r, i] += z * buf[r, i - 1]
+        for r in range(nr):
+            buf[r, off + n - 1] = k * (z * buf[r, off + n - 2] + buf[r, off + n - 1])
+        for i in range(off + n - 2, off - 1, -1):
+            for r in range(nr):
+                buf[r, i] = z * (buf[r, i + 1] - buf[r, i])
 
 
 @njit(cache=True, nogil=True)
@@ -68,56 +73,19 @@ def _recurse_cols(buf, off, n, w, poles):
 
 
 @njit(cache=True, nogil=True)
-def _filter_cols(lo, hi, a, poles, gain):
-    """Recursive B-spline prefilter along axis 0, in place, column blocks lo..hi-1."""
-    n, cols = a.shape
-    for b in range(lo, hi):
-        c0 = b * _BLOCK
-        c1 = min(cols, c0 + _BLOCK)
-        for r in range(n):
-            for c in range(c0, c1):
-                a[r, c] *= gain
-        if n > 1:
-            _recurse_cols(a[:, c0:c1], 0, n, c1 - c0, poles)
-
-
-@njit(cache=True, nogil=True)
-def _recurse_rows(buf, nr, off, n, poles):
-    """The recursive prefilter along axis 1 of ``buf[:nr, off:off + n]``, in place (mirror
-    boundaries; the gain already applied), the inner loop running across the rows."""
-    for z in poles:
-        h = _horizon(z, n)
-        k = z / (z * z - 1.0)
-        for r in range(nr):
-            s = buf[r, off]
-            zn = z
-            for i in range(1, h):
-                s += zn * buf[r, off + i]
-                zn *= z
-            buf[r, off] = s
-        for i in range(off + 1, off + n):
-            for r in range(nr):
-                buf[r, i] += z * buf[r, i - 1]
-        for r in range(nr):
-            buf[r, off + n - 1] = k * (z * buf[r, off + n - 2] + buf[r, off + n - 1])
-        for i in range(off + n - 2, off - 1, -1):
-            for r in range(nr):
-                buf[r, i] = z * (buf[r, i + 1] - buf[r, i])
-
-
-@njit(cache=True, nogil=True)
-def _gradient_x(lo, hi, img, poles, gain, der, out):
-    """d/dx of the interpolating spline at the pixels of rows lo..hi-1: the prefilter along
-    each row, then the derivative filter ``der``, eight rows at a time in a small buffer."""
-    n = img.shape[1]
-    kk = der.shape[0] // 2
+def _rows_pass(lo, hi, src, c0, n, poles, gain, fir, out):
+    """Along axis 1, for rows lo..hi-1: the prefilter of ``src[r, c0:c0 + n]``, then the
+    filter ``fir`` (odd length, centred; mirror boundaries) into ``out[r, c0:c0 + n]``,
+    eight rows at a time in a small buffer. ``out`` may be ``src`` (in place)."""
+    kk = fir.shape[0] // 2
     buf = np.empty((8, n + 2 * kk))
     for r0 in range(lo, hi, 8):
         nr = min(hi, r0 + 8) - r0
         for r in range(nr):
             for i in range(n):
-                buf[r, kk + i] = img[r0 + r, i] * gain
-        _recurse_rows(buf, nr, kk, n, poles)
+                buf[r, kk + i] = src[r0 + r, c0 + i] * gain
+        if n > 1:
+            _recurse_rows(buf, nr, kk, n, poles)
         for r in range(nr):
             # whole-sample mirror beyond both ends: c[-j] = c[j], c[n - 1 + j] = c[n - 1 - j]
             for j in range(1, kk + 1):
@@ -125,48 +93,48 @@ def _gradient_x(lo, hi, img, poles, gain, der, out):
                 buf[r, kk + n - 1 + j] = buf[r, kk + n - 1 - j]
             for c in range(n):
                 acc = 0.0
-                for j in range(der.shape[0]):
-                    acc += der[j] * buf[r, c + j]
-                out[r0 + r, c] = acc
+                for j in range(fir.shape[0]):
+                    acc += fir[j] * buf[r, c + j]
+                out[r0 + r, c0 + c] = acc
 
 
 @njit(cache=True, nogil=True)
-def _gradient_y(lo, hi, img, poles, gain, der, out):
-    """d/dy of the interpolating spline at the pixels of column blocks lo..hi-1: the prefilter
-    along each column, then the derivative filter ``der``, in a buffer one block wide."""
-    n, cols = img.shape
-    kk = der.shape[0] // 2
-    buf = np.empty((n + 2 * kk, _BLOCK))
+def _cols_pass(lo, hi, src, c0, n, poles, gain, fir, out):
+    """Along axis 0, for the blocks lo..hi-1 of ``_BLOCK`` columns of ``src[:, c0:c0 + n]``:
+    the prefilter, then the filter ``fir`` into ``out`` (same columns), in a buffer one
+    block wide. ``out`` may be ``src`` (in place)."""
+    rows = src.shape[0]
+    kk = fir.shape[0] // 2
+    buf = np.empty((rows + 2 * kk, _BLOCK))
     for b in range(lo, hi):
-        c0 = b * _BLOCK
-        w = min(cols, c0 + _BLOCK) - c0
-        for r in range(n):
+        q0 = c0 + b * _BLOCK
+        w = min(c0 + n, q0 + _BLOCK) - q0
+        for r in range(rows):
             for c in range(w):
-                buf[kk + r, c] = img[r, c0 + c] * gain
-        _recurse_cols(buf, kk, n, w, poles)
+                buf[kk + r, c] = src[r, q0 + c] * gain
+        if rows > 1:
+            _recurse_cols(buf, kk, rows, w, poles)
         for j in range(1, kk + 1):
             for c in range(w):
                 buf[kk - j, c] = buf[kk + j, c]
-                buf[kk + n - 1 + j, c] = buf[kk + n - 1 - j, c]
-        for r in range(n):
+                buf[kk + rows - 1 + j, c] = buf[kk + rows - 1 - j, c]
+        for r in range(rows):
             for c in range(w):
-                out[r, c0 + c] = 0.0
-            for j in range(der.shape[0]):
-                dj = der[j]
+                out[r, q0 + c] = 0.0
+            for j in range(fir.shape[0]):
+                fj = fir[j]
                 for c in range(w):
-                    out[r, c0 + c] += dj * buf[r + j, c]
+                    out[r, q0 + c] += fj * buf[r + j, c]
 
 
-def spline_gradients(img, poles, gain, der, gx, gy):
-    """Both derivatives of the interpolating spline at every pixel (rows and column blocks in
-    parallel), with no image-sized temporary arrays."""
-    run_chunks(_gradient_x, img.shape[0], img, poles, gain, der, gx, min_chunk=16)
-    run_chunks(_gradient_y, (img.shape[1] + _BLOCK - 1) // _BLOCK, img, poles, gain, der, gy)
+def rows_pass(src, c0, n, poles, gain, fir, out):
+    """:func:`_rows_pass` over all rows, in parallel."""
+    run_chunks(_rows_pass, src.shape[0], src, c0, n, poles, gain, fir, out, min_chunk=16)
 
 
-def filter_cols(a, poles, gain):
-    """Recursive B-spline prefilter along axis 0, in place, blocks of columns in parallel."""
-    run_chunks(_filter_cols, (a.shape[1] + _BLOCK - 1) // _BLOCK, a, poles, gain)
+def cols_pass(src, c0, n, poles, gain, fir, out):
+    """:func:`_cols_pass` over all column blocks, in parallel."""
+    run_chunks(_cols_pass, (n + _BLOCK - 1) // _BLOCK, src, c0, n, poles, gain, fir, out)
 
 
 @njit(cache=True, nogil=True)

@@ -25,6 +25,8 @@ __all__ = ["BSplineImage", "prefilter", "bspline", "bspline_derivative", "refere
 
 #: supported spline degrees
 ORDERS = (3, 5)
+# the filter after the prefilter that leaves the coefficients as they are
+_IDENTITY = np.ones(1)
 
 # poles of the B-spline prefilter (Thevenaz, Blu & Unser 2000, Table I)
 _POLES = {
@@ -87,7 +89,7 @@ def prefilter(image: np.ndarray, order: int = 3) -> BSplineImage:
     .. [2] P. Thévenaz, T. Blu, M. Unser, "Interpolation revisited", IEEE Trans. Med. Imaging
        19 (2000) 739-758.
     """
-    from dic.images._interp_kernel import filter_cols, filter_rows
+    from dic.images._interp_kernel import cols_pass, rows_pass
 
     order = _check_order(order)
     img = np.ascontiguousarray(image, dtype=np.float64)
@@ -99,9 +101,11 @@ def prefilter(image: np.ndarray, order: int = 3) -> BSplineImage:
     gain = float(np.prod([(1.0 - z) * (1.0 - 1.0 / z) for z in poles]))
     rows, cols = img.shape
     coef = np.empty((rows + 2 * pad, cols + 2 * pad))
-    inner = coef[pad:pad + rows, pad:pad + cols]
-    filter_rows(img, poles, gain, inner)
-    filter_cols(inner, poles, gain)
+    body = coef[pad:pad + rows]             # rows of the image (C-contiguous), all columns
+    inner = body[:, pad:pad + cols]
+    inner[...] = img
+    rows_pass(body, pad, cols, poles, gain, _IDENTITY, body)
+    cols_pass(body, pad, cols, poles, gain, _IDENTITY, body)
     # whole-sample symmetric border (c[-k] = c[k]), matching the mirror boundary condition
     coef[:pad, pad:pad + cols] = inner[pad:0:-1]
     coef[pad + rows:, pad:pad + cols] = inner[rows - 2:rows - 2 - pad:-1]
@@ -176,7 +180,7 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     -------
     gx, gy : ndarray, shape (rows, cols)
     """
-    from dic.images._interp_kernel import spline_gradients
+    from dic.images._interp_kernel import cols_pass, rows_pass
 
     order = _check_order(order)
     img = np.ascontiguousarray(image, dtype=np.float64)
@@ -191,5 +195,6 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     gy = np.empty(img.shape)
     # along x: the coefficients of each row, mirrored beyond both ends, then d/dx (and the
     # same along y), a few lines at a time in small buffers
-    spline_gradients(img, poles, gain, der, gx, gy)
+    rows_pass(img, 0, img.shape[1], poles, gain, der, gx)
+    cols_pass(img, 0, img.shape[1], poles, gain, der, gy)
     return gx, gy

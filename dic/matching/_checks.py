@@ -186,10 +186,14 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
     def f64(a):
         return np.ascontiguousarray(a, dtype=np.float64)
 
-    comps = np.stack([np.where(valid, u, np.nan), np.where(valid, v, np.nan)])
+    g = f64(grad)
     g2 = np.zeros((ny, nx, 2, 3)) if grad2 is None else np.nan_to_num(f64(grad2))
-    median_outliers(f64(x), f64(y), comps, f64(grad), g2, valid, float(eps), float(threshold),
-                    int(min_neighbours), out)
+    x, y = f64(x), f64(y)
+    for i, comp in enumerate((u, v)):
+        a = np.ascontiguousarray(np.where(valid, comp, np.nan))
+        median_outliers(x, y, a, f64(g[..., i, 0]), f64(g[..., i, 1]), f64(g2[..., i, 0]),
+                        f64(g2[..., i, 1]), f64(g2[..., i, 2]), valid, float(eps),
+                        float(threshold), int(min_neighbours), out)
     return out
 
 

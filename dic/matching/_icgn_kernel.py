@@ -25,8 +25,11 @@ DEGENERATE = 7
 
 
 @njit(cache=True, fastmath=True)
-def _cubic_at(c, pad, ix, iy, t, s):
-    """Cubic spline value at (ix + t, iy + s), ix, iy integer, t, s in [0, 1)."""
+def _eval_cubic(c, pad, x, y):
+    ix = int(np.floor(x))
+    iy = int(np.floor(y))
+    t = x - ix
+    s = y - iy
     t2 = t * t
     s2 = s * s
     omt = 1.0 - t
@@ -49,13 +52,6 @@ def _cubic_at(c, pad, ix, iy, t, s):
     acc += wy3 * (wx0 * c[r + 3, q] + wx1 * c[r + 3, q + 1] + wx2 * c[r + 3, q + 2]
                   + wx3 * c[r + 3, q + 3])
     return acc
-
-
-@njit(cache=True, fastmath=True)
-def _eval_cubic(c, pad, x, y):
-    ix = int(np.floor(x))
-    iy = int(np.floor(y))
-    return _cubic_at(c, pad, ix, iy, x - ix, y - iy)
 
 
 @njit(cache=True, fastmath=True)
@@ -82,10 +78,11 @@ def _row6(c, r, q, x0, x1, x2, x3, x4, x5):
 
 
 @njit(cache=True, fastmath=True)
-def _quintic_at(c, pad, ix, iy, t, s):
-    """Quintic spline value at (ix + t, iy + s), ix, iy integer, t, s in [0, 1)."""
-    x0, x1, x2, x3, x4, x5 = _w5(t)
-    y0, y1, y2, y3, y4, y5 = _w5(s)
+def _eval_quintic(c, pad, x, y):
+    ix = int(np.floor(x))
+    iy = int(np.floor(y))
+    x0, x1, x2, x3, x4, x5 = _w5(x - ix)
+    y0, y1, y2, y3, y4, y5 = _w5(y - iy)
     # indices are non-negative by construction (padded coefficients)
     r = np.uint64(iy + pad - 2)
     q = np.uint64(ix + pad - 2)
@@ -95,55 +92,6 @@ def _quintic_at(c, pad, ix, iy, t, s):
             + y3 * _row6(c, r + np.uint64(3), q, x0, x1, x2, x3, x4, x5)
             + y4 * _row6(c, r + np.uint64(4), q, x0, x1, x2, x3, x4, x5)
             + y5 * _row6(c, r + np.uint64(5), q, x0, x1, x2, x3, x4, x5)) * (1.0 / 14400.0)
-
-
-@njit(cache=True, fastmath=True)
-def _eval_quintic(c, pad, x, y):
-    ix = int(np.floor(x))
-    iy = int(np.floor(y))
-    return _quintic_at(c, pad, ix, iy, x - ix, y - iy)
-
-
-@njit(cache=True, fastmath=True)
-def _row_cells(ax, bx, cx, ay, by, cy, ns, frac, cell):
-    """First pass over one row of a warped subset: the positions ``x_i = ax + bx i + cx i^2``,
-    ``y_i = ay + by i + cy i^2`` (i = 0..ns-1), split into integer parts (``cell``, (2, ns))
-    and fractions (``frac``, (2, ns)). Returns the row's (min x, max x, min y, max y).
-
-    Rounding the whole row in a loop of its own, which the compiler turns into SIMD
-    instructions, before the spline sums of :func:`_row_values` is much faster than rounding
-    each position just before its sum."""
-    lo_x = np.inf
-    hi_x = -np.inf
-    lo_y = np.inf
-    hi_y = -np.inf
-    for i in range(ns):
-        fi = float(i)
-        xw = ax + (bx + cx * fi) * fi
-        yw = ay + (by + cy * fi) * fi
-        lo_x = min(lo_x, xw)
-        hi_x = max(hi_x, xw)
-        lo_y = min(lo_y, yw)
-        hi_y = max(hi_y, yw)
-        fx = np.floor(xw)
-        fy = np.floor(yw)
-        frac[0, i] = xw - fx
-        frac[1, i] = yw - fy
-        cell[0, i] = int(fx)
-        cell[1, i] = int(fy)
-    return lo_x, hi_x, lo_y, hi_y
-
-
-@njit(cache=True, fastmath=True)
-def _row_values(c, pad, order, ns, out, frac, cell):
-    """Second pass: the spline values at the positions of :func:`_row_cells` into ``out``
-    (the positions must lie inside the padded coefficients)."""
-    if order == 3:
-        for i in range(ns):
-            out[i] = _cubic_at(c, pad, cell[0, i], cell[1, i], frac[0, i], frac[1, i])
-    else:
-        for i in range(ns):
-            out[i] = _quintic_at(c, pad, cell[0, i], cell[1, i], frac[0, i], frac[1, i])
 
 
 @njit(cache=True, fastmath=True)
@@ -270,13 +218,12 @@ def _compose_second(p, dp):
 
 @njit(cache=True, fastmath=True)
 def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy, uyy, v, vx,
-                    vy, vxx, vxy, vyy, xmin, xmax, ymax, fn, jac, jg, gb, frac, cell):
+                    vy, vxx, vxy, vyy, xmin, xmax, ymax, fn, jac, jg):
     """Sample the warped subset; any spline order and shape function.
 
     Returns (inside, sum g, sum g^2, sum fn*g) and fills jg = sum J^T g."""
     npar = jac.shape[1]
     ns = 2 * half + 1
-    h = float(half)
     sg = 0.0
     sg2 = 0.0
     sfg = 0.0
@@ -285,29 +232,16 @@ def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy,
     n = 0
     for j in range(ns):
         dy = float(j - half)
-        # along the row, with dx = i - half: x = A + B dx + C dx^2 (and likewise y)
-        if second:
-            ax = x0 + u + uy * dy + 0.5 * uyy * dy * dy
-            bx = 1.0 + ux + uxy * dy
-            cx = 0.5 * uxx
-            ay = y0 + dy + v + vy * dy + 0.5 * vyy * dy * dy
-            by = vx + vxy * dy
-            cy = 0.5 * vxx
-        else:
-            ax = x0 + u + uy * dy
-            bx = 1.0 + ux
-            cx = 0.0
-            ay = y0 + dy + v + vy * dy
-            by = vx
-            cy = 0.0
-        lo_x, hi_x, lo_y, hi_y = _row_cells(ax - bx * h + cx * h * h, bx - 2.0 * cx * h, cx,
-                                            ay - by * h + cy * h * h, by - 2.0 * cy * h, cy,
-                                            ns, frac, cell)
-        if not (lo_x >= xmin and hi_x <= xmax and lo_y >= xmin and hi_y <= ymax):
-            return False, sg, sg2, sfg
-        _row_values(coef, pad, order, ns, gb, frac, cell)
         for i in range(ns):
-            g = gb[i]
+            dx = float(i - half)
+            xw = x0 + dx + u + ux * dx + uy * dy
+            yw = y0 + dy + v + vx * dx + vy * dy
+            if second:
+                xw += 0.5 * uxx * dx * dx + uxy * dx * dy + 0.5 * uyy * dy * dy
+                yw += 0.5 * vxx * dx * dx + vxy * dx * dy + 0.5 * vyy * dy * dy
+            if not (xw >= xmin and xw <= xmax and yw >= xmin and yw <= ymax):
+                return False, sg, sg2, sfg
+            g = _eval(coef, pad, order, xw, yw)
             sg += g
             sg2 += g * g
             sfg += fn[n] * g
@@ -409,7 +343,7 @@ def _too_flat(flat, sd, sxx, syy):
 
 @njit(cache=True, fastmath=True)
 def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter, tol,
-               flat, border, fn, jac, smat, unc, gb, frac, cell):
+               flat, border, fn, jac, smat, unc):
     """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor,
     subset standard deviation); fills ``unc`` (see :func:`_uncertainty_terms`) once the
     Hessian is inverted. ``flat`` holds the texture thresholds of :func:`_too_flat`."""
@@ -507,7 +441,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
             uxx = uxy = uyy = vxx = vxy = vyy = 0.0
         inside, sg, sg2, sfg = _sample_general(coef, pad, order, x0, y0, half, second, u, ux,
                                                uy, uxx, uxy, uyy, v, vx, vy, vxx, vxy, vyy,
-                                               xmin, xmax, ymax, fn, jac, jg, gb, frac, cell)
+                                               xmin, xmax, ymax, fn, jac, jg)
         if not inside:
             return OUTSIDE_IMAGE, np.nan, it, sigma_factor, sd
         gm = sg / npix
@@ -554,7 +488,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
 
 @njit(cache=True, fastmath=True)
 def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, flat,
-                  border, smat, unc, gb, frac, cell):
+                  border, smat, unc):
     """First-order IC-GN for one subset, without per-point scratch arrays.
 
     Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
@@ -716,12 +650,15 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
             xr = x0 + u + uy * dy - (1.0 + ux) * h
             yr = y0 + dy + v + vy * dy - vx * h
             rx0 = rx1 = ry0 = ry1 = 0.0
-            _row_cells(xr, 1.0 + ux, 0.0, yr, vx, 0.0, ns, frac, cell)
-            _row_values(coef, pad, order, ns, gb, frac, cell)
             for i in range(ns):
                 q = np.uint64(x0 - half + i)
                 dx = float(i - half)
-                g = gb[i]
+                xw = xr + (1.0 + ux) * i
+                yw = yr + vx * i
+                if order == 3:
+                    g = _eval_cubic(coef, pad, xw, yw)
+                else:
+                    g = _eval_quintic(coef, pad, xw, yw)
                 sg += g
                 sg2 += g * g
                 sfg += ref[r, q] * g
@@ -782,10 +719,6 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
     subset sum of the outer products of the shape-function vectors. Kept apart from
     :func:`match_general` so that a run compiles only the solver it uses."""
     p = np.empty(6)
-    ns = 2 * half + 1
-    gb = np.empty(ns)
-    frac = np.empty((2, ns))
-    cell = np.empty((2, ns), np.int64)
     for k in range(lo, hi):
         for a in range(6):
             p[a] = p_init[k, a]
@@ -793,8 +726,7 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
         for a in range(6):
             unc[a] = np.nan
         st, zn, it, sf, sd = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
-                                           half, max_iter, tol, flat, border, smat, unc,
-                                           gb, frac, cell)
+                                           half, max_iter, tol, flat, border, smat, unc)
         for a in range(6):
             out_p[k, a] = p[a]
         out_status[k] = st
@@ -817,9 +749,6 @@ def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, s
     fn = np.empty(ns * ns)
     jac = np.empty((ns * ns, npar))
     p = np.empty(npar)
-    gb = np.empty(ns)
-    frac = np.empty((2, ns))
-    cell = np.empty((2, ns), np.int64)
     for k in range(lo, hi):
         for a in range(npar):
             p[a] = p_init[k, a]
@@ -828,7 +757,7 @@ def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, s
             unc[a] = np.nan
         st, zn, it, sf, sd = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
                                         half, second, max_iter, tol, flat, border, fn, jac,
-                                        smat, unc, gb, frac, cell)
+                                        smat, unc)
         for a in range(npar):
             out_p[k, a] = p[a]
         out_status[k] = st

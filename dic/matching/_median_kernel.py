@@ -6,28 +6,14 @@ from numba import njit
 
 
 @njit(cache=True)
-def _median(a, k):
-    """Median of the first ``k`` entries of ``a`` (sorted in place; k >= 1)."""
-    for i in range(1, k):
-        t = a[i]
-        j = i - 1
-        while j >= 0 and a[j] > t:
-            a[j + 1] = a[j]
-            j -= 1
-        a[j + 1] = t
-    if k % 2:
-        return a[k // 2]
-    return 0.5 * (a[k // 2 - 1] + a[k // 2])
+def median_outliers(x, y, a, ax, ay, axx, axy, ayy, valid, eps, threshold, min_neighbours,
+                    out):
+    """Set ``out`` True at the points that fail the test for one displacement component.
 
-
-@njit(cache=True)
-def median_outliers(x, y, comps, grad, grad2, valid, eps, threshold, min_neighbours, out):
-    """Set ``out`` True at the points that fail the test in either component.
-
-    ``comps`` (2, ny, nx): u and v; ``grad`` (ny, nx, 2, 2); ``grad2`` (ny, nx, 2, 3), zero
-    where absent. Each measured neighbour predicts the point's value from its own shape
-    function; a point with at most one such neighbour (on grids of at least 3 x 3 points) is
-    an outlier, one with fewer than ``min_neighbours`` is not tested."""
+    ``a`` is the component, ``ax, ay`` its first and ``axx, axy, ayy`` its second derivatives
+    (zero where absent), all (ny, nx). Each measured neighbour predicts the point's value
+    from its own shape function; a point with at most one such neighbour (on grids of at least
+    3 x 3 points) is an outlier, one with fewer than ``min_neighbours`` is not tested."""
     ny, nx = valid.shape
     full = ny >= 3 and nx >= 3
     pred = np.empty(8)
@@ -36,33 +22,39 @@ def median_outliers(x, y, comps, grad, grad2, valid, eps, threshold, min_neighbo
         for c in range(nx):
             if not valid[r, c]:
                 continue
-            for i in range(2):
-                k = 0
-                for dr in range(-1, 2):
-                    for dc in range(-1, 2):
-                        rr = r + dr
-                        cc = c + dc
-                        if (dr == 0 and dc == 0) or rr < 0 or rr >= ny or cc < 0 or cc >= nx:
-                            continue
-                        if not valid[rr, cc]:
-                            continue
-                        ddx = x[r, c] - x[rr, cc]
-                        ddy = y[r, c] - y[rr, cc]
-                        p = (comps[i, rr, cc] + grad[rr, cc, i, 0] * ddx
-                             + grad[rr, cc, i, 1] * ddy
-                             + 0.5 * grad2[rr, cc, i, 0] * ddx * ddx
-                             + grad2[rr, cc, i, 1] * ddx * ddy
-                             + 0.5 * grad2[rr, cc, i, 2] * ddy * ddy)
-                        if np.isfinite(p):
-                            pred[k] = p
-                            k += 1
-                if full and k <= 1:
-                    out[r, c] = True
-                if k < min_neighbours or k == 0:
-                    continue
-                med = _median(pred, k)
-                for t in range(k):
-                    res[t] = abs(pred[t] - med)
-                rm = _median(res, k)
-                if abs(comps[i, r, c] - med) / (rm + eps) > threshold:
-                    out[r, c] = True
+            k = 0
+            for rr in range(max(r - 1, 0), min(r + 2, ny)):
+                for cc in range(max(c - 1, 0), min(c + 2, nx)):
+                    if (rr == r and cc == c) or not valid[rr, cc]:
+                        continue
+                    dx = x[r, c] - x[rr, cc]
+                    dy = y[r, c] - y[rr, cc]
+                    p = (a[rr, cc] + ax[rr, cc] * dx + ay[rr, cc] * dy
+                         + 0.5 * axx[rr, cc] * dx * dx + axy[rr, cc] * dx * dy
+                         + 0.5 * ayy[rr, cc] * dy * dy)
+                    if p == p and abs(p) < np.inf:
+                        pred[k] = p
+                        k += 1
+            if full and k <= 1:
+                out[r, c] = True
+            if k < min_neighbours or k == 0:
+                continue
+            # medians by insertion sort (at most 8 values)
+            for i in range(1, k):
+                t = pred[i]
+                j = i - 1
+                while j >= 0 and pred[j] > t:
+                    pred[j + 1] = pred[j]
+                    j -= 1
+                pred[j + 1] = t
+            med = pred[k // 2] if k % 2 else 0.5 * (pred[k // 2 - 1] + pred[k // 2])
+            for i in range(k):
+                t = abs(pred[i] - med)
+                j = i - 1
+                while j >= 0 and res[j] > t:
+                    res[j + 1] = res[j]
+                    j -= 1
+                res[j + 1] = t
+            rm = res[k // 2] if k % 2 else 0.5 * (res[k // 2 - 1] + res[k // 2])
+            if abs(a[r, c] - med) / (rm + eps) > threshold:
+                out[r, c] = True

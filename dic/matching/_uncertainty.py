@@ -32,7 +32,7 @@ def gradient_noise_gain(order: int = 5) -> float:
     n = 65
     delta = np.zeros((n, n))
     delta[n // 2, n // 2] = 1.0
-    gx, _ = interp.reference_gradients(interp.prefilter(delta, int(order)))
+    gx, _ = interp.image_gradients(delta, int(order))
     return float(np.sum(gx[n // 2] ** 2))
 
 
@@ -189,7 +189,7 @@ def predicted_sigma(image, subset, noise, *, points=None, step=None, shape_funct
     else:
         xs, ys = (np.asarray(a, dtype=np.int64).ravel() for a in points)
     if _gradients is None:
-        _gradients = interp.reference_gradients(interp.prefilter(img, order))
+        _gradients = interp.image_gradients(img, order)
     terms = _hessian_terms(_gradients[0], _gradients[1], xs, ys, half, second)
     su, sv = point_sigma(terms, noise, noise, order)
     return su, sv, xs, ys

@@ -432,7 +432,7 @@ def pattern_quality(image, *, subset: int = 21, noise=None, second_image=None, r
     size, size_xy = speckle_size(img[box], mask[box], sigma)
     from dic.images import interp
 
-    gxs, gys = interp.reference_gradients(interp.prefilter(img, order))
+    gxs, gys = interp.image_gradients(img, order)
     msq = float(np.mean((gxs ** 2 + gys ** 2)[mask]) / 2.0)
     # the noise's own share of the squared gradient is removed before comparing
     msq_pattern = msq - gradient_noise_gain(order) * sigma ** 2

@@ -184,7 +184,7 @@ class FrameMatcher:
         from dic.matching import INTERPOLATIONS
 
         order = INTERPOLATIONS[self.settings.interpolation]
-        self._grads = interp.reference_gradients(interp.prefilter(self.reference, order))
+        self._grads = interp.image_gradients(self.reference, order)
 
     def match(self, image, initial: DisplacementField | None) -> tuple:
         """Match one image. Returns ``(field_in_original_configuration, raw_field)``.

@@ -272,7 +272,7 @@ def _stereo(out, n, s, shape, roi, grid_x, cal, left_items, right_items, strain,
     from dic.sequence.stereofile import (FRAME_WORDS, create_frame_group, load_stereo,
                                          write_group_frame)
     from dic.sequence.writer import ResultsWriter
-    from dic.stereo import StereoReason, grid_points, match_cameras, surface_strain
+    from dic.stereo import grid_points, match_cameras, surface_strain
     from dic.stereo.match import right_shape_function
 
     window, measure = _strain_spec(strain, STEREO_STRAIN)
@@ -327,8 +327,8 @@ def _stereo(out, n, s, shape, roi, grid_x, cal, left_items, right_items, strain,
     from dic.matching import INTERPOLATIONS
 
     # the left reference is prepared once, not again for every frame
-    prepared = interp.reference_gradients(interp.prefilter(
-        left_ref, INTERPOLATIONS[opts.get("interpolation", "quintic")]))
+    prepared = interp.image_gradients(left_ref,
+                                      INTERPOLATIONS[opts.get("interpolation", "quintic")])
     for j in range(start, n):
         left = _left_field(out, j)
         if frames[j] == ref and np.allclose(np.nan_to_num(left.u), 0, atol=1e-9):
