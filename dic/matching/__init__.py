@@ -57,7 +57,7 @@ _COARSE_MIN = 12
 # ... and over every fourth point first when at least this many across
 _COARSE4_MIN = 32
 # ... to this fraction of the tolerance
-_COARSE_TOLERANCE = 0.1
+_COARSE_TOLERANCE = 0.3
 # blocks of the noise estimate behind the texture rule (dic.matching.image_noise)
 _NOISE_BLOCKS = 4000
 
@@ -167,7 +167,7 @@ class _Propagation:
         if self.ny >= _COARSE_MIN and self.nx >= _COARSE_MIN and new_good.size:
             stride = 4 if min(self.ny, self.nx) >= _COARSE4_MIN else 2
             # the lattice points start from a neighbour far away and are the starting guesses
-            # of all the others: they are matched to a tenth of the tolerance
+            # of all the others: they are matched to a third of the tolerance
             self._waves(new_good, stride, on_fail=w.DEFERRED,
                         tolerance=_COARSE_TOLERANCE * self.m.tolerance)
             self.state[self.state == w.DEFERRED] = w.TODO
