@@ -42,6 +42,8 @@ PRECHECK = 3.0
 #: normalised median test (Westerweel & Scarano 2005): noise level (px) and threshold
 MEDIAN_EPS = 0.1
 MEDIAN_THRESHOLD = 2.0
+#: ... applied at most this many times, each without the outliers of the one before
+MEDIAN_PASSES = 3
 #: seconds spent in the stages of the last call of correlate() in this process (for the
 #: benchmark): prefilter, seeds (FFT search), iterations (compiled solver), propagation
 #: (bookkeeping between solver calls), checks (shape order, sigma, neighbours)
@@ -54,8 +56,9 @@ _SEED_TRIES = 7
 _MIN_ISLAND = 10
 # grids at least this many points across propagate over a coarse lattice first
 _COARSE_MIN = 12
-# ... and over every fourth point first when at least this many across
+# ... over every fourth point first when at least this many across, every eighth from this many
 _COARSE4_MIN = 32
+_COARSE8_MIN = 64
 # ... to this fraction of the tolerance
 _COARSE_TOLERANCE = 0.3
 # blocks of the noise estimate behind the texture rule (dic.matching.image_noise)
@@ -165,18 +168,25 @@ class _Propagation:
         """
         w = self.w
         if self.ny >= _COARSE_MIN and self.nx >= _COARSE_MIN and new_good.size:
-            stride = 4 if min(self.ny, self.nx) >= _COARSE4_MIN else 2
+            across = min(self.ny, self.nx)
+            stride = 8 if across >= _COARSE8_MIN else 4 if across >= _COARSE4_MIN else 2
+            r0, c0 = divmod(int(new_good[0]), self.nx)
             # the lattice points start from a neighbour far away and are the starting guesses
             # of all the others: they are matched to a third of the tolerance
-            self._waves(new_good, stride, on_fail=w.DEFERRED,
-                        tolerance=_COARSE_TOLERANCE * self.m.tolerance)
+            tol = _COARSE_TOLERANCE * self.m.tolerance
+            self._waves(new_good, stride, on_fail=w.DEFERRED, tolerance=tol)
             self.state[self.state == w.DEFERRED] = w.TODO
             tried = np.zeros(0, np.int64)
-            idx, p0 = w.fill_between(self.state, self.zncc, self.params, self.nx, self.ny,
-                                     self.px, self.py, self.m.second, stride // 2)
-            if idx.size:
-                self.run(idx, p0, retry_later=True)
-                tried = idx[self.state[idx] == w.TODO]
+            # the points of the lattice of half the spacing, then all the others, each from
+            # the matched points around it, in one batch per step
+            for lattice, reach, t in ((4, 4, tol), (1, 2, None)) if stride == 8 else \
+                    ((1, stride // 2, None),):
+                idx, p0 = w.fill_between(self.state, self.zncc, self.params, self.nx,
+                                         self.ny, self.px, self.py, self.m.second, reach,
+                                         lattice, r0, c0)
+                if idx.size:
+                    self.run(idx, p0, retry_later=True, tolerance=t)
+                    tried = idx[self.state[idx] == w.TODO]
             new_good = np.flatnonzero(self.state == w.GOOD)
             self._waves(new_good, 1)
             # a point that failed from two different neighbours is not tried again
@@ -695,13 +705,18 @@ def _finish(prop, shape_order, noise, order, max_sigma):
     if second:
         g2 = np.stack([prop.params[:, iu + 3:iu + 6], prop.params[:, iv + 3:iv + 6]],
                       axis=1).reshape(shape + (2, 3))
-    out = median_test(prop.px.reshape(shape), prop.py.reshape(shape),
-                      prop.params[:, iu].reshape(shape), prop.params[:, iv].reshape(shape), g,
-                      good.reshape(shape), grad2=g2, eps=MEDIAN_EPS,
-                      threshold=MEDIAN_THRESHOLD).ravel()
-    prop.state[out] = prop.w.BAD
-    prop.reason[out] = Reason.INCONSISTENT
-    good = prop.state == prop.w.GOOD
+    # again without the outliers found, which may have hidden others next to them (a pair of
+    # false matches with one good neighbour is not tested the first time)
+    for _ in range(MEDIAN_PASSES):
+        out = median_test(prop.px.reshape(shape), prop.py.reshape(shape),
+                          prop.params[:, iu].reshape(shape), prop.params[:, iv].reshape(shape),
+                          g, good.reshape(shape), grad2=g2, eps=MEDIAN_EPS,
+                          threshold=MEDIAN_THRESHOLD).ravel()
+        prop.state[out] = prop.w.BAD
+        prop.reason[out] = Reason.INCONSISTENT
+        good = prop.state == prop.w.GOOD
+        if not out.any():
+            break
     return np.where(good, su, np.nan), np.where(good, sv, np.nan)
 
 

@@ -119,9 +119,10 @@ def _median_of(a, k):
 
 
 @njit(cache=True)
-def fill_between(state, zncc, params, nx, ny, px, py, second, reach):
+def fill_between(state, zncc, params, nx, ny, px, py, second, reach, stride, r0, c0):
     """Unmatched points with a matched point at most ``reach`` grid places away (along rows,
-    columns or diagonals), with starting guesses.
+    columns or diagonals), with starting guesses; only points on the lattice of every
+    ``stride``-th row and column through ``(r0, c0)`` (all points for ``stride`` 1).
 
     Used after propagation over a coarse lattice (every ``2 reach``-th point): the points in
     between are then matched in one batch, in row order. Each starts from the median,
@@ -138,6 +139,8 @@ def fill_between(state, zncc, params, nx, ny, px, py, second, reach):
             continue
         r = q // nx
         c = q - r * nx
+        if (r - r0) % stride != 0 or (c - c0) % stride != 0:
+            continue
         found = False
         for rr in range(max(r - reach, 0), min(r + reach + 1, ny)):
             for cc in range(max(c - reach, 0), min(c + reach + 1, nx)):
