@@ -30,9 +30,10 @@ def rig():
     return left, right
 
 
-def target_views(n=12, seed=1):
-    """Poses and rendered left and right images of the target, over the common view."""
-    left, right = rig()
+def target_views(n=12, seed=1, cameras=None):
+    """Poses and rendered left and right images of the target, over the common view of
+    ``cameras`` (left, right; default :func:`rig`)."""
+    left, right = rig() if cameras is None else cameras
     ps = target_poses(n, IC, SQ, lateral=25.0, seed=seed)
     return (ps, [render_chessboard(left, p, IC, SQ) for p in ps],
             [render_chessboard(right, p, IC, SQ) for p in ps])
@@ -54,7 +55,12 @@ def wide_rig():
 
 def wide_target_views(n=12, seed=1):
     """Poses and rendered left and right images of the target for :func:`wide_rig`."""
-    left, right = wide_rig()
-    ps = target_poses(n, IC, SQ, lateral=25.0, seed=seed)
-    return (ps, [render_chessboard(left, p, IC, SQ) for p in ps],
-            [render_chessboard(right, p, IC, SQ) for p in ps])
+    return target_views(n, seed, wide_rig())
+
+
+def kabsch(P, Q):
+    """P moved by the best rigid motion onto Q (least squares; Kabsch 1976, from memory)."""
+    cp, cq = P.mean(0), Q.mean(0)
+    U, _, Vt = np.linalg.svd((P - cp).T @ (Q - cq))
+    D = np.diag([1.0, 1.0, np.sign(np.linalg.det(Vt.T @ U.T))])
+    return (P - cp) @ (Vt.T @ D @ U.T).T + cq

@@ -26,7 +26,7 @@ from dic.stereo import (StereoReason, calibrate, grid_points, match_cameras,  # 
 from dic.stereo.calibration import Calibration, CameraFit  # noqa: E402
 from dic.stereo.camera import rotation_matrix  # noqa: E402
 from dic.stereo.render import Cylinder, Plate, render_surface, surface_speckle  # noqa: E402
-from stereo_rig import IC, SQ, rig, target_views  # noqa: E402
+from stereo_rig import IC, SQ, kabsch, rig, target_views  # noqa: E402
 
 SUBSET, STEP = 25, 10
 F_PLATE = np.array([[1.02, 0.0], [0.0, 0.994]])
@@ -34,14 +34,6 @@ R0 = rotation_matrix([0.05, -0.15, 0.0])            # plate turned a little towa
 R1 = rotation_matrix([0.0, 0.01, 0.0]) @ R0         # ... and tilted 0.57 degrees more
 REF = Plate([0.0, 0.0, 300.0], R0)
 DEF = Plate([0.3, -0.2, 298.0], R1, F_PLATE)         # 2 mm toward the cameras
-
-
-def kabsch(P, Q):
-    """P moved by the best rigid motion onto Q (least squares; Kabsch 1976, from memory)."""
-    cp, cq = P.mean(0), Q.mean(0)
-    U, _, Vt = np.linalg.svd((P - cp).T @ (Q - cq))
-    D = np.diag([1.0, 1.0, np.sign(np.linalg.det(Vt.T @ U.T))])
-    return (P - cp) @ (Vt.T @ D @ U.T).T + cq
 
 
 def true_strain():

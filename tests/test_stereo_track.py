@@ -274,6 +274,17 @@ def test_one_camera_scale_from_the_specimen_plane(tmp_path):
     assert np.sqrt(np.mean(err ** 2)) < 0.02
 
 
+def _assert_equal_to_full(out, full, full_strain):
+    """The resumed file's 3-D data and surface strain equal the uninterrupted run's."""
+    again, strain, written = _stored(out)
+    assert np.all(written == 1)
+    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
+        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
+    for a, b in zip(strain, full_strain):
+        for c in ("xx", "yy", "xy"):
+            np.testing.assert_array_equal(a[c], b[c])
+
+
 def _stored(out):
     st = load_stereo(out)
     with dic.load_results(out) as r:
@@ -326,13 +337,7 @@ def test_stereo_stopped_mid_run_keeps_frames_and_resumes(stereo_run, tmp_path, m
         np.testing.assert_array_equal(getattr(part, name), getattr(full, name)[:2])
     dic.track(m["L"], out, right_images=m["R"], calibration=m["cal"], subset=25,
               step=10).close()
-    again, strain, written = _stored(out)
-    assert np.all(written == 1)
-    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
-        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
-    for a, b in zip(strain, full_strain):
-        for c in ("xx", "yy", "xy"):
-            np.testing.assert_array_equal(a[c], b[c])
+    _assert_equal_to_full(out, full, full_strain)
 
 
 def test_grazing_points_flagged_in_the_results_file(stereo_run, tmp_path):
@@ -420,10 +425,4 @@ def test_stereo_run_killed_for_real_keeps_frames_and_resumes(stereo_run, tmp_pat
         np.testing.assert_array_equal(getattr(part, name), getattr(full, name)[:2])
     dic.track(m["L"], out, right_images=m["R"], calibration=m["folder"] / "cams.toml",
               subset=25, step=10).close()
-    again, strain, written = _stored(out)
-    assert np.all(written == 1)
-    for name in ("X", "Y", "Z", "U", "V", "W", "gap", "reason", "right_u", "right_v"):
-        np.testing.assert_array_equal(getattr(again, name), getattr(full, name))
-    for a, b in zip(strain, full_strain):
-        for c in ("xx", "yy", "xy"):
-            np.testing.assert_array_equal(a[c], b[c])
+    _assert_equal_to_full(out, full, full_strain)

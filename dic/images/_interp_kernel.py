@@ -73,8 +73,8 @@ def _recurse_cols(buf, off, n, w, poles):
 
 
 @njit(cache=True, nogil=True)
-def _rows_pass(lo, hi, src, c0, n, poles, gain, fir, out):
-    """Along axis 1, for rows lo..hi-1: the prefilter of ``src[r, c0:c0 + n]``, then the
+def _rows_pass(lo, hi, src, s0, n, poles, gain, fir, out, c0):
+    """Along axis 1, for rows lo..hi-1: the prefilter of ``src[r, s0:s0 + n]``, then the
     filter ``fir`` (odd length, centred; mirror boundaries) into ``out[r, c0:c0 + n]``,
     eight rows at a time in a small buffer. ``out`` may be ``src`` (in place)."""
     kk = fir.shape[0] // 2
@@ -83,7 +83,7 @@ def _rows_pass(lo, hi, src, c0, n, poles, gain, fir, out):
         nr = min(hi, r0 + 8) - r0
         for r in range(nr):
             for i in range(n):
-                buf[r, kk + i] = src[r0 + r, c0 + i] * gain
+                buf[r, kk + i] = src[r0 + r, s0 + i] * gain
         if n > 1:
             _recurse_rows(buf, nr, kk, n, poles)
         for r in range(nr):
@@ -127,9 +127,9 @@ def _cols_pass(lo, hi, src, c0, n, poles, gain, fir, out):
                     out[r, q0 + c] += fj * buf[r + j, c]
 
 
-def rows_pass(src, c0, n, poles, gain, fir, out):
+def rows_pass(src, s0, n, poles, gain, fir, out, c0):
     """:func:`_rows_pass` over all rows, in parallel."""
-    run_chunks(_rows_pass, src.shape[0], src, c0, n, poles, gain, fir, out, min_chunk=16)
+    run_chunks(_rows_pass, src.shape[0], src, s0, n, poles, gain, fir, out, c0, min_chunk=16)
 
 
 def cols_pass(src, c0, n, poles, gain, fir, out):

@@ -103,8 +103,7 @@ def prefilter(image: np.ndarray, order: int = 3) -> BSplineImage:
     coef = np.empty((rows + 2 * pad, cols + 2 * pad))
     body = coef[pad:pad + rows]             # rows of the image (C-contiguous), all columns
     inner = body[:, pad:pad + cols]
-    inner[...] = img
-    rows_pass(body, pad, cols, poles, gain, _IDENTITY, body)
+    rows_pass(img, 0, cols, poles, gain, _IDENTITY, body, pad)
     cols_pass(body, pad, cols, poles, gain, _IDENTITY, body)
     # whole-sample symmetric border (c[-k] = c[k]), matching the mirror boundary condition
     coef[:pad, pad:pad + cols] = inner[pad:0:-1]
@@ -195,6 +194,6 @@ def image_gradients(image: np.ndarray, order: int = 3) -> tuple[np.ndarray, np.n
     gy = np.empty(img.shape)
     # along x: the coefficients of each row, mirrored beyond both ends, then d/dx (and the
     # same along y), a few lines at a time in small buffers
-    rows_pass(img, 0, img.shape[1], poles, gain, der, gx)
+    rows_pass(img, 0, img.shape[1], poles, gain, der, gx, 0)
     cols_pass(img, 0, img.shape[1], poles, gain, der, gy)
     return gx, gy

@@ -12,8 +12,9 @@ _NET8 = ((0, 2), (1, 3), (4, 6), (5, 7), (0, 4), (1, 5), (2, 6), (3, 7), (0, 1),
 
 
 @njit(cache=True)
-def _median(a, k):
-    """Median of the first ``k`` (1..8) entries of ``a``, which it reorders."""
+def median_of(a, k):
+    """Median of the first ``k`` (at least 1) entries of ``a``, which it reorders: a sorting
+    network for 8 values, an insertion sort otherwise."""
     if k == 8:
         for i, j in _NET8:
             lo = min(a[i], a[j])
@@ -64,9 +65,9 @@ def median_outliers(x, y, a, ax, ay, axx, axy, ayy, valid, eps, threshold, min_n
                 out[r, c] = True
             if k < min_neighbours or k == 0:
                 continue
-            med = _median(pred, k)
+            med = median_of(pred, k)
             for i in range(k):
                 res[i] = abs(pred[i] - med)
-            rm = _median(res, k)
+            rm = median_of(res, k)
             if abs(a[r, c] - med) / (rm + eps) > threshold:
                 out[r, c] = True

@@ -3,6 +3,8 @@
 import numpy as np
 from numba import njit
 
+from dic.matching._median_kernel import median_of
+
 # per-point state during propagation
 NOT_CANDIDATE = 0
 TODO = 1
@@ -104,21 +106,6 @@ def next_wave(state, zncc, params, nx, ny, px, py, second, new_good, stride, nbr
 
 
 @njit(cache=True)
-def _median_of(a, k):
-    """Median of the first ``k`` entries of ``a`` (sorted in place; k >= 1)."""
-    for i in range(1, k):
-        t = a[i]
-        j = i - 1
-        while j >= 0 and a[j] > t:
-            a[j + 1] = a[j]
-            j -= 1
-        a[j + 1] = t
-    if k % 2:
-        return a[k // 2]
-    return 0.5 * (a[k // 2 - 1] + a[k // 2])
-
-
-@njit(cache=True)
 def fill_between(state, zncc, params, nx, ny, px, py, second, reach, stride, r0, c0):
     """Unmatched points with a matched point at most ``reach`` grid places away (along rows,
     columns or diagonals), with starting guesses; only points on the lattice of every
@@ -169,5 +156,5 @@ def fill_between(state, zncc, params, nx, ny, px, py, second, reach, stride, r0,
         for a in range(npar):
             for j in range(k):
                 col[j] = preds[j, a]
-            p0[t, a] = _median_of(col, k)
+            p0[t, a] = median_of(col, k)
     return idx, p0

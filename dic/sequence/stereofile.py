@@ -44,6 +44,7 @@ whose groups count frames in an ``n_done`` attribute read as before.
 from __future__ import annotations
 
 import json
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -181,17 +182,10 @@ def write_group(path, name, arrays, attrs) -> None:
     attrs : dict
         Values: numbers, strings, or lists/dicts (stored as JSON text).
     """
-    p = Path(path)
-    with atomic_write(p, None) as tmp:
-        sparse_copy(p, tmp)
-        with open_h5(tmp, "r+", "update", **WRITE_KW) as h:
-            if name in h:
-                del h[name]
-            g = h.create_group(name)
-            for k, a in arrays.items():
-                g.create_dataset(k, data=a)
-            for k, v in attrs.items():
-                g.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) else v
+    with _new_group(path, name) as g:
+        for k, a in arrays.items():
+            g.create_dataset(k, data=a)
+        _set_attrs(g, attrs)
 
 
 def create_frame_group(path, name, datasets, attrs) -> None:
@@ -210,18 +204,30 @@ def create_frame_group(path, name, datasets, attrs) -> None:
     attrs : dict
         As for :func:`write_group`.
     """
+    with _new_group(path, name) as g:
+        for k, (shape, dtype) in datasets.items():
+            fixed_dataset(g, k, tuple(shape), dtype)
+        fixed_dataset(g, "n_done", (), np.int64)[()] = np.int64(0)
+        _set_attrs(g, attrs)
+
+
+@contextmanager
+def _new_group(path, name):
+    """Group ``name`` of the results file at ``path``, emptied (created anew), for writing;
+    atomic: the changes are made on a copy of the file that then replaces it."""
     p = Path(path)
     with atomic_write(p, None) as tmp:
         sparse_copy(p, tmp)
         with open_h5(tmp, "r+", "update", **WRITE_KW) as h:
             if name in h:
                 del h[name]
-            g = h.create_group(name)
-            for k, (shape, dtype) in datasets.items():
-                fixed_dataset(g, k, tuple(shape), dtype)
-            fixed_dataset(g, "n_done", (), np.int64)[()] = np.int64(0)
-            for k, v in attrs.items():
-                g.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) else v
+            yield h.create_group(name)
+
+
+def _set_attrs(group, attrs):
+    """Numbers and strings as they are, lists and dicts as JSON text."""
+    for k, v in attrs.items():
+        group.attrs[k] = json.dumps(v) if isinstance(v, (list, dict)) else v
 
 
 def write_group_frame(path, name, k, arrays, *, fsync=True) -> None:

@@ -68,10 +68,7 @@ def surface_gradient(reference, deformed, *, window=5, fit="plane", min_points=N
                          f"got {X.shape} and {x.shape}")
     if fit not in ("quadratic", "plane"):
         raise InputError(f"fit must be 'quadratic' or 'plane'; got {fit!r}")
-    if window < 3 or window % 2 == 0:
-        raise InputError(f"window must be an odd number of grid points >= 3; got {window}")
-    if min_points is None:
-        min_points = (window * window + 1) // 2
+    min_points = _window_points(window, min_points)
     ny, nx, _ = X.shape
     h = window // 2
     F = np.full((ny, nx, 2, 2), np.nan)
@@ -167,10 +164,7 @@ def surface_normals(points, *, window=5, min_points=None):
     P = np.asarray(points, dtype=np.float64)
     if P.ndim != 3 or P.shape[2] != 3:
         raise InputError(f"points must be an (ny, nx, 3) array of positions; got {P.shape}")
-    if window < 3 or window % 2 == 0:
-        raise InputError(f"window must be an odd number of grid points >= 3; got {window}")
-    if min_points is None:
-        min_points = (window * window + 1) // 2
+    min_points = _window_points(window, min_points)
     ny, nx, _ = P.shape
     h = window // 2
     out = np.full((ny, nx, 3), np.nan)
@@ -226,3 +220,11 @@ def view_angles(calibration, points, *, window=5):
             cosine = np.clip(np.abs(np.sum(sight * n, -1)), 0.0, 1.0)
         out[..., c] = np.degrees(np.arccos(cosine))
     return out
+
+
+def _window_points(window, min_points):
+    """Check a fitting window (odd number of grid points, at least 3); the fewest measured
+    points a fit needs (given, or half the window's)."""
+    if window < 3 or window % 2 == 0:
+        raise InputError(f"window must be an odd number of grid points >= 3; got {window}")
+    return (window * window + 1) // 2 if min_points is None else min_points
