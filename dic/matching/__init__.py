@@ -641,6 +641,9 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
     bias, curv = affine_bias(grad.reshape(prop.ny, prop.nx, 2, 2), float(step), m.half)
     p12 = params_from_fields(p6[:, 0], p6[:, 3], grad, True)
     prop.params = p12
+    if not np.any(bias > AUTO_BIAS):
+        # nowhere curved enough (the filtered bias below cannot exceed the largest raw one)
+        return 0.0
     # second order pays where the bias exceeds both AUTO_BIAS and the first-order random
     # error (its own random error is larger, ~1.5 x; common practice, no source)
     su, sv = posterior_sigma(_subset_std(prop, good), prop.zncc, prop.unc,
