@@ -149,6 +149,21 @@ def test_info_summarises_the_file(reference_run, capsys):
     assert "nope.h5" in _one_error_line(capsys.readouterr().err)
 
 
+def test_info_into_a_closed_pipe_is_quiet(reference_run):
+    # 'dic info run.h5 | head -1': the reader leaves early; the command stops quietly with
+    # exit 0 instead of an error line (common practice of command-line tools, no source)
+    import subprocess
+    import sys
+
+    p = subprocess.Popen([sys.executable, "-c", "from dic.cli import main; raise SystemExit("
+                          f"main(['info', {str(reference_run)!r}]))"],
+                         stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    p.stdout.close()                      # gone before the command writes its first line
+    err = p.stderr.read().decode()
+    p.stderr.close()
+    assert p.wait(timeout=60) == 0 and err == ""
+
+
 def test_workers_give_the_same_numbers(frames, reference_run, tmp_path):
     # Results must not depend on where the frames ran (project issue): compared exactly. Both
     # runs are separate processes (see _spawn_run; reference_run has filled numba's cache).

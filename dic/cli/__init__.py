@@ -30,6 +30,7 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
 
 from dic import __version__
@@ -128,6 +129,13 @@ def main(argv=None) -> int:
     logger, handler, old_level = _setup_logging(args)
     try:
         return args.func(args)
+    except BrokenPipeError:
+        # the reader of the output went away (``dic info run.h5 | head``): stop quietly, as
+        # command-line tools do; what follows on stdout is discarded (Python docs, signal
+        # module, "Note on SIGPIPE")
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except (ValueError, OSError) as exc:
         print(f"dic: error: {_describe(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
