@@ -60,23 +60,16 @@ def grey_png(image) -> bytes:
 
 
 def robust_limits(values, component: str) -> tuple[float, float]:
-    """Colour limits of a set of values: symmetric about zero for signed components.
-
-    The 1st and 99th percentiles of the finite values (common practice, no source), so that a
-    few wild points do not wash out the map; ``(0, 1)`` or ``(-1, 1)`` when nothing is finite.
+    """Colour limits of a set of values, as the report's maps draw them: ``(-top, top)`` for
+    signed components and ``(0, top)`` for magnitudes, ``top`` the 99.5th percentile of the
+    absolute finite values (:func:`dic.figures.common.robust_top`), so that a few wild points
+    do not wash out the map; ``(-1, 1)`` or ``(0, 1)`` when nothing is finite.
     """
-    v = np.asarray(values, dtype=np.float64)
-    v = v[np.isfinite(v)]
+    from dic.figures.common import limits_from_top, robust_top
+
     signed = colour_map_for(component) == SIGNED_MAP
-    if v.size == 0:
-        return (-1.0, 1.0) if signed else (0.0, 1.0)
-    lo, hi = (float(q) for q in np.percentile(v, (1, 99)))
-    if signed:
-        m = max(abs(lo), abs(hi)) or 1e-12
-        return -m, m
-    if not hi > lo:
-        hi = lo + (abs(lo) or 1e-12)
-    return lo, hi
+    top = robust_top(np.asarray(values, dtype=np.float64))
+    return limits_from_top(top if top > 0 else 1.0, signed)
 
 
 def map_rgba(values, lo: float, hi: float, cmap: str) -> np.ndarray:

@@ -262,9 +262,12 @@ class ResultsData:
         key = (component, measure, window)
         with self._lock:
             if key not in self._limits:
-                allv = [self.values(j, component, measure, window) for j in range(self.n)]
-                self._limits[key] = robust_limits(np.concatenate([a.ravel() for a in allv]),
-                                                  component)
+                # the widest of the frames' own scales, as the report's shared scale
+                from dic.figures.common import robust_top
+
+                top = max(robust_top(self.values(j, component, measure, window))
+                          for j in range(self.n))
+                self._limits[key] = robust_limits(np.array([top]), component)
             return self._limits[key]
 
     def frame_map(self, k, component="xx", measure="green-lagrange", window=9, mode="shared",
