@@ -109,15 +109,14 @@ class _Propagation:
         where no match is tried: seed candidates (an FFT search on a flat subset is wasted) and
         the points of a part of the ROI where no seed took hold."""
         from dic.images.parallel import run_chunks
-        from dic.matching._icgn_kernel import subset_stats
+        from dic.matching._icgn_kernel import flat_subsets
 
         idx = np.asarray(idx, np.int64)
-        std, sxx, syy = np.empty(idx.size), np.empty(idx.size), np.empty(idx.size)
-        run_chunks(subset_stats, idx.size, self.m.reference, self.m.gx, self.m.gy,
-                   self.px[idx], self.py[idx], self.m.half, std, sxx, syy, min_chunk=64)
-        self.std[idx] = std
+        std, flat = np.empty(idx.size), np.empty(idx.size, np.bool_)
         m = self.m
-        flat = (std < m.min_std) | (std <= m.std_floor) | (np.minimum(sxx, syy) <= m.min_grad2)
+        run_chunks(flat_subsets, idx.size, m.reference, m.gx, m.gy, self.px[idx],
+                   self.py[idx], m.half, m.flat_rule(), std, flat, min_chunk=64)
+        self.std[idx] = std
         self.state[idx[flat]] = self.w.BAD
         self.reason[idx[flat]] = Reason.FLAT
         return flat
@@ -158,13 +157,14 @@ class _Propagation:
     def propagate(self, new_good):
         """Grow outwards from ``new_good`` until no neighbour is left to match.
 
-        On larger grids the growth first runs over a coarse lattice: every fourth point (every
-        second on smaller grids), with diagonal neighbours, in a quarter of the number of
-        waves. The points in between are then matched in one row-ordered batch, each from the
-        median of its matched lattice neighbours' predictions, which keeps both cores busy and
-        the image data in cache. A lattice point that fails from its far neighbour is tried
-        again in that batch; a point that fails in the batch gets one more try from a
-        4-neighbour in the final waves over the full grid.
+        On larger grids the growth first runs over a coarse lattice through the first of
+        ``new_good``: every eighth point (every fourth, every second on smaller grids), with
+        diagonal neighbours, matched to a third of the tolerance. The points in between are
+        then matched in row-ordered batches (with every eighth point first those of the lattice
+        of every fourth, then the rest), each from the median of its matched neighbours'
+        predictions, which keeps both cores busy and the image data in cache. A lattice point
+        that fails from its far neighbour is tried again in a batch; a point that fails in the
+        last batch gets one more try from a 4-neighbour in the final waves over the full grid.
         """
         w = self.w
         if self.ny >= _COARSE_MIN and self.nx >= _COARSE_MIN and new_good.size:

@@ -139,7 +139,8 @@ class SubsetMatcher:
         self.min_std = float(min_std)
         self.min_grad2 = float(min_grad2)
         # a constant subset (std at rounding level of its grey values) is flat whatever noise
-        self.std_floor = 1e-6 * max(float(max(np.max(self.reference, initial=0.0), -np.min(self.reference, initial=0.0))), 1e-300)
+        top = max(np.max(self.reference, initial=0.0), -np.min(self.reference, initial=0.0))
+        self.std_floor = 1e-6 * max(float(top), 1e-300)
         self.border = edge_margin(self.order)
         self.fast = True
         if reference_gradients is None:
@@ -151,6 +152,11 @@ class SubsetMatcher:
         self.smat = shape_outer_sum(self.half, self.second)
         #: seconds spent in the compiled solver (all calls of :meth:`match`)
         self.kernel_time = 0.0
+
+    def flat_rule(self) -> np.ndarray:
+        """Thresholds of the texture rule the solver applies before iterating: ``min_std``,
+        the rounding-level floor of the standard deviation, ``min_grad2``."""
+        return np.array([self.min_std, self.std_floor, self.min_grad2])
 
     def match(self, xs, ys, p0, tolerance=None) -> MatchResult:
         """Match subsets centred on integer pixels ``(xs, ys)`` from starting parameters ``p0``
@@ -165,7 +171,7 @@ class SubsetMatcher:
         out = MatchResult(np.empty((n, npar)), np.empty(n, np.int8), np.empty(n),
                           np.empty(n, np.int16), np.empty(n), np.full((n, 6), np.nan),
                           np.full(n, np.nan))
-        flat = np.array([self.min_std, self.std_floor, self.min_grad2])
+        flat = self.flat_rule()
         import time
 
         t0 = time.perf_counter()

@@ -768,9 +768,11 @@ def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, s
 
 
 @njit(cache=True, nogil=True)
-def subset_stats(lo, hi, ref, gx, gy, xs, ys, half, out_std, out_sxx, out_syy):
+def flat_subsets(lo, hi, ref, gx, gy, xs, ys, half, flat, out_std, out_flat):
     """Per subset centred on (xs[k], ys[k]), k = lo..hi-1: grey-level standard deviation and
-    the sums of squared x and y gradients (SSSIG, Pan et al. 2008)."""
+    whether the texture rule :func:`_too_flat` (thresholds ``flat``) finds it flat, from the
+    sums of squared x and y gradients (SSSIG, Pan et al. 2008); the rule the solvers apply
+    before they iterate."""
     ns = 2 * half + 1
     npix = ns * ns
     for k in range(lo, hi):
@@ -788,6 +790,6 @@ def subset_stats(lo, hi, ref, gx, gy, xs, ys, half, out_std, out_sxx, out_syy):
                 sxx += gx[r, q] * gx[r, q]
                 syy += gy[r, q] * gy[r, q]
         m = s / npix
-        out_std[k] = np.sqrt(max(s2 / npix - m * m, 0.0))
-        out_sxx[k] = sxx
-        out_syy[k] = syy
+        sd = np.sqrt(max(s2 / npix - m * m, 0.0))
+        out_std[k] = sd
+        out_flat[k] = _too_flat(flat, sd, sxx, syy)

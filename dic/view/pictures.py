@@ -7,7 +7,7 @@ import base64
 import numpy as np
 
 __all__ = ["grey_png", "map_png", "map_rgba", "data_url", "SIGNED_MAP", "MAGNITUDE_MAP",
-           "colour_map_for", "robust_limits", "MAX_SIDE"]
+           "colour_map_for", "robust_limits", "limits_for_top", "MAX_SIDE"]
 
 #: colour map of signed quantities (centred on zero) and of magnitudes, as in the figures
 SIGNED_MAP = "RdBu_r"
@@ -65,11 +65,16 @@ def robust_limits(values, component: str) -> tuple[float, float]:
     absolute finite values (:func:`dic.figures.common.robust_top`), so that a few wild points
     do not wash out the map; ``(-1, 1)`` or ``(0, 1)`` when nothing is finite.
     """
-    from dic.figures.common import limits_from_top, robust_top
+    from dic.figures.common import robust_top
 
-    signed = colour_map_for(component) == SIGNED_MAP
-    top = robust_top(np.asarray(values, dtype=np.float64))
-    return limits_from_top(top if top > 0 else 1.0, signed)
+    return limits_for_top(robust_top(np.asarray(values, dtype=np.float64)), component)
+
+
+def limits_for_top(top: float, component: str) -> tuple[float, float]:
+    """``(-top, top)`` for signed components, ``(0, top)`` for magnitudes; 1 for a zero top."""
+    from dic.figures.common import limits_from_top
+
+    return limits_from_top(top if top > 0 else 1.0, colour_map_for(component) == SIGNED_MAP)
 
 
 def map_rgba(values, lo: float, hi: float, cmap: str) -> np.ndarray:

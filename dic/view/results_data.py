@@ -17,7 +17,8 @@ import numpy as np
 
 from dic.errors import InputError
 from dic.field import Reason
-from dic.view.pictures import colour_map_for, data_url, grey_png, map_png, robust_limits
+from dic.view.pictures import (colour_map_for, data_url, grey_png, limits_for_top, map_png,
+                               robust_limits)
 
 __all__ = ["ResultsData", "REASONS", "TOO_FEW_NEIGHBOURS", "RESULTS_NAME", "SIDE_TABLE"]
 
@@ -267,7 +268,7 @@ class ResultsData:
 
                 top = max(robust_top(self.values(j, component, measure, window))
                           for j in range(self.n))
-                self._limits[key] = robust_limits(np.array([top]), component)
+                self._limits[key] = limits_for_top(top, component)
             return self._limits[key]
 
     def frame_map(self, k, component="xx", measure="green-lagrange", window=9, mode="shared",
