@@ -37,6 +37,7 @@ def run(tmp_path_factory):
         d = synth.tensile_neck(e, centre=(64.0, 40.0), neck_strain=0.5 * e,
                                neck_width=25.0) if k else None
         img = synth.render(pat, SHAPE, d, noise=0.5, seed=k)
+        img[22:48, 88:114] = 300.0   # a blank patch: its points are FLAT, not measured
         paths.append(dic.images.io.write_image(folder / f"g{k}.png", img * 16, bits=16))
     mask = np.zeros(SHAPE, bool)
     mask[12:68, 8:120] = True

@@ -13,6 +13,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from dic.field import DisplacementField, Reason
+from dic.matching._edge import EDGE_SHARE, edge_bias, edge_distance
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
 
@@ -22,7 +23,7 @@ from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicte
 from dic.matching._checks import affine_bias, median_test, posterior_sigma, translation_sigma
 
 __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
-           "edge_margin", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
+           "edge_margin", "edge_distance", "edge_bias", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
            "gradient_noise_gain", "affine_bias", "median_test",
            "posterior_sigma", "translation_sigma"]
 
@@ -412,7 +413,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         matcher = SubsetMatcher(ref, dfm, subset=subset, second_order=second, order=order,
                                 max_iterations=max_iterations, tolerance=tolerance,
                                 min_std=min_std, min_grad2=min_grad2,
-                                reference_gradients=_prepared)
+                                reference_gradients=_prepared, border=0)
         t1 = time.perf_counter()
         prop = _Propagation(matcher, gx, gy, candidate, in_image, min_zncc,
                             WEAK_SIGMA * max_sigma)
@@ -661,7 +662,7 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
     m2 = SubsetMatcher(m.reference, None, subset=2 * m.half + 1, second_order=True,
                        order=order, max_iterations=max_iterations, tolerance=tolerance,
                        min_std=min_std, reference_gradients=(m.gx, m.gy),
-                       deformed_spline=m.spline)
+                       deformed_spline=m.spline, border=m.border)
     c = np.nan_to_num(curv.reshape(-1, 2, 3)[idx])
     start = p12[idx].copy()
     start[:, 3:6] = c[:, 0]
@@ -696,6 +697,7 @@ def _finish(prop, shape_order, noise, order, max_sigma):
     else:
         # the user's noise figure: the prediction from it (dic.matching.point_sigma)
         su, sv = point_sigma(prop.unc, noise[0], noise[1], order)
+    su, sv = _near_border(prop, good, su, sv, order)
     too_wide = good & ~((su <= max_sigma) & (sv <= max_sigma))
     prop.state[too_wide] = prop.w.BAD
     prop.reason[too_wide] = Reason.FLAT
@@ -721,6 +723,30 @@ def _finish(prop, shape_order, noise, order, max_sigma):
         if not out.any():
             break
     return np.where(good, su, np.nan), np.where(good, sv, np.nan)
+
+
+def _near_border(prop, good, su, sv, order):
+    """Matches whose deformed subset reaches into the image's edge margin: kept where the
+    interpolation error there is small against their own random error (then included in their
+    standard deviations), OUTSIDE_IMAGE where it is not. Returns (std_u, std_v)."""
+    idx = np.flatnonzero(good)
+    if idx.size == 0:
+        return su, sv
+    d = edge_distance(prop.px[idx], prop.py[idx], prop.params[idx], prop.m.half,
+                      prop.m.reference.shape)
+    b = edge_bias(d, order)
+    near = b > 0
+    if not near.any():
+        return su, sv
+    k = idx[near]
+    b = b[near]
+    out = ~(b <= EDGE_SHARE * np.fmin(su[k], sv[k]))
+    prop.state[k[out]] = prop.w.BAD
+    prop.reason[k[out]] = Reason.OUTSIDE_IMAGE
+    su, sv = su.copy(), sv.copy()
+    su[k] = np.hypot(su[k], b)
+    sv[k] = np.hypot(sv[k], b)
+    return su, sv
 
 
 def _warn_flat(field, candidate):

@@ -125,11 +125,15 @@ class SubsetMatcher:
         always flat.
     reference_spline : BSplineImage, optional
         Already computed coefficients of the reference image (reused along a sequence).
+    border : int, optional
+        Pixels next to the image border that warped subsets must avoid (default:
+        :func:`edge_margin`; :func:`dic.correlate` lets them come closer and judges such
+        matches by :func:`dic.matching.edge_bias`).
     """
 
     def __init__(self, reference, deformed, *, subset, second_order=False, order=3,
                  max_iterations=50, tolerance=1e-3, min_std=0.0, min_grad2=0.0,
-                 reference_gradients=None, deformed_spline=None):
+                 reference_gradients=None, deformed_spline=None, border=None):
         self.reference = np.ascontiguousarray(reference, dtype=np.float64)
         self.half = int(subset) // 2
         self.second = bool(second_order)
@@ -141,7 +145,7 @@ class SubsetMatcher:
         # a constant subset (std at rounding level of its grey values) is flat whatever noise
         top = max(np.max(self.reference, initial=0.0), -np.min(self.reference, initial=0.0))
         self.std_floor = 1e-6 * max(float(top), 1e-300)
-        self.border = edge_margin(self.order)
+        self.border = edge_margin(self.order) if border is None else int(border)
         self.fast = True
         if reference_gradients is None:
             reference_gradients = interp.image_gradients(self.reference, self.order)
