@@ -730,6 +730,17 @@ def _near_border(prop, good, su, sv, order):
     interpolation error there is small against their own random error (then included in their
     standard deviations), OUTSIDE_IMAGE where it is not. Returns (std_u, std_v)."""
     idx = np.flatnonzero(good)
+    # a cheap lower bound on the distance first: the warped centre less the subset's reach
+    p = prop.params[idx]
+    iu, iv = index_u_v(p.shape[1] == 12)
+    h = float(prop.m.half)
+    reach = h * (1.0 + np.abs(p[:, [iu + 1, iu + 2, iv + 1, iv + 2]]).sum(axis=1))
+    if p.shape[1] == 12:
+        reach += h * h * np.abs(p[:, [iu + 3, iu + 4, iu + 5, iv + 3, iv + 4, iv + 5]]).sum(axis=1)
+    xc, yc = prop.px[idx] + p[:, iu], prop.py[idx] + p[:, iv]
+    rows, cols = prop.m.reference.shape
+    lower = np.minimum(np.minimum(xc, cols - 1.0 - xc), np.minimum(yc, rows - 1.0 - yc)) - reach
+    idx = idx[lower < edge_margin(order)]
     if idx.size == 0:
         return su, sv
     d = edge_distance(prop.px[idx], prop.py[idx], prop.params[idx], prop.m.half,
