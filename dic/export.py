@@ -30,7 +30,7 @@ from dic import __version__
 from dic.field import DisplacementField
 from dic.figures.common import (MEASURE_TITLES, STRAIN_QUANTITIES, frame_indices, open_results,
                                 quantity_values)
-from dic.files import atomic_write, sidecar_path
+from dic.files import atomic_write, sidecar_path, write_error, writing
 from dic.files import write_sidecar as _write_sidecar
 
 __all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "check_components", "export_results",
@@ -113,14 +113,10 @@ def field_to_csv(field, path):
                       "points_measured": field.n_valid, "units": "px; gradients dimensionless",
                       "reason": "0 = measured; other codes as dic.field.Reason",
                       "settings": dict(field.settings)})
-    try:
-        with atomic_write(p, encoding="utf-8", newline="\n") as fh:
-            fh.write(head + "\n")
-            for row, r in zip(data, reason):
-                fh.write(",".join(_FLOAT_FMT % v for v in row) + f",{r}\n")
-    except OSError as exc:
-        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                      f"permissions and free space") from None
+    with writing(p, newline="\n") as fh:
+        fh.write(head + "\n")
+        for row, r in zip(data, reason):
+            fh.write(",".join(_FLOAT_FMT % v for v in row) + f",{r}\n")
     return p
 
 
@@ -165,12 +161,8 @@ def field_to_npz(field, path):
         arrays["grad2"] = np.asarray(field.grad2)
     arrays["settings"] = np.array(json.dumps(field.settings, default=_jsonable))
     arrays["format_version"] = np.array(1)
-    try:
-        with atomic_write(p, "wb") as fh:
-            np.savez_compressed(fh, **arrays)
-    except OSError as exc:
-        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                      f"permissions and free space") from None
+    with writing(p, "wb") as fh:
+        np.savez_compressed(fh, **arrays)
     return p
 
 
@@ -329,12 +321,8 @@ def _strain_note(strain):
 
 
 def _write_text(p, text_writer):
-    try:
-        with atomic_write(p, encoding="utf-8", newline="\n") as fh:
-            text_writer(fh)
-    except OSError as exc:
-        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                      f"permissions and free space") from None
+    with writing(p, newline="\n") as fh:
+        text_writer(fh)
     return p
 
 
@@ -529,8 +517,7 @@ def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
                 for nm in [*names, "reason"]:
                     z.write(tmp / f"{nm}.npy", arcname=f"{nm}.npy")
         except OSError as exc:
-            raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                          f"permissions and free space") from None
+            raise write_error(p, exc) from None
         finally:
             import shutil
 

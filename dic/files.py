@@ -5,6 +5,11 @@ temporary file beside the target (same folder, so the same file system), which i
 synced to disk and renamed over the target with ``os.replace`` (atomic on POSIX and Windows).
 A failed or interrupted write removes the temporary and leaves the target as it was.
 
+Writers of outputs use it through :func:`writing` (or :func:`write_text`, :func:`write_json`),
+which also turn a failure (missing folder, no permission, full disk) into the package's
+one-line error (:func:`write_error`). Every JSON file is strict JSON (:func:`json_text`):
+NumPy values become plain numbers and lists, NaN and infinity become ``null``.
+
 The other helpers are the pieces the results file (:mod:`dic.sequence.writer`) builds on:
 temporary names (:func:`partial_name`) and the removal of those a killed writer left
 (:func:`remove_stale_partials`), syncing files and folders, the writer's exclusive lock, and
@@ -15,15 +20,17 @@ from __future__ import annotations
 
 import contextlib
 import errno
+import math
 import os
 import re
 from pathlib import Path
 
-from dic.errors import FileProblem
+from dic.errors import DiskFull, FileProblem, NotWritable
 
-__all__ = ["PARTIAL_PREFIX", "atomic_write", "sidecar_path", "write_sidecar", "check_folder", "fsync_file", "fsync_folder",
-           "is_disk_full", "lock_file", "partial_name", "remove_stale_partials", "sparse_copy",
-           "unlock_file"]
+__all__ = ["PARTIAL_PREFIX", "atomic_write", "writing", "write_text", "write_json", "write_error",
+           "json_safe", "json_text", "sidecar_path", "write_sidecar", "check_folder",
+           "fsync_file", "fsync_folder", "is_disk_full", "lock_file", "partial_name",
+           "remove_stale_partials", "sparse_copy", "unlock_file"]
 
 #: temporary files are named ``.partial-<process id>-<target name>`` (the target's extension
 #: stays last, so writers that choose a format by the extension still work)
@@ -354,22 +361,177 @@ def sidecar_path(path) -> Path:
     return Path(os.fspath(path)).with_suffix(".json")
 
 
-def _plain(value):
-    """``value`` made JSON-safe: NumPy scalars and arrays to Python, NaN and infinity to None."""
-    import math
+def write_error(path, exc: OSError, label: str | None = "path") -> OSError:
+    """The one-line error for a file that could not be written.
 
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file being written.
+    exc : OSError
+        What the system (or the writer) raised.
+    label : str or None, optional
+        The argument that named the file, put first (``"path"``, ``"--json"``); None for none.
+
+    Returns
+    -------
+    OSError
+        To raise (``raise write_error(p, exc) from None``): ``FileNotFoundError`` when the
+        folder does not exist, :class:`dic.errors.DiskFull` when the disk or quota is full,
+        :class:`dic.errors.NotWritable` for no permission or a read-only file system,
+        :class:`dic.errors.FileProblem` otherwise. Each names the file and the fix.
+    """
+    p = Path(os.fspath(path))
+    head = f"{label}: cannot write '{p}'" if label else f"cannot write '{p}'"
+    why = " ".join(str(exc.strerror or exc).split()) or type(exc).__name__
+    if isinstance(exc, FileNotFoundError) and not p.parent.is_dir():
+        return FileNotFoundError(f"{head}: folder '{p.parent}' does not exist; create it or "
+                                 "choose another folder")
+    if is_disk_full(exc):
+        return DiskFull(f"{head} ({why}); free disk space or choose another folder")
+    if isinstance(exc, PermissionError) or exc.errno in (errno.EACCES, errno.EPERM,
+                                                         errno.EROFS):
+        return NotWritable(f"{head} ({why}); choose a folder you can write to or fix its "
+                           "permissions")
+    return FileProblem(f"{head} ({why}); check the folder permissions and free space")
+
+
+@contextlib.contextmanager
+def writing(path, mode="w", *, label: str | None = "path", encoding="utf-8", newline=None,
+            fsync=True):
+    """:func:`atomic_write` whose failures become the package's one-line error.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file.
+    mode : {"w", "wb", None}, optional
+        As for :func:`atomic_write`: an open file object, or (None) the temporary's path.
+    label : str or None, optional
+        The argument that named the file, for the message (see :func:`write_error`).
+    encoding, newline, fsync
+        As for :func:`atomic_write`.
+
+    Yields
+    ------
+    file object or pathlib.Path
+
+    Raises
+    ------
+    OSError
+        From :func:`write_error`, for any ``OSError`` raised while writing (inside the block
+        too); the target is unchanged and no temporary is left.
+    """
+    p = Path(os.fspath(path))
+    try:
+        with atomic_write(p, mode, encoding=encoding, newline=newline, fsync=fsync) as target:
+            yield target
+    except OSError as exc:
+        raise write_error(p, exc, label) from None
+
+
+def write_text(path, text: str, *, label: str | None = "path", newline="\n") -> Path:
+    """Write a text file (UTF-8) atomically; failures raise the one-line error.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file; its folder must exist.
+    text : str
+        The whole content.
+    label : str or None, optional
+        The argument that named the file, for the message (see :func:`write_error`).
+    newline : str, optional
+        Line ending written for each ``"\\n"`` (default: ``"\\n"`` on every system).
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    OSError
+        See :func:`write_error`.
+    """
+    p = Path(os.fspath(path))
+    with writing(p, label=label, newline=newline) as fh:
+        fh.write(text)
+    return p
+
+
+def json_safe(value):
+    """``value`` made fit for strict JSON.
+
+    NumPy scalars and arrays become Python numbers and (nested) lists, tuples become lists,
+    dictionary keys become strings, NaN and infinity become None; any other object becomes
+    its ``str``.
+
+    Parameters
+    ----------
+    value : object
+
+    Returns
+    -------
+    object
+        Made of dict, list, str, int, float (finite), bool and None only.
+    """
     if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
+        return {str(k): json_safe(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    item = getattr(value, "tolist", None)
+        return [json_safe(v) for v in value]
+    item = getattr(value, "tolist", None)  # NumPy scalars and arrays
     if callable(item) and not isinstance(value, (str, bytes)):
-        return _plain(item())
+        return json_safe(item())
     if isinstance(value, float):
         return value if math.isfinite(value) else None
     if isinstance(value, (str, int, bool)) or value is None:
         return value
     return str(value)
+
+
+def json_text(value, *, indent: int | None = 2) -> str:
+    """Strict JSON text of ``value`` (through :func:`json_safe`), ending in a newline.
+
+    Parameters
+    ----------
+    value : object
+    indent : int or None, optional
+        As for :func:`json.dumps`; None for the compact form on one line.
+
+    Returns
+    -------
+    str
+        Never holds ``NaN`` or ``Infinity``, which strict JSON readers refuse.
+    """
+    import json
+
+    return json.dumps(json_safe(value), indent=indent, allow_nan=False) + "\n"
+
+
+def write_json(path, value, *, label: str | None = "path", indent: int | None = 2) -> Path:
+    """Write ``value`` as a strict JSON file (:func:`json_text`), atomically.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The target file; its folder must exist.
+    value : object
+        Anything :func:`json_safe` takes.
+    label : str or None, optional
+        The argument that named the file, for the message (see :func:`write_error`).
+    indent : int or None, optional
+        As for :func:`json_text`.
+
+    Returns
+    -------
+    pathlib.Path
+
+    Raises
+    ------
+    OSError
+        See :func:`write_error`.
+    """
+    return write_text(path, json_text(value, indent=indent), label=label)
 
 
 def write_sidecar(path, about: dict, software: str = "") -> Path:
@@ -397,17 +559,8 @@ def write_sidecar(path, about: dict, software: str = "") -> Path:
     OSError
         The file cannot be written.
     """
-    import json
-
     p = sidecar_path(path)
     data = {"software": software} if software else {}
     data["table"] = Path(os.fspath(path)).name
-    data.update(_plain(dict(about)))
-    text = json.dumps(data, indent=2, allow_nan=False) + "\n"
-    try:
-        with atomic_write(p, encoding="utf-8", newline="\n") as fh:
-            fh.write(text)
-    except OSError as exc:
-        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                      f"permissions and free space") from None
-    return p
+    data.update(dict(about))
+    return write_json(p, data)

@@ -2,11 +2,11 @@
 
 Stages, from the top: command line > workflow > outputs (figures, report, export) > results of a
 test (tensile) > accuracy (metrology) > sequence > 3-D (stereo) > matching and strain > ground
-(images, field types, errors, files). A module imports only from its own stage or stages below
-it; nothing imports the command line; there is no import circle; no module imports another
-module's underscore names, nor a private module of another package; no module but the compiled
-kernels is longer than 800 lines. Checked on the source text with the standard library's ``ast``
-(common practice, no source).
+(images, field types, errors, files, TOML text). A module imports only from its own stage or
+stages below it; nothing imports the command line; there is no import circle; no module imports
+another module's underscore names, nor a private module of another package; no module but the
+compiled kernels is longer than 800 lines. Checked on the source text with the standard
+library's ``ast`` (common practice, no source).
 """
 
 from __future__ import annotations
@@ -22,8 +22,8 @@ PKG = Path(__file__).resolve().parents[1] / "dic"
 RANK = {
     "cli": 90, "workflow": 80, "figures": 70, "report": 70, "export": 70, "view": 75,
     "tensile": 60, "metrology": 50, "sequence": 40, "stereo": 35, "matching": 30,
-    "strain": 30, "images": 20, "field": 10, "errors": 10, "files": 10, "lazy": 10,
-    "_version": 10,
+    "strain": 30, "images": 20, "field": 10, "errors": 10, "files": 10, "tomlfile": 10,
+    "lazy": 10, "_version": 10,
     "__init__": 100, "__main__": 100,
 }
 KERNELS = {"_icgn_kernel.py"}

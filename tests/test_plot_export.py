@@ -174,6 +174,15 @@ def test_save_figure_png_svg_and_errors(tmp_path):
         save_figure(fig, tmp_path / "missing" / "map.png")
     with pytest.raises(ValueError, match="dpi"):
         save_figure(fig, tmp_path / "map.png", dpi=0)
+    # written atomically: a folder in the file's place stays, no temporary is left, and the
+    # error is one line naming the file (os.replace cannot put a file over a folder: POSIX
+    # rename(2), EISDIR; common practice, no source)
+    (tmp_path / "taken.pdf").mkdir()
+    with pytest.raises(OSError) as e:
+        save_figure(fig, tmp_path / "taken.pdf")
+    assert str(e.value).startswith(f"path: cannot write '{tmp_path / 'taken.pdf'}'")
+    assert "\n" not in str(e.value) and ".partial" not in str(e.value)
+    assert sorted(q.name for q in tmp_path.iterdir()) == ["map.png", "map.svg", "taken.pdf"]
 
 
 # --------------------------------------------------------------------------------------------

@@ -225,7 +225,6 @@ def write_camera_maps(results_path, folder, reference_path) -> list:
     folder; nothing for other results files. Returns the files written."""
     from dic.figures import save_figure
     from dic.figures.surface import surface_map
-    from dic.files import atomic_write
     from dic.images.io import read_image
     from dic.sequence.stereofile import has_stereo
 
@@ -235,7 +234,6 @@ def write_camera_maps(results_path, folder, reference_path) -> list:
     written = []
     for quantity, name in (("W", "surface_W.png"), ("shape", "surface_shape.png")):
         fig, _ = surface_map(results_path, -1, quantity, image=image)
-        with atomic_write(Path(folder) / name, None) as tmp:   # never half a file
-            save_figure(fig, tmp)
+        save_figure(fig, Path(folder) / name)   # written atomically: never half a file
         written.append(Path(folder) / name)
     return written

@@ -9,13 +9,11 @@ print and map to an exit code.
 from __future__ import annotations
 
 import argparse
-import json
-import math
 import sys
 from pathlib import Path
 
 from dic.cli.types import positive_float, positive_int, rectangle
-from dic.files import atomic_write
+from dic.files import write_json, writing
 
 __all__ = ["register", "run_pattern", "run_noise", "run_advise"]
 
@@ -53,36 +51,12 @@ def _roi(args):
     return args.roi if args.roi is not None else args.roi_mask
 
 
-def _write_json(path, data):
-    def clean(v):
-        if isinstance(v, float) and not math.isfinite(v):
-            return None
-        if isinstance(v, dict):
-            return {str(k): clean(x) for k, x in v.items()}
-        if isinstance(v, (list, tuple)):
-            return [clean(x) for x in v]
-        if hasattr(v, "item") and callable(v.item):
-            return clean(v.item())
-        return v
-
-    p = Path(path)
-    try:
-        text = json.dumps(clean(data), indent=2) + "\n"
-        with atomic_write(p, encoding="utf-8") as fh:
-            fh.write(text)
-    except OSError as exc:
-        raise OSError(f"--json: cannot write '{p}' ({exc.strerror or exc}); check the folder")
-
-
 def _save_figure(fig, path):
     p = Path(path)
     if p.suffix.lower() not in (".png", ".svg", ".pdf"):
         raise ValueError(f"--figure: '{p}' must end in .png, .svg or .pdf")
-    try:
-        with atomic_write(p, None) as tmp:
-            fig.savefig(tmp, dpi=150, format=p.suffix.lower()[1:])
-    except OSError as exc:
-        raise OSError(f"--figure: cannot write '{p}' ({exc.strerror or exc}); check the folder")
+    with writing(p, None, label="--figure") as tmp:
+        fig.savefig(tmp, dpi=150, format=p.suffix.lower()[1:])
 
 
 # --------------------------------------------------------------------------------------------
@@ -185,7 +159,7 @@ def run_pattern(args, out=None) -> int:
         print("region: no ROI given and no plain background found, so the whole image was "
               "judged", file=out)
     if args.json:
-        _write_json(args.json, q.as_dict())
+        write_json(args.json, q.as_dict(), label="--json")
     return 0
 
 
@@ -200,7 +174,7 @@ def run_noise(args, out=None) -> int:
                      shape_function=args.shape_function)
     print(nf.summary(), file=out)
     if args.json:
-        _write_json(args.json, nf.as_dict())
+        write_json(args.json, nf.as_dict(), label="--json")
     return 0
 
 
@@ -223,5 +197,5 @@ def run_advise(args, out=None) -> int:
         _save_figure(a.figure(), args.figure)
         print(f"trade-off figure: {args.figure}", file=out)
     if args.json:
-        _write_json(args.json, a.as_dict())
+        write_json(args.json, a.as_dict(), label="--json")
     return 0

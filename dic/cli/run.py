@@ -394,7 +394,6 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
     from dic.images.io import read_image
     from dic.figures import save_figure, strain_map
     from dic.figures.common import MEASURE_TITLES, strain_limits
-    from dic.files import atomic_write
     from dic.workflow.run import axial_component, gauge_lines
 
     st = results.settings
@@ -444,8 +443,7 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
                 title=f"Axial strain {comp} ({MEASURE_TITLES.get(measure, measure)}), {name} "
                       f"against {ref_name}\n{nv} of {field.n_points} points have a strain; "
                       f"one colour scale for every frame")
-            with atomic_write(png, None) as tmp:  # never half a file
-                save_figure(fig, tmp)
+            save_figure(fig, png)  # written atomically: never half a file
             written += 3
             if verbose:
                 if never is None:

@@ -15,6 +15,8 @@ from pathlib import Path
 
 import numpy as np
 
+from dic.files import writing
+
 __all__ = ["FIGURE_FORMATS", "MEASURE_TITLES", "ROBUST_PERCENTILE", "STRAIN_QUANTITIES",
            "STRAIN_UNITS", "check_alpha", "check_configuration", "check_limits", "check_size",
            "check_strain", "colormap", "display_unit", "find_image", "frame_indices",
@@ -565,7 +567,7 @@ def quantity_label(name, measure, symbol):
 
 
 def save_figure(fig, path, dpi=150, *, size=None):
-    """Save a figure as PNG, SVG or PDF.
+    """Save a figure as PNG, SVG or PDF (atomically: never half a file).
 
     Parameters
     ----------
@@ -612,9 +614,6 @@ def save_figure(fig, path, dpi=150, *, size=None):
                                 f"writing '{p.name}'")
     if size is not None:
         fig.set_size_inches(*size)
-    try:
-        fig.savefig(p, dpi=dpi, format=ext[1:])
-    except OSError as exc:
-        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                      f"permissions and free space") from None
+    with writing(p, None) as tmp:  # never half a figure
+        fig.savefig(tmp, dpi=dpi, format=ext[1:])
     return p

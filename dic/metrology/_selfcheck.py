@@ -339,7 +339,8 @@ class SelfCheck:
         pu, pv = self.predicted_noise
         sn, st = self.strain_noise, self.stretch
         fu, fe = self.resolution_flags
-        beyond = {"<": "shorter than ", ">": "longer than ", "": ""}
+        # '?': too few grid lines to find it; the NaN value then reads "not known"
+        beyond = {"<": "shorter than ", ">": "longer than ", "": "", "?": ""}
         s = self.settings
         return [
             Row("Image noise", f"{number(self.noise)} grey levels",

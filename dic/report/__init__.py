@@ -25,14 +25,10 @@ REPORT_NAMES = ("report.html", "report.pdf")
 
 
 def _replace(target, write):
-    from dic.files import atomic_write
+    from dic.files import writing
 
-    try:
-        with atomic_write(target, None) as tmp:
-            write(tmp)
-    except OSError as exc:
-        raise OSError(f"out_dir: cannot write '{target}' ({exc.strerror or exc}); check the "
-                      f"folder permissions and free space") from None
+    with writing(target, None, label="out_dir") as tmp:
+        write(tmp)
     return target
 
 

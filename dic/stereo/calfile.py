@@ -1,6 +1,6 @@
 """The calibration file: a plain TOML file of our own layout.
 
-Written by :func:`save_calibration` (a small writer here, no extra dependency), read by
+Written by :func:`save_calibration` (TOML text from :mod:`dic.tomlfile`), read by
 :func:`load_calibration` with the standard library's ``tomllib``. Layout (lengths in mm, image
 positions in pixels; ``x`` column, ``y`` row, origin at the centre of the top-left pixel)::
 
@@ -41,47 +41,19 @@ positions in pixels; ``x`` column, ``y`` row, origin at the centre of the top-le
 
 from __future__ import annotations
 
-import math
 from pathlib import Path
 
 import numpy as np
 
 from dic.errors import FileProblem, InputError
 from dic.stereo.calibration import Calibration, CameraFit, Rejected
+from dic.tomlfile import toml_text
 
 __all__ = ["save_calibration", "load_calibration", "calibration_text", "calibration_from_text",
            "as_calibration"]
 
 _KIND = "dic camera calibration"
 _VERSION = 1
-
-
-def _value(v):
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        f = float(v)
-        if math.isnan(f):
-            return "nan"
-        if math.isinf(f):
-            return "inf" if f > 0 else "-inf"
-        return repr(f)
-    if isinstance(v, str):
-        esc = v.replace("\\", "\\\\").replace('"', '\\"')
-        esc = "".join(c if ord(c) >= 0x20 else f"\\u{ord(c):04x}" for c in esc)
-        return f'"{esc}"'
-    if isinstance(v, (list, tuple, np.ndarray)):
-        return "[" + ", ".join(_value(x) for x in v) + "]"
-    raise TypeError(f"cannot write {type(v).__name__} to TOML")
-
-
-def _table(lines, header, items):
-    lines.append("")
-    lines.append(header)
-    for k, v in items.items():
-        lines.append(f"{k} = {_value(v)}")
 
 
 def calibration_text(calibration: Calibration) -> str:
@@ -96,26 +68,27 @@ def calibration_text(calibration: Calibration) -> str:
     str
     """
     cal = calibration
-    lines = [f"kind = {_value(_KIND)}", f"version = {_VERSION}", f"rms_px = {_value(cal.rms)}"]
+    doc = {"kind": _KIND, "version": _VERSION, "rms_px": cal.rms}
     if cal.target:
-        _table(lines, "[target]", {"kind": cal.target["kind"],
-                                   "inner_corners": list(cal.target["inner_corners"]),
-                                   "square_mm": cal.target["square_mm"]})
-    for cam in cal.cameras:
-        _table(lines, "[[camera]]", {"size": list(cam.size), "matrix": cam.matrix,
-                                     "distortion": cam.distortion, "rms_px": cam.rms})
+        doc["target"] = {"kind": cal.target["kind"],
+                         "inner_corners": list(cal.target["inner_corners"]),
+                         "square_mm": cal.target["square_mm"]}
+    if cal.cameras:
+        doc["camera"] = [{"size": list(cam.size), "matrix": cam.matrix,
+                          "distortion": cam.distortion, "rms_px": cam.rms}
+                         for cam in cal.cameras]
     if cal.stereo:
-        _table(lines, "[pose]", {"rotation": cal.rotation, "translation_mm": cal.translation,
-                                 "baseline_mm": cal.baseline, "angle_deg": cal.angle_deg})
+        doc["pose"] = {"rotation": cal.rotation, "translation_mm": cal.translation,
+                       "baseline_mm": cal.baseline, "angle_deg": cal.angle_deg}
     if cal.plane is not None:
-        _table(lines, "[plane]", {"rotation": np.asarray(cal.plane[0]),
-                                  "translation_mm": np.asarray(cal.plane[1])})
+        doc["plane"] = {"rotation": np.asarray(cal.plane[0]),
+                        "translation_mm": np.asarray(cal.plane[1])}
     why = {r.index: r.reason for r in cal.rejected}
-    for i, name in enumerate(cal.names):
-        _table(lines, "[[view]]", {"name": name, "used": i not in why,
-                                   "rms_px": cal.view_rms.get(i, float("nan")),
-                                   "reason": why.get(i, "")})
-    return "\n".join(lines) + "\n"
+    if cal.names:
+        doc["view"] = [{"name": name, "used": i not in why,
+                        "rms_px": cal.view_rms.get(i, float("nan")), "reason": why.get(i, "")}
+                       for i, name in enumerate(cal.names)]
+    return toml_text(doc, what="calibration file")
 
 
 def save_calibration(calibration: Calibration, path):
@@ -125,16 +98,16 @@ def save_calibration(calibration: Calibration, path):
     ----------
     calibration : Calibration
     path : str or Path
-    """
-    from dic.files import atomic_write
 
-    text = calibration_text(calibration)
-    try:
-        with atomic_write(path, newline="\n") as fh:
-            fh.write(text)
-    except OSError as exc:
-        raise FileProblem(f"cannot write the calibration file {path}: {exc.strerror}; "
-                          "choose a writable location") from exc
+    Raises
+    ------
+    OSError
+        The file cannot be written: a one-line error naming it and the fix
+        (:func:`dic.files.write_error`).
+    """
+    from dic.files import write_text
+
+    write_text(path, calibration_text(calibration))
 
 
 def _array(doc, key, shape, where):

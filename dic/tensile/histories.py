@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from dic import __version__
-from dic.files import atomic_write, write_sidecar
+from dic.files import write_sidecar, write_text
 
 __all__ = ["History", "CAUTION"]
 
@@ -142,13 +142,7 @@ class History:
         cols = [self.time, self.force, *self.columns.values()]
         for i, k in enumerate(self.frame):
             lines.append(",".join([str(int(k))] + [_num(c[i]) for c in cols]))
-        try:
-            with atomic_write(p, encoding="utf-8") as fh:
-                fh.write("\n".join(lines) + "\n")
-        except OSError as exc:
-            raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                          "and permissions") from None
-        return p
+        return write_text(p, "\n".join(lines) + "\n")
 
     def plot(self, columns=None, *, against="frame", ax=None, scale=1.0, ylabel=None):
         """Lines of some columns against frame, time or force.

@@ -12,16 +12,14 @@ Optical gauge results are indicative unless the set-up was verified as an extens
 
 from __future__ import annotations
 
-import json
 import math
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 from dic import __version__
-from dic.files import atomic_write
+from dic.files import json_text, write_text
 from dic.tensile import fits
 from dic.tensile.histories import CAUTION
 
@@ -300,11 +298,12 @@ class TensileResults:
                    warnings=list(d.get("warnings", [])))
 
     def to_json(self, path=None):
-        """The results as JSON text, also written to ``path`` when given."""
-        text = json.dumps(self.to_dict(), indent=2, allow_nan=False)
+        """The results as strict JSON text (NaN as null), also written to ``path`` when
+        given."""
+        text = json_text(self.to_dict())
         if path is not None:
-            _write(path, text + "\n")
-        return text
+            write_text(path, text)
+        return text.rstrip("\n")
 
     def to_csv(self, path) -> Path:
         """One row per result: ``key,name,value,unit,standard,range_low,range_high,range_unit,
@@ -319,7 +318,7 @@ class TensileResults:
             cells = [v.key, v.name, _g(v.value), v.unit, v.standard, _g(lo), _g(hi),
                      v.range_unit, str(int(v.points)), _g(v.r2), v.method, v.note]
             lines.append(",".join(_csv_cell(c) for c in cells))
-        return _write(path, "\n".join(lines) + "\n")
+        return write_text(path, "\n".join(lines) + "\n")
 
 
 def _json_list(a):
@@ -342,17 +341,6 @@ def _csv_cell(text) -> str:
     if any(c in text for c in ',"\n'):
         return '"' + text.replace('"', '""') + '"'
     return text
-
-
-def _write(path, text) -> Path:
-    p = Path(os.fspath(path))
-    try:
-        with atomic_write(p, encoding="utf-8") as fh:
-            fh.write(text)
-    except OSError as exc:
-        raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder and "
-                      "permissions") from None
-    return p
 
 
 def shown_value(v: Value):

@@ -379,12 +379,10 @@ def sidecar_path(results_path) -> Path:
 def write_sidecar(results_path, history, results) -> Path:
     """Store gauge histories and tensile results beside the results file (see
     :func:`sidecar_path`); the report finds them there by itself."""
-    import json
-
-    from dic.files import atomic_write
+    from dic.files import write_json
 
     def col(a):
-        return [None if not math.isfinite(x) else float(x) for x in np.asarray(a, float)]
+        return np.asarray(a, float)  # written as a list, NaN as null
 
     d = {"kind": "dic tensile sidecar", "results_file": Path(results_path).name,
          "history": {"frame": [int(k) for k in history.frame], "time": col(history.time),
@@ -392,14 +390,7 @@ def write_sidecar(results_path, history, results) -> Path:
                      "columns": {k: col(v) for k, v in history.columns.items()},
                      "units": dict(history.units), "notes": list(history.notes)},
          "tensile": results.to_record()}
-    target = sidecar_path(results_path)
-    try:
-        with atomic_write(target, encoding="utf-8") as fh:
-            fh.write(json.dumps(d, allow_nan=False))
-    except OSError as exc:
-        raise OSError(f"cannot write '{target}' ({exc.strerror or exc}); check the folder's "
-                      "permissions") from None
-    return target
+    return write_json(sidecar_path(results_path), d, label=None, indent=None)
 
 
 def read_sidecar(results_path):

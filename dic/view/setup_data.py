@@ -8,7 +8,6 @@ and its length; this module turns them into a mask (:func:`dic.images.roi.make_r
 
 from __future__ import annotations
 
-import json
 import math
 import os
 import threading
@@ -17,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 
+from dic import tomlfile
 from dic.errors import InputError
 from dic.view.pictures import grey_png
 
@@ -31,45 +31,28 @@ _DEFAULTS = {"subset": 21, "step": 8, "window": 9, "measure": "green-lagrange"}
 
 
 # --------------------------------------------------------------------------------------------
-# TOML text (the standard library reads TOML but does not write it)
+# the analysis file's text
 # --------------------------------------------------------------------------------------------
-def _value(v) -> str:
-    if isinstance(v, bool):
-        return "true" if v else "false"
-    if isinstance(v, (int, np.integer)):
-        return str(int(v))
-    if isinstance(v, (float, np.floating)):
-        if not math.isfinite(v):
-            raise InputError(f"analysis file: {v!r} cannot be written; give a finite number")
-        return repr(float(v))
-    if isinstance(v, str):
-        return json.dumps(v)  # a JSON string is a TOML basic string
-    if isinstance(v, (list, tuple)):
-        return "[" + ", ".join(_value(q) for q in v) + "]"
-    if isinstance(v, dict):
-        return "{ " + ", ".join(f"{k} = {_value(q)}" for k, q in v.items()) + " }"
-    raise InputError(f"analysis file: cannot write a {type(v).__name__}")
-
-
 def toml_text(data: dict, header: str = "") -> str:
-    """A dictionary of settings as TOML text: top-level keys, then one table per section.
+    """A dictionary of settings as the analysis file's TOML text.
+
+    Top-level keys, then one table per section (:func:`dic.tomlfile.toml_text`); ``frames``
+    is an inline table, as the analysis file has it, and numbers must be finite.
 
     Parameters
     ----------
     data : dict
-        Top-level values; a dict value is a ``[section]`` table, except ``frames`` (an inline
-        table, as the analysis file has it).
+        Top-level values; a dict value is a ``[section]`` table, except ``frames``.
     header : str
         Comment lines put first.
+
+    Raises
+    ------
+    dic.errors.InputError
+        A value the analysis file cannot hold (None, NaN, infinity, other objects).
     """
-    lines = [f"# {h}" for h in header.splitlines()] if header else []
-    for k, v in data.items():
-        if not isinstance(v, dict) or k == "frames":
-            lines.append(f"{k} = {_value(v)}")
-    for k, v in data.items():
-        if isinstance(v, dict) and k != "frames":
-            lines += ["", f"[{k}]"] + [f"{q} = {_value(w)}" for q, w in v.items()]
-    return "\n".join(lines) + "\n"
+    return tomlfile.toml_text(data, header, inline=("frames",), finite=True,
+                              what="analysis file")
 
 
 # --------------------------------------------------------------------------------------------
@@ -238,7 +221,7 @@ class SetupData:
     def save(self, roi: dict, scale_line=None, length_mm=None, settings=None,
              overwrite=False) -> dict:
         """Write the analysis file (and the mask image when the region has holes)."""
-        from dic.files import atomic_write
+        from dic.files import write_text
         from dic.images.io import write_image
 
         if self.out.exists() and not overwrite:
@@ -250,7 +233,6 @@ class SetupData:
             write_image(self.out.parent / MASK_NAME, mask.astype(np.uint8) * 255, bits=8)
         text = toml_text(data, header="analysis file written by the set-up page of 'dic view'"
                                       "\nrun it with: dic run --config " + self.out.name)
-        with atomic_write(self.out, encoding="utf-8") as fh:
-            fh.write(text)
+        write_text(self.out, text, label=None)
         self.base = tomllib.loads(text)
         return {"written": self.out.name, "text": text}

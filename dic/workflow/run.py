@@ -9,7 +9,7 @@ from __future__ import annotations
 import logging
 from pathlib import Path
 
-from dic.files import atomic_write
+from dic.files import write_json
 
 __all__ = ["finish", "tensile_outputs", "settings_self_check", "gauge_lines", "axial_component"]
 
@@ -132,8 +132,6 @@ def _noise_floor(results_path, out_dir, settings, written):
     ``noise_floor.json`` beside the results (None without such images)."""
     if not settings.get("noise"):
         return None
-    import json
-
     from dic.images.io import list_images
     from dic.metrology import noise_floor
     from dic.sequence.tracker import load_results, resolve_images
@@ -148,11 +146,9 @@ def _noise_floor(results_path, out_dir, settings, written):
                         measure=strain.get("measure", "green-lagrange"),
                         shape_function=st.get("shape_function", "affine"),
                         interpolation=st.get("interpolation", "quintic"))
-    target = Path(out_dir) / "noise_floor.json"
-    text = json.dumps(floor.as_dict(), indent=2, default=str)
-    with atomic_write(target, encoding="utf-8") as fh:
-        fh.write(text)
-    written["noise_floor"] = target
+    # strict JSON: a value that could not be measured (NaN) is written as null
+    written["noise_floor"] = write_json(Path(out_dir) / "noise_floor.json", floor.as_dict(),
+                                        label="out_dir")
     return floor
 
 
