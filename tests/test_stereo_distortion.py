@@ -1,10 +1,14 @@
-"""Lens-distortion correction of one camera (dic.stereo.undistort) on exactly rendered images.
+"""Lens-distortion correction of one camera (dic.stereo.undistort): the inverse of the lens model
+against OpenCV, and on exactly rendered images.
 
-A flat speckled plate faces a camera with strong barrel distortion and slides rigidly in its own
-plane. Through an ideal pinhole camera the image would move by the same amount everywhere (zero
-strain; common practice, no source); the lens adds false strain toward the corners. Oracles:
-the camera the images were rendered with, OpenCV's ``undistortPoints`` as reference library,
-and zero strain of a rigid motion.
+``undistort_points`` is checked against ``cv2.undistortPoints`` (reference library, same camera
+matrix and coefficients k1 k2 p1 p2 k3) on a grid reaching the image corners, and by a round
+trip through the forward model (distort, then undistort). A flat speckled plate faces a camera
+with strong barrel distortion and slides rigidly in its own plane. Through an ideal pinhole
+camera the image would move by the same amount everywhere (zero strain; common practice, no
+source); the lens adds false strain toward the corners. Oracles: OpenCV's ``undistortPoints``
+and ``projectPoints``, the camera the images were rendered with, and zero strain of a rigid
+motion.
 """
 
 from __future__ import annotations
@@ -17,7 +21,8 @@ cv2 = pytest.importorskip("cv2")
 import dic  # noqa: E402
 from dic.errors import InputError  # noqa: E402
 from dic.stereo import calibrate, undistort_displacements, undistort_points  # noqa: E402
-from dic.stereo.camera import Camera, rotation_matrix  # noqa: E402
+from dic.stereo.camera import Camera  # noqa: E402
+from dic.stereo.undistort import distort  # noqa: E402
 from dic.stereo.render import (Plate, render_chessboard, render_surface,  # noqa: E402
                                surface_speckle, target_poses)
 
@@ -52,12 +57,89 @@ def test_undistort_points_inverts_the_camera_model():
     seen = CAM.project(P)
     ideal = Camera(K, np.zeros(5), CAM.size).project(P)
     xu, yu = undistort_points(seen[:, 0], seen[:, 1], CAM)
-    # exact pinhole projection of the same points (cv2.undistortPoints run to convergence)
+    # exact pinhole projection of the same points (the camera they were projected with)
     np.testing.assert_allclose(np.column_stack([xu, yu]), ideal, atol=1e-6)
     xn, yn = undistort_points(np.array([np.nan, 10.0]), np.array([1.0, 20.0]), CAM)
     assert np.isnan(xn[0]) and np.isfinite(xn[1])
     with pytest.raises(InputError, match="matrix"):
         undistort_points(xu, yu, object())
+
+
+# a wide lens (f = 400 px on 400 x 300 px: corners at normalised radius 0.63) with every
+# coefficient of the model: barrel and pincushion, tangential terms, k3
+LENSES = [
+    ("barrel", [-0.25, 0.08, 0.0, 0.0, 0.0]),
+    ("barrel, tangential, k3", [-0.3, 0.12, 1.2e-3, -2.0e-3, -0.02]),
+    ("pincushion, tangential, k3", [0.15, -0.05, -1.5e-3, 1.0e-3, 0.01]),
+]
+KW = np.array([[400.0, 0.0, 203.5], [0.0, 404.0, 148.0], [0.0, 0.0, 1.0]])
+
+
+def _image_grid(size=(400, 300), n=(41, 31)):
+    """Points over the whole image, its four corner pixels and border included."""
+    gx, gy = np.meshgrid(np.linspace(0, size[0] - 1, n[0]), np.linspace(0, size[1] - 1, n[1]))
+    return gx.ravel(), gy.ravel()
+
+
+@pytest.mark.parametrize("name,dist", LENSES, ids=[n for n, _ in LENSES])
+def test_undistort_points_agrees_with_opencv(name, dist):
+    x, y = _image_grid()
+    d = np.array(dist)
+    cam = Camera(KW, d, (400, 300))
+    pts = np.stack([x, y], -1).reshape(-1, 1, 2)
+    # OpenCV's fixed-point inverse, run to convergence (its default of five iterations leaves
+    # errors of up to tenths of a pixel in these corners): stop at 1e-14 px or 1000 iterations
+    crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 1000, 1e-14)
+    px = cv2.undistortPoints(pts, KW, d, None, None, KW, crit).reshape(-1, 2)
+    nm = cv2.undistortPoints(pts, KW, d, None, None, None, crit).reshape(-1, 2)
+    assert np.abs(px - np.column_stack([x, y])).max() > 1.0     # the corners do move
+    xu, yu = undistort_points(x, y, cam)
+    xn, yn = undistort_points(x, y, cam, normalised=True)
+    # reference library: cv2.undistortPoints, pixel output (P = camera matrix). Both iterate to
+    # the same root to ~1e-12 px (measured: 1.1e-13 px apart); 1e-9 px leaves room for rounding
+    # and is a thousand times below any matching error
+    np.testing.assert_allclose(np.column_stack([xu, yu]), px, rtol=0, atol=1e-9)
+    # reference library: cv2.undistortPoints, normalised output (P = None); 1e-9 px / f
+    np.testing.assert_allclose(np.column_stack([xn, yn]), nm, rtol=0, atol=1e-9 / 400)
+
+
+@pytest.mark.parametrize("name,dist", LENSES, ids=[n for n, _ in LENSES])
+def test_undistort_points_round_trip(name, dist):
+    # ideal normalised points over the ideal view (beyond the image's corners for barrel lenses)
+    gx, gy = np.meshgrid(np.linspace(-0.6, 0.6, 37), np.linspace(-0.45, 0.45, 29))
+    x, y = gx.ravel(), gy.ravel()
+    K = KW.copy()
+    K[0, 1] = 0.7                                   # a skewed matrix: the project's model has it
+    cam = Camera(K, dist, (400, 300))
+    P = np.column_stack([x, y, np.ones_like(x)]) * 250.0
+    seen = cam.project(P)
+    # the projection is OpenCV's forward model (cv2.projectPoints on the unskewed matrix; the
+    # skew term fx xd + skew yd + cx is added by hand, OpenCV's matrix convention)
+    ref, _ = cv2.projectPoints(P, np.zeros(3), np.zeros(3), KW, np.array(dist))
+    xd, yd = distort(x, y, dist)
+    np.testing.assert_allclose(seen[:, 0], ref[:, 0, 0] + 0.7 * yd, rtol=0, atol=1e-9)
+    np.testing.assert_allclose(seen[:, 1], ref[:, 0, 1], rtol=0, atol=1e-9)
+    # distort then undistort gives the ideal point back (round trip through the project's own
+    # forward model; Newton stops at steps below 1e-14, about 1e-11 px)
+    xn, yn = undistort_points(seen[:, 0], seen[:, 1], cam, normalised=True)
+    np.testing.assert_allclose(np.column_stack([xn, yn]), np.column_stack([x, y]), rtol=0,
+                               atol=1e-12)
+    xu, yu = undistort_points(seen[:, 0], seen[:, 1], cam)
+    ideal = Camera(K, np.zeros(5), cam.size).project(P)
+    np.testing.assert_allclose(np.column_stack([xu, yu]), ideal, rtol=0, atol=1e-9)
+    # the camera's rays use the same inverse: the ray of a projected point passes through it
+    o, dvec = cam.rays(seen[:, 0], seen[:, 1])
+    np.testing.assert_allclose(o + 250.0 * dvec / dvec[:, 2:], P, rtol=0, atol=1e-9)
+
+
+def test_undistort_points_refuses_a_folding_model():
+    # k1 = -2: the distorted radius r (1 - 2 r^2) peaks at 0.27 (calculus), so the image
+    # corners (distorted radius 0.36 with f = 700 px) have no ideal point
+    cam = Camera(K, [-2.0, 0.0, 0.0, 0.0, 0.0], (400, 300))
+    with pytest.raises(InputError, match="distortion"):
+        undistort_points(np.array([0.0, 203.0]), np.array([0.0, 151.0]), cam)
+    with pytest.raises(InputError, match="same shape"):
+        undistort_points(np.zeros(3), np.zeros(2), CAM)
 
 
 def test_distortion_correction_removes_false_strain():
@@ -76,6 +158,12 @@ def test_distortion_correction_removes_false_strain():
     raw = local_strain(X, Y, f.u, f.v)
     fixed = local_strain(*undistort_displacements(X, Y, f.u, f.v, cal.cameras[0]))
     exact = local_strain(*undistort_displacements(X, Y, f.u, f.v, CAM))
+    # the reference grid undistorted once and passed in (as a sequence does) changes nothing
+    # (the same computation in another order; common practice, no source)
+    ref_grid = undistort_points(X, Y, cal.cameras[0])
+    again = undistort_displacements(X, Y, f.u, f.v, cal.cameras[0], reference=ref_grid)
+    for a, b in zip(again, undistort_displacements(X, Y, f.u, f.v, cal.cameras[0])):
+        np.testing.assert_array_equal(a, b)
     for name, e in (("no correction", raw), ("calibrated", fixed), ("true lens", exact)):
         print(f"{name:14s} false strain rms {np.sqrt(np.mean(e**2)) * 1e6:8.1f} µε, "
               f"95 % {np.percentile(np.abs(e), 95) * 1e6:8.1f} µε, "

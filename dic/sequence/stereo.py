@@ -223,7 +223,7 @@ def _lens(results, cal, strain):
     comps = {c: np.full((n, ny, nx), np.nan) for c in ("xx", "yy", "xy")}
     for j in range(n):
         f = results.field(j)
-        _, _, U[j], V[j] = undistort_displacements(X, Y, f.u, f.v, fit)
+        _, _, U[j], V[j] = undistort_displacements(X, Y, f.u, f.v, fit, reference=(xu, yu))
         s = corrected_strain(f, xu, yu, U[j], V[j], window=window, measure=measure)
         comps["xx"][j], comps["yy"][j], comps["xy"][j] = s.xx, s.yy, s.xy
     attrs = {"strain_kind": "lens-corrected", "units": "px (ideal pinhole camera)"}

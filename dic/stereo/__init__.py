@@ -3,14 +3,15 @@
 Modules
 -------
 camera
-    Pinhole camera with OpenCV's distortion model: projection, rays, exact undistortion.
+    Pinhole camera with OpenCV's distortion model: projection and rays.
 calibration
     :func:`calibrate` from chessboard photographs (OpenCV), the :class:`Calibration` result.
 calfile
     The calibration file (TOML of our own layout): :func:`save_calibration`,
     :func:`load_calibration`.
 undistort
-    Measured points and displacements corrected for lens distortion.
+    The lens-distortion model and its inverse (:func:`undistort_points`, the one place
+    distortion is removed); measured displacements corrected for lens distortion.
 match
     The left reference grid matched into the right image (epipolar starting guess, or paired
     keypoints for large perspective changes) and into a deformed pair.

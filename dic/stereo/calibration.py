@@ -41,7 +41,7 @@ class CameraFit:
     matrix : ndarray, shape (3, 3)
         ``[[fx, 0, cx], [0, fy, cy], [0, 0, 1]]``, pixels.
     distortion : ndarray, shape (5,)
-        ``(k1, k2, p1, p2, k3)`` (OpenCV's model, see :mod:`dic.stereo.camera`).
+        ``(k1, k2, p1, p2, k3)`` (OpenCV's model, see :mod:`dic.stereo.undistort`).
     size : (int, int)
         Image ``(width, height)``.
     rms : float

@@ -90,10 +90,7 @@ def plane_points(calibration, x, y):
         raise InputError("calibration: the specimen plane is not known; locate it from a "
                          "target photograph lying on the specimen (dic.stereo.locate_plane)")
     R, T = (np.asarray(a, float) for a in calibration.plane)
-    K = calibration.cameras[0].matrix
-    xu, yu = undistort_points(x, y, calibration.cameras[0])
-    yn = (yu - K[1, 2]) / K[1, 1]
-    xn = (xu - K[0, 2] - K[0, 1] * yn) / K[0, 0]
+    xn, yn = undistort_points(x, y, calibration.cameras[0], normalised=True)
     d = np.stack([xn, yn, np.ones_like(xn)], -1)
     n = R[:, 2]
     with np.errstate(invalid="ignore", divide="ignore"):

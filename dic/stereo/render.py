@@ -1,10 +1,10 @@
 """Exact images of a speckled surface and of chessboard targets seen through posed cameras.
 
-For tests and the sample. For every pixel the camera's ray (distortion inverted exactly, see
-:mod:`dic.stereo.camera`) is intersected with the specimen surface in its deformed state; the hit
-is mapped back to the surface's material coordinates ``(s1, s2)`` (mm on the reference surface),
-where the analytic speckle of :mod:`dic.images.synth` is evaluated. No stored image is
-interpolated. Speckle pixels are point samples at the pixel centres, as in
+For tests and the sample. For every pixel the camera's ray (distortion inverted to rounding,
+:func:`dic.stereo.undistort.undistort_points`) is intersected with the specimen surface in its
+deformed state; the hit is mapped back to the surface's material coordinates ``(s1, s2)`` (mm on
+the reference surface), where the analytic speckle of :mod:`dic.images.synth` is evaluated. No
+stored image is interpolated. Speckle pixels are point samples at the pixel centres, as in
 :func:`dic.images.synth.render`; chessboard pixels are averaged over a square of sub-samples
 where an edge passes, so the targets are anti-aliased.
 

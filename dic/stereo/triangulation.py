@@ -27,16 +27,6 @@ __all__ = ["triangulate", "ray_gap", "grid_points", "StereoReason", "MAX_VIEW_AN
 MAX_VIEW_ANGLE = 45.0
 
 
-def _normalised(x, y, fit):
-    from dic.stereo.undistort import undistort_points
-
-    xu, yu = undistort_points(x, y, fit)
-    K = fit.matrix
-    yn = (yu - K[1, 2]) / K[1, 1]
-    xn = (xu - K[0, 2] - K[0, 1] * yn) / K[0, 0]
-    return xn, yn
-
-
 def ray_gap(xl, yl, xr, yr, R, T):
     """Closest distance (mm) between the rays of normalised points in the two cameras.
 
@@ -86,6 +76,8 @@ def triangulate(calibration, xl, yl, xr, yr):
     """
     import cv2
 
+    from dic.stereo.undistort import undistort_points
+
     if not getattr(calibration, "stereo", False):
         raise InputError("triangulation needs a two-camera calibration; calibrate with "
                          "right_images as well")
@@ -99,8 +91,8 @@ def triangulate(calibration, xl, yl, xr, yr):
     gap = np.full(xl.size, np.nan)
     ok = np.isfinite(xl) & np.isfinite(yl) & np.isfinite(xr) & np.isfinite(yr)
     if ok.any():
-        nl = _normalised(xl[ok], yl[ok], calibration.cameras[0])
-        nr = _normalised(xr[ok], yr[ok], calibration.cameras[1])
+        nl = undistort_points(xl[ok], yl[ok], calibration.cameras[0], normalised=True)
+        nr = undistort_points(xr[ok], yr[ok], calibration.cameras[1], normalised=True)
         P1 = np.hstack([np.eye(3), np.zeros((3, 1))])
         P2 = np.hstack([R, T.reshape(3, 1)])
         h = cv2.triangulatePoints(P1, P2, np.vstack(nl), np.vstack(nr))
