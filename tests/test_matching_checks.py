@@ -50,16 +50,22 @@ def _fourier_shift(img, dx, dy):
     return np.real(np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(img), (dy, dx))))
 
 
-@pytest.mark.parametrize("name, lo, hi", [("gravel", 0.5, 0.9), ("grass", 0.5, 0.9),
-                                          ("coins", 0.5, 0.9), ("camera", 0.3, 1.5),
-                                          ("brick", 0.3, 1.5)])
-def test_posterior_sigma_is_calibrated_on_photographs(name, lo, hi):
+@pytest.mark.parametrize("name, noise, lo, hi", [
+    ("gravel", 0.0, 0.5, 0.9), ("gravel", 2.0, 0.5, 0.9), ("grass", 0.0, 0.5, 0.9),
+    ("grass", 2.0, 0.5, 0.9), ("coins", 0.0, 0.5, 0.9), ("coins", 2.0, 0.5, 0.9),
+    ("camera", 0.0, 0.5, 0.9), ("camera", 2.0, 0.5, 0.9), ("astronaut", 0.0, 0.5, 0.9),
+    ("astronaut", 2.0, 0.5, 0.9), ("moon", 0.0, 0.5, 0.9), ("brick", 0.0, 0.5, 0.9),
+    ("brick", 2.0, 0.3, 1.5)])
+def test_posterior_sigma_is_calibrated_on_photographs(name, noise, lo, hi):
     skdata = pytest.importorskip("skimage.data")
-    img = getattr(skdata, name)().astype(float)
+    img = getattr(skdata, name)()
+    if img.ndim == 3:
+        img = img @ np.array([0.299, 0.587, 0.114])
+    img = img.astype(float)
     rng = np.random.default_rng(5)
-    dx, dy = 0.37, -0.61
-    ref = img + rng.normal(0, 2.0, img.shape)
-    dfm = _fourier_shift(img, dx, dy) + rng.normal(0, 2.0, img.shape)
+    dx, dy = 0.25, 0.2
+    ref = img + rng.normal(0, noise, img.shape)
+    dfm = _fourier_shift(img, dx, dy) + rng.normal(0, noise, img.shape)
     h, w = img.shape
     f = dic.correlate(ref, dfm, subset=21, step=8, roi=(40, 40, w - 80, h - 80))
     ok = f.valid
@@ -68,9 +74,11 @@ def test_posterior_sigma_is_calibrated_on_photographs(name, lo, hi):
     r = np.concatenate([np.abs(f.u - dx)[ok] / f.std_u[ok],
                         np.abs(f.v - dy)[ok] / f.std_v[ok]])
     # a calibrated standard deviation of a normal error gives median |e| / sigma = 0.674
-    # (normal distribution); the project issue's calibration target is 0.5-0.9 and its bar on
-    # real photographs 0.3-1.5 (camera and brick: about 1.0-1.1, the residual misses some error
-    # of the smooth, structured parts)
+    # (normal distribution); the project issue's calibration target is 0.5-0.9, with and
+    # without noise. Without noise the error is the interpolation's bias, which the residual
+    # does not show (1.7-2.9 without the bias term, dic.matching.interpolation_bias). Brick
+    # with noise: about 0.98 (the residual misses some error of its faint texture), held to
+    # the bar for real photographs, 0.3-1.5.
     assert lo <= np.median(r) <= hi
 
 

@@ -121,8 +121,11 @@ def test_sigma_is_nan_where_not_measured_and_follows_a_given_noise():
     assert np.all(np.isnan(f.std_u[~f.valid])) and np.all(np.isnan(f.std_v[~f.valid]))
     assert np.all(np.isfinite(f.std_u[f.valid])) and (~f.valid).any()
     g = dic.correlate(ref, dfm, subset=21, step=10, image_noise=(0.0, 0.0))
-    # no noise, no predicted scatter
-    assert np.all(g.std_u[g.valid] == 0.0)
+    # no noise, no predicted scatter: what is left is the interpolation's predicted bias
+    # (dic.matching.interpolation_bias), small on smooth speckle at a 0.3 px shift but not 0
+    assert np.all((g.std_u[g.valid] > 0.0) & (g.std_u[g.valid] < 0.005))
+    both = f.valid & g.valid
+    assert np.all(g.std_u[both] < 0.25 * f.std_u[both])
     with pytest.raises(ValueError, match="image_noise"):
         dic.correlate(ref, dfm, subset=21, step=10, image_noise=-1)
 
