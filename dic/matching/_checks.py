@@ -180,6 +180,7 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
     .. [1] J. Westerweel, F. Scarano, "Universal outlier detection for PIV data", Experiments
        in Fluids 39 (2005) 1096-1100.
     """
+    from dic.images.parallel import run_chunks
     from dic.matching._median_kernel import median_outliers
 
     valid = np.asarray(valid, bool)
@@ -194,9 +195,9 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
     x, y = f64(x), f64(y)
     for i, comp in enumerate((u, v)):
         a = np.ascontiguousarray(np.where(valid, comp, np.nan))
-        median_outliers(x, y, a, f64(g[..., i, 0]), f64(g[..., i, 1]), f64(g2[..., i, 0]),
-                        f64(g2[..., i, 1]), f64(g2[..., i, 2]), valid, float(eps),
-                        float(threshold), int(min_neighbours), out)
+        run_chunks(median_outliers, ny, x, y, a, f64(g[..., i, 0]), f64(g[..., i, 1]),
+                   f64(g2[..., i, 0]), f64(g2[..., i, 1]), f64(g2[..., i, 2]), valid,
+                   float(eps), float(threshold), int(min_neighbours), out, min_chunk=8)
     return out
 
 

@@ -31,10 +31,11 @@ def median_of(a, k):
     return a[k // 2] if k % 2 else 0.5 * (a[k // 2 - 1] + a[k // 2])
 
 
-@njit(cache=True)
-def median_outliers(x, y, a, ax, ay, axx, axy, ayy, valid, eps, threshold, min_neighbours,
-                    out):
-    """Set ``out`` True at the points that fail the test for one displacement component.
+@njit(cache=True, nogil=True)
+def median_outliers(lo, hi, x, y, a, ax, ay, axx, axy, ayy, valid, eps, threshold,
+                    min_neighbours, out):
+    """Set ``out`` True at the points of rows lo..hi-1 that fail the test for one displacement
+    component (rows apart run in parallel threads: each writes only its own rows).
 
     ``a`` is the component, ``ax, ay`` its first and ``axx, axy, ayy`` its second derivatives
     (zero where absent), all (ny, nx). Each measured neighbour predicts the point's value
@@ -44,7 +45,7 @@ def median_outliers(x, y, a, ax, ay, axx, axy, ayy, valid, eps, threshold, min_n
     full = ny >= 3 and nx >= 3
     pred = np.empty(8)
     res = np.empty(8)
-    for r in range(ny):
+    for r in range(lo, hi):
         for c in range(nx):
             if not valid[r, c]:
                 continue
