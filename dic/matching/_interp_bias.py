@@ -96,11 +96,25 @@ def _response(order, w, t):
     return s * np.exp(-1j * w[:, None] * t[None, :]) / b.real[:, None]
 
 
-def _even_filter(w, response):
-    """Taps of the even filter (2 _L + 1) whose frequency response fits ``response``."""
-    basis = np.column_stack([np.ones(w.size), 2.0 * np.cos(np.outer(w, np.arange(1, _L + 1)))])
-    c = np.linalg.lstsq(basis, response, rcond=None)[0]
-    return np.ascontiguousarray(np.concatenate([c[:0:-1], c]))
+def _even_filter(w, response, lowest):
+    """Taps (2 _L + 1) of the even filter whose frequency response fits ``response``, built
+    from the powers ``lowest`` to ``_L`` of the second difference [-1, 2, -1] (response
+    ``2 - 2 cos w``): it passes nothing at low frequencies to order ``w^(2 lowest)``, where
+    image power is largest and a small ripple of a free fit would swamp the result. The error
+    is weighted so that the small response away from the sampling limit matters as much as
+    the large one near it."""
+    ks = np.arange(lowest, _L + 1)
+    basis = np.column_stack([(2.0 - 2.0 * np.cos(w)) ** k for k in ks])
+    wt = 1.0 / (np.abs(response) + 0.02)
+    c = np.linalg.lstsq(basis * wt[:, None], response * wt, rcond=None)[0]
+    taps = np.zeros(2 * _L + 1)
+    for ck, k in zip(c, ks):
+        f = np.array([1.0])
+        for _ in range(k):
+            f = np.convolve(f, [-1.0, 2.0, -1.0])
+        m = (taps.size - f.size) // 2
+        taps[m:m + f.size] += ck * f
+    return taps
 
 
 @functools.lru_cache(maxsize=None)
@@ -119,7 +133,8 @@ def _model(order):
     # nearly sin(2 pi t): for the quintic 1.013, -0.069, 0.014 (the rest below 0.5 %)
     j = np.arange(1, _HARMONICS + 1)
     coef = 2.0 * (a[:-1, None] * np.sin(2.0 * np.pi * np.outer(t[:-1], j))).mean(0)
-    q = _even_filter(w, np.sqrt(np.maximum(shape, 0.0)))
+    # sqrt(D) goes as w^4 at low frequencies (quintic; cubic as w^3)
+    q = _even_filter(w, np.sqrt(np.maximum(shape, 0.0)), 2)
     return q, np.ascontiguousarray(coef)
 
 
