@@ -139,16 +139,6 @@ def _model(order):
 
 
 @njit(cache=True, nogil=True)
-def _mirror(k, n):
-    """Index ``k`` mirrored into ``[0, n)`` (whole-sample symmetry)."""
-    if k < 0:
-        return -k
-    if k >= n:
-        return 2 * n - 2 - k
-    return k
-
-
-@njit(cache=True, nogil=True)
 def _mean_sine(coef, t0, gx_, gy_, n):
     """Mean of A(t) = sum_j coef[j-1] sin(2 pi j t) over the n x n pixels of a subset whose
     fractional position is ``t0 + gx_ dx + gy_ dy`` (dx, dy = -h..h): each harmonic's mean is
@@ -176,28 +166,26 @@ def _bias_kernel(lo, hi, gx, gy, px, py, params, iu, iv, half, q, a, sub, out):
     for k in range(lo, hi):
         x0 = px[k]
         y0 = py[k]
-        inside = (x0 - half - _L >= 0 and x0 + half + _L < cols and y0 - half - _L >= 0
-                  and y0 + half + _L < rows)
         su = 0.0
         sx = 0.0
         sv = 0.0
         sy = 0.0
         for j in range(-half, half + 1, sub):
             r = y0 + j
+            if r < _L or r >= rows - _L:
+                continue
             for i in range(-half, half + 1, sub):
                 c = x0 + i
+                # pixels whose filter reaches past the image border are left out
+                if c < _L or c >= cols - _L:
+                    continue
                 # the gradients filtered along x (for u) and along y (for v); the tap count
-                # is a compile-time constant, so the loops unroll
+                # is a compile-time constant, so the loop unrolls
                 fx = 0.0
                 fy = 0.0
-                if inside:
-                    for m in range(2 * _L + 1):
-                        fx += q[m] * gx[r, c + m - _L]
-                        fy += q[m] * gy[r + m - _L, c]
-                else:
-                    for m in range(2 * _L + 1):
-                        fx += q[m] * gx[r, _mirror(c + m - _L, cols)]
-                        fy += q[m] * gy[_mirror(r + m - _L, rows), c]
+                for m in range(2 * _L + 1):
+                    fx += q[m] * gx[r, c + m - _L]
+                    fy += q[m] * gy[r + m - _L, c]
                 su += fx * fx
                 sx += gx[r, c] * gx[r, c]
                 sv += fy * fy
