@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["edge_distance", "edge_bias", "EDGE_SHARE"]
+__all__ = ["edge_distance", "edge_bias", "near_border", "EDGE_SHARE"]
 
 #: largest displacement error of a subset touching the image border (px): measured on exact
 #: speckle images (2.5 px and 1.5 px speckles, 21 px subsets, no noise, translations and a 1 %
@@ -94,3 +94,43 @@ def edge_bias(distance, order: int) -> np.ndarray:
     d = np.asarray(distance, dtype=np.float64)
     b = EDGE_BIAS_PX * _POLE[int(order)] ** np.clip(d, 0.0, None)
     return np.where(d < edge_margin(int(order)), b, 0.0)
+
+
+def near_border(prop, good, su, sv, order):
+    """Matches whose deformed subset reaches into the image's edge margin: kept where the
+    interpolation error there is small against their own random error (then included in their
+    standard deviations), OUTSIDE_IMAGE where it is not. ``prop`` is the propagation state of
+    :func:`dic.correlate` (its matcher, points, parameters and per-point states, which this
+    updates). Returns (std_u, std_v)."""
+    from dic.field import Reason
+    from dic.matching._icgn import edge_margin, index_u_v
+
+    idx = np.flatnonzero(good)
+    # a cheap lower bound on the distance first: the warped centre less the subset's reach
+    p = prop.params[idx]
+    iu, iv = index_u_v(p.shape[1] == 12)
+    h = float(prop.m.half)
+    reach = h * (1.0 + np.abs(p[:, [iu + 1, iu + 2, iv + 1, iv + 2]]).sum(axis=1))
+    if p.shape[1] == 12:
+        reach += h * h * np.abs(p[:, [iu + 3, iu + 4, iu + 5, iv + 3, iv + 4, iv + 5]]).sum(axis=1)
+    xc, yc = prop.px[idx] + p[:, iu], prop.py[idx] + p[:, iv]
+    rows, cols = prop.m.reference.shape
+    lower = np.minimum(np.minimum(xc, cols - 1.0 - xc), np.minimum(yc, rows - 1.0 - yc)) - reach
+    idx = idx[lower < edge_margin(order)]
+    if idx.size == 0:
+        return su, sv
+    d = edge_distance(prop.px[idx], prop.py[idx], prop.params[idx], prop.m.half,
+                      prop.m.reference.shape)
+    b = edge_bias(d, order)
+    near = b > 0
+    if not near.any():
+        return su, sv
+    k = idx[near]
+    b = b[near]
+    out = ~(b <= EDGE_SHARE * np.fmin(su[k], sv[k]))
+    prop.state[k[out]] = prop.w.BAD
+    prop.reason[k[out]] = Reason.OUTSIDE_IMAGE
+    su, sv = su.copy(), sv.copy()
+    su[k] = np.hypot(su[k], b)
+    sv[k] = np.hypot(sv[k], b)
+    return su, sv
