@@ -736,7 +736,6 @@ def _finish(prop, shape_order, noise, order, max_sigma, integer=False):
         m = prop.m
         b = interpolation_bias(m.gx, m.gy, prop.px[idx], prop.py[idx], prop.params[idx],
                                m.half, order, prop.params.shape[1] == 12)
-        su, sv = su.copy(), sv.copy()
         su[idx] = np.hypot(su[idx], BIAS_SCALE * b[:, 0])
         sv[idx] = np.hypot(sv[idx], BIAS_SCALE * b[:, 1])
     su, sv = near_border(prop, good, su, sv, order)

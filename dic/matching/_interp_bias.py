@@ -26,7 +26,6 @@ References
 from __future__ import annotations
 
 import functools
-from math import comb, factorial
 
 import numpy as np
 from numba import njit
@@ -43,15 +42,6 @@ _L = 5
 # pixels of the subset used for the sums: every _SUB-th row and column (a ratio of two sums
 # over the same pixels, which a ninth of them estimate well enough for an uncertainty term)
 _SUB = 3
-
-
-def _bspline(n, x):
-    """Centred B-spline of degree ``n`` at ``x`` (the truncated-power formula; Unser 1999)."""
-    x = np.asarray(x, dtype=np.float64)
-    out = np.zeros_like(x)
-    for j in range(n + 2):
-        out += (-1) ** j * comb(n + 1, j) * np.maximum(x + 0.5 * (n + 1) - j, 0.0) ** n
-    return out / factorial(n)
 
 
 def phase_error(order, w, t):
@@ -90,9 +80,11 @@ def phase_error(order, w, t):
 def _response(order, w, t):
     """Complex response ``H(w, t)`` of the interpolating B-spline sampled at fractional
     position ``t``, relative to the ideal ``exp(i w t)``; shape (len(w), len(t))."""
+    from dic.images.interp import bspline
+
     m = np.arange(-order - 2, order + 3)
-    s = (_bspline(order, t[None, :, None] + m) * np.exp(-1j * w[:, None, None] * m)).sum(-1)
-    b = (_bspline(order, m.astype(np.float64))[None, :] * np.exp(-1j * w[:, None] * m)).sum(-1)
+    s = (bspline(t[None, :, None] + m, order) * np.exp(-1j * w[:, None, None] * m)).sum(-1)
+    b = (bspline(m.astype(np.float64), order)[None, :] * np.exp(-1j * w[:, None] * m)).sum(-1)
     return s * np.exp(-1j * w[:, None] * t[None, :]) / b.real[:, None]
 
 

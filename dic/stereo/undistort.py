@@ -107,15 +107,14 @@ def _newton(xd, yd, dist):
         fx = x * s + 2 * p1 * x * y + p2 * (r2 + 2 * x * x) - xd
         fy = y * s + p1 * (r2 + 2 * y * y) + 2 * p2 * x * y - yd
         a = s + 2 * x * x * ds + 2 * p1 * y + 6 * p2 * x
-        b = 2 * x * y * ds + 2 * p1 * x + 2 * p2 * y
-        c = 2 * x * y * ds + 2 * p1 * x + 2 * p2 * y
+        b = 2 * x * y * ds + 2 * p1 * x + 2 * p2 * y     # the Jacobian is symmetric
         d = s + 2 * y * y * ds + 6 * p1 * y + 2 * p2 * x
-        det = a * d - b * c
+        det = a * d - b * b
         if not np.all(det > 0):
             raise InputError("the distortion model folds over at some of these points; "
                              "check the distortion coefficients or keep to the image")
         dx = (d * fx - b * fy) / det
-        dy = (a * fy - c * fx) / det
+        dy = (a * fy - b * fx) / det
         x -= dx
         y -= dy
         if np.all(np.abs(dx) + np.abs(dy) < _NEWTON_TOL):
