@@ -22,6 +22,7 @@ from dic.matching._noise import image_noise, pair_noise
 from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
 from dic.matching._checks import affine_bias, median_test, posterior_sigma, translation_sigma
 from dic.matching._interp_bias import interpolation_bias, phase_error
+from dic.matching._rescue import retry_failed
 
 __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
            "edge_margin", "edge_distance", "edge_bias", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
@@ -595,6 +596,7 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
                 _unreached(prop, comp[prop.state[comp] == w.TODO])
         if not progress and not (prop.state == w.TODO).any():
             break
+    retry_failed(prop)
     _explain_unreached(prop, ref.shape)
 
 
