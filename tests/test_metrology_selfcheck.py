@@ -169,6 +169,13 @@ def test_self_check_on_a_tall_region_turns_the_wave(noisy):
     assert r.resolution_strain == pytest.approx(theory_strain(21, 5, 7), rel=0.15)
     fig = r.figure()
     assert fig.axes and fig.axes[0].get_xscale() == "log"
+    # too few grid lines to place a crossing: the summary says so in words, not "?nan px"
+    import dataclasses
+
+    unknown = dataclasses.replace(r, resolution_u=float("nan"), resolution_flags=("?", ""))
+    text = unknown.summary()
+    assert "nan" not in text and "?" not in text
+    assert "displacement not known (too few grid lines)" in text
 
 
 def test_self_check_bad_input(noisy):

@@ -209,6 +209,14 @@ def wave_response(scene, geometry, amplitude, f, strain, window):
     return np.array(periods), np.array(ru), np.array(re)
 
 
+def _period_text(flag, period):
+    """A resolution period with its flag from :func:`crossing` in words for plain text:
+    '<' and '>' as they are, 'not known' where too few grid lines gave none."""
+    if flag == "?" or not np.isfinite(period):
+        return "not known (too few grid lines)"
+    return f"{flag}{period:.0f} px"
+
+
 # --------------------------------------------------------------------------------------------
 # the result
 # --------------------------------------------------------------------------------------------
@@ -304,9 +312,9 @@ class SelfCheck:
             f"{sn['xy'] * 1e6:.0f} microstrain",
             f"  stretch {st['applied'][0]:.4f} / {st['applied'][1]:.4f}: strain bias xx "
             f"{st['bias'][0] * 1e6:.0f}, yy {st['bias'][1] * 1e6:.0f} microstrain",
-            f"  spatial resolution (10 % attenuation period): displacement {fu}"
-            f"{self.resolution_u:.0f} px (theory {self.theory_u:.0f}), strain {fe}"
-            f"{self.resolution_strain:.0f} px (theory {self.theory_strain:.0f})",
+            f"  spatial resolution (10 % attenuation period): displacement "
+            f"{_period_text(fu, self.resolution_u)} (theory {self.theory_u:.0f}), strain "
+            f"{_period_text(fe, self.resolution_strain)} (theory {self.theory_strain:.0f})",
             f"  metrological efficiency: displacement {self.mei_u:.3f} px^2 "
             f"({self.mei_u_per_noise:.4f} px^2 per grey level of noise), strain "
             f"{self.mei_strain:.2f} px^2",
