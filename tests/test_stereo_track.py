@@ -256,6 +256,17 @@ def test_one_camera_scale_from_the_specimen_plane(tmp_path):
     s_true = plane_scale(truth, 199.5, 149.5)
     s_cal = plane_scale(cal, 199.5, 149.5)
     assert abs(s_cal / s_true - 1) < 2e-3          # the bar for focal lengths: 0.2 %
+    # from positions already undistorted (cv2.undistortPoints, an independent inverse of the
+    # lens model) the plane positions are the same as from the measured pixels
+    from dic.stereo import plane_points
+
+    px = np.array([[20.5, 380.0, 203.0], [15.0, 290.0, 151.0]])
+    Kc, dc = np.asarray(cal.cameras[0].matrix), np.asarray(cal.cameras[0].distortion)
+    ideal = cv2.undistortPoints(px.T[:, None, :], Kc, dc, P=Kc,
+                                criteria=(cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS,
+                                          100, 1e-14)).reshape(-1, 2).T
+    np.testing.assert_allclose(plane_points(cal, ideal[0], ideal[1], undistorted=True),
+                               plane_points(cal, px[0], px[1]), atol=1e-6)   # mm
     sp = surface_speckle(90.0, blob_mm=1.1, pitch=0.2, seed=4)
     slide = np.array([4.0, 3.0])
     imgs = [render_surface(cam, Plate(origin, Rp), sp),

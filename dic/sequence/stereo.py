@@ -231,13 +231,10 @@ def _lens(results, cal, strain):
     if cal.plane is not None:            # millimetres on the specimen plane
         from dic.stereo.plane import plane_points
 
-        A0, B0 = plane_points(cal, X, Y)
-        arrays.update(X_mm=A0, Y_mm=B0, U_mm=np.full_like(U, np.nan),
-                      V_mm=np.full_like(V, np.nan))
-        for j in range(n):
-            f = results.field(j)
-            A, B = plane_points(cal, X + f.u, Y + f.v)
-            arrays["U_mm"][j], arrays["V_mm"][j] = A - A0, B - B0
+        # from the ideal pinhole positions already found: the lens model is inverted once
+        A0, B0 = plane_points(cal, xu, yu, undistorted=True)
+        A, B = plane_points(cal, xu + U, yu + V, undistorted=True)
+        arrays.update(X_mm=A0, Y_mm=B0, U_mm=A - A0, V_mm=B - B0)
     return arrays, attrs, comps, window, measure
 
 

@@ -69,7 +69,7 @@ def locate_plane(calibration, image):
     return dataclasses.replace(calibration, plane=(cv2.Rodrigues(rv)[0], tv.ravel()))
 
 
-def plane_points(calibration, x, y):
+def plane_points(calibration, x, y, *, undistorted=False):
     """Positions (mm) on the specimen plane of left-image pixels, in the target's own axes.
 
     Parameters
@@ -78,6 +78,10 @@ def plane_points(calibration, x, y):
         With ``plane`` (:func:`locate_plane`).
     x, y : array_like
         Pixel positions (NaN stays NaN).
+    undistorted : bool, optional
+        ``x, y`` are already ideal pinhole positions (from
+        :func:`dic.stereo.undistort_points` or :func:`dic.stereo.undistort_displacements`),
+        so the lens model is not inverted again.
 
     Returns
     -------
@@ -90,7 +94,13 @@ def plane_points(calibration, x, y):
         raise InputError("calibration: the specimen plane is not known; locate it from a "
                          "target photograph lying on the specimen (dic.stereo.locate_plane)")
     R, T = (np.asarray(a, float) for a in calibration.plane)
-    xn, yn = undistort_points(x, y, calibration.cameras[0], normalised=True)
+    camera = calibration.cameras[0]
+    if undistorted:
+        K = np.asarray(camera.matrix, float)
+        yn = (np.asarray(y, float) - K[1, 2]) / K[1, 1]
+        xn = (np.asarray(x, float) - K[0, 2] - K[0, 1] * yn) / K[0, 0]
+    else:
+        xn, yn = undistort_points(x, y, camera, normalised=True)
     d = np.stack([xn, yn, np.ones_like(xn)], -1)
     n = R[:, 2]
     with np.errstate(invalid="ignore", divide="ignore"):
