@@ -77,3 +77,20 @@ def test_flat_and_unreached_points_are_not_retried():
     assert retry_failed(prop) == 0
     assert prop.n_matched == n                 # no match was tried
     assert prop.reason[flat] == Reason.FLAT and prop.reason[unreached] == Reason.NOT_REACHED
+
+
+def test_vectorised_carry_over_equals_the_compiled_one():
+    # the Taylor expansion of the shape function about the neighbour (exact for polynomials of
+    # the shape function's order): the vectorised and compiled forms agree to rounding
+    from dic.matching._rescue import _carry
+    from dic.matching._waves import shift_params
+
+    rng = np.random.default_rng(3)
+    for second, npar in ((False, 6), (True, 12)):
+        p = rng.normal(0, 0.1, (5, npar))
+        ddx, ddy = rng.integers(-10, 11, 5).astype(float), rng.integers(-10, 11, 5).astype(float)
+        got = _carry(p, ddx, ddy, second)
+        for t in range(5):
+            want = np.empty(npar)
+            shift_params(p[t], ddx[t], ddy[t], second, want)
+            np.testing.assert_allclose(got[t], want, rtol=0, atol=1e-14)

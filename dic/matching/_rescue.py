@@ -24,11 +24,26 @@ _DR = (-1, 1, 0, 0, -1, -1, 1, 1)
 _DC = (0, 0, -1, 1, -1, 1, -1, 1)
 
 
+def _carry(p, ddx, ddy, second):
+    """Shape-function parameters ``p`` (n, 6 or 12) carried over ``(ddx, ddy)`` px (arrays of
+    n): the vectorised :func:`dic.matching._waves.shift_params`."""
+    out = p.copy()
+    for k in (0, 6) if second else (0, 3):
+        if second:
+            u, ux, uy, uxx, uxy, uyy = (p[:, k + a] for a in range(6))
+            out[:, k] = (u + ux * ddx + uy * ddy + 0.5 * uxx * ddx * ddx + uxy * ddx * ddy
+                         + 0.5 * uyy * ddy * ddy)
+            out[:, k + 1] = ux + uxx * ddx + uxy * ddy
+            out[:, k + 2] = uy + uxy * ddx + uyy * ddy
+        else:
+            out[:, k] = p[:, k] + p[:, k + 1] * ddx + p[:, k + 2] * ddy
+    return out
+
+
 def _guesses(prop, failed):
     """For each failed point, its matched 8-neighbours' shape functions carried over to it,
-    best-correlated neighbour first: a list, one (indices, guesses) pair per rank."""
-    from dic.matching._waves import shift_params
-
+    best-correlated neighbour first: a list, one (indices, guesses) pair per rank. Guesses
+    that would put the subset outside the image are left out."""
     ny, nx = prop.ny, prop.nx
     good = prop.state == prop.w.GOOD
     r, c = np.divmod(failed, nx)
@@ -44,18 +59,33 @@ def _guesses(prop, failed):
     order = np.argsort(-score, axis=1, kind="stable")
     nbr = np.take_along_axis(nbr, order, axis=1)
     ranks = []
-    npar = prop.params.shape[1]
     for rank in range(nbr.shape[1]):
         has = nbr[:, rank] >= 0
         if not has.any():
             break
         idx, src = failed[has], nbr[has, rank]
-        p0 = np.empty((idx.size, npar))
-        for t in range(idx.size):
-            shift_params(prop.params[src[t]], float(prop.px[idx[t]] - prop.px[src[t]]),
-                         float(prop.py[idx[t]] - prop.py[src[t]]), prop.m.second, p0[t])
-        ranks.append((idx, p0))
+        p0 = _carry(prop.params[src], (prop.px[idx] - prop.px[src]).astype(float),
+                    (prop.py[idx] - prop.py[src]).astype(float), prop.m.second)
+        keep = _inside(prop, idx, p0)
+        ranks.append((idx[keep], p0[keep]))
     return ranks
+
+
+def _inside(prop, idx, p0):
+    """True where the guess keeps the warped subset's corners inside the deformed image: a
+    guess that does not would fail at once (the match is then not tried)."""
+    from dic.matching._icgn import index_u_v
+
+    iu, iv = index_u_v(p0.shape[1] == 12)
+    rows, cols = prop.m.reference.shape
+    h = float(prop.m.half)
+    ok = np.ones(idx.size, bool)
+    for cx in (-h, h):
+        for cy in (-h, h):
+            xw = prop.px[idx] + cx + p0[:, iu] + p0[:, iu + 1] * cx + p0[:, iu + 2] * cy
+            yw = prop.py[idx] + cy + p0[:, iv] + p0[:, iv + 1] * cx + p0[:, iv + 2] * cy
+            ok &= (xw >= 0) & (xw <= cols - 1.0) & (yw >= 0) & (yw <= rows - 1.0)
+    return ok
 
 
 def retry_failed(prop):
@@ -65,13 +95,13 @@ def retry_failed(prop):
     points rescued."""
     w = prop.w
     rescued = 0
-    first_reason = {}
+    first_reason = np.full(prop.reason.shape, -1, np.int16)
     for _ in range(ROUNDS):
         failed = np.flatnonzero((prop.state == w.BAD) & np.isin(prop.reason, RETRY_REASONS))
         if failed.size == 0:
             break
-        for k in failed:
-            first_reason.setdefault(int(k), int(prop.reason[k]))
+        fresh = failed[first_reason[failed] < 0]
+        first_reason[fresh] = prop.reason[fresh]
         before = int(np.count_nonzero(prop.state == w.GOOD))
         for idx, p0 in _guesses(prop, failed):
             todo = prop.state[idx] == w.BAD
@@ -81,7 +111,6 @@ def retry_failed(prop):
         rescued += gained
         if gained == 0:
             break
-    for k, reason in first_reason.items():
-        if prop.state[k] != w.GOOD and prop.reason[k] != Reason.FLAT:
-            prop.reason[k] = reason
+    back = (first_reason >= 0) & (prop.state != w.GOOD) & (prop.reason != Reason.FLAT)
+    prop.reason[back] = first_reason[back]
     return rescued
