@@ -300,7 +300,8 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
     Starting guesses come from a zero-normalised FFT cross-correlation at one or more seed
     points, then spread by reliability-guided propagation: each point starts from its
     best-correlated matched neighbour. Propagation runs in parallel waves (all points bordering
-    the matched region at once), a parallel variant of the ZNCC-ordered queue of [3]_.
+    the matched region at once), a parallel variant of the ZNCC-ordered queue of [3]_. A point
+    whose match failed is tried again from each of its other matched neighbours.
 
     Parameters
     ----------
