@@ -49,7 +49,7 @@ def median_outliers(lo, hi, x, y, a, ax, ay, axx, axy, ayy, valid, eps, threshol
         for c in range(nx):
             if not valid[r, c]:
                 continue
-            k = 0
+            k = np.int64(0)   # typed int64 from the start: no extra compile for a literal 0
             for rr in range(max(r - 1, 0), min(r + 2, ny)):
                 for cc in range(max(c - 1, 0), min(c + 2, nx)):
                     if (rr == r and cc == c) or not valid[rr, cc]:

@@ -145,7 +145,7 @@ def fill_between(state, zncc, params, nx, ny, px, py, second, reach, stride, r0,
         q = idx[t]
         r = q // nx
         c = q - r * nx
-        k = 0
+        k = np.int64(0)   # typed int64 from the start: no extra compile for a literal 0
         for rr in range(max(r - reach, 0), min(r + reach + 1, ny)):
             for cc in range(max(c - reach, 0), min(c + reach + 1, nx)):
                 nb = rr * nx + cc
