@@ -664,17 +664,27 @@ def _second_order_where_curved(prop, shape_order, step, order, max_iterations, t
         # nowhere curved enough (the filtered bias below cannot exceed the largest raw one)
         return 0.0
     # second order pays where the bias exceeds both AUTO_BIAS and the first-order random
-    # error (its own random error is larger, ~1.5 x; common practice, no source)
-    su, sv = posterior_sigma(_subset_std(prop, good), prop.zncc, prop.unc,
-                             (2 * m.half + 1) ** 2, 6, order)
-    limit = np.fmax(AUTO_BIAS, 2.0 * np.fmax(su, sv))
-    # a neck's curvature spans several points, noise in the gradients does not: the median
-    # over each point's 3 x 3 neighbourhood keeps the one and drops the other
-    from scipy import ndimage
+    # error (its own random error is larger, ~1.5 x; common practice, no source). A neck's
+    # curvature spans several points, noise in the gradients does not: the median over each
+    # point's 3 x 3 neighbourhood (edges repeated) keeps the one and drops the other. The
+    # median of nine values exceeds a limit when at least five of them do, which is what is
+    # counted (first against AUTO_BIAS, the smallest limit, to find the candidates)
+    b = np.pad(np.where(np.isfinite(bias), bias, 0.0), 1, mode="edge")
 
-    b = np.where(np.isfinite(bias), bias, 0.0)
-    b = ndimage.median_filter(b, size=3, mode="nearest").ravel()
-    idx = np.flatnonzero(good & (b > limit))
+    def over(limit):
+        count = np.zeros(bias.shape, np.int8)
+        for dr in range(3):
+            for dc in range(3):
+                count += b[dr:dr + prop.ny, dc:dc + prop.nx] > limit
+        return (count >= 5).ravel()
+
+    idx = np.flatnonzero(good & over(AUTO_BIAS))
+    if idx.size:
+        su, sv = posterior_sigma(prop.std[idx], prop.zncc[idx], prop.unc[idx],
+                                 (2 * m.half + 1) ** 2, 6, order)
+        limit = np.full(good.size, np.inf)
+        limit[idx] = np.fmax(AUTO_BIAS, 2.0 * np.fmax(su, sv))
+        idx = np.flatnonzero(good & over(limit.reshape(bias.shape)))
     if idx.size == 0:
         return 0.0
     m2 = SubsetMatcher(m.reference, None, subset=2 * m.half + 1, second_order=True,

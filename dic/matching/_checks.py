@@ -25,22 +25,17 @@ def grid_derivative(a, spacing, axis):
     Central differences where both neighbours are finite, one-sided where only one is, NaN
     where neither is.
     """
-    a = np.asarray(a, dtype=np.float64)
-    a = np.moveaxis(a, axis, 0)
-    n = a.shape[0]
+    a = np.moveaxis(np.asarray(a, dtype=np.float64), axis, 0)
     out = np.full(a.shape, np.nan)
-    if n < 2:
-        return np.moveaxis(out, 0, axis)
-    fwd = np.full(a.shape, np.nan)
-    bwd = np.full(a.shape, np.nan)
-    fwd[:-1] = (a[1:] - a[:-1]) / spacing
-    bwd[1:] = (a[1:] - a[:-1]) / spacing
-    both = np.isfinite(fwd) & np.isfinite(bwd)
-    out[both] = 0.5 * (fwd[both] + bwd[both])
-    only_f = np.isfinite(fwd) & ~np.isfinite(bwd)
-    out[only_f] = fwd[only_f]
-    only_b = np.isfinite(bwd) & ~np.isfinite(fwd)
-    out[only_b] = bwd[only_b]
+    if a.shape[0] >= 2:
+        d = (a[1:] - a[:-1]) / spacing
+        ok = np.isfinite(d)
+        fwd, bwd = d[1:], d[:-1]                 # the two sides of the inner points
+        okf, okb = ok[1:], ok[:-1]
+        out[1:-1] = np.where(okf, np.where(okb, 0.5 * (fwd + bwd), fwd),
+                             np.where(okb, bwd, np.nan))
+        out[0] = np.where(ok[0], d[0], np.nan)
+        out[-1] = np.where(ok[-1], d[-1], np.nan)
     return np.moveaxis(out, 0, axis)
 
 
