@@ -441,10 +441,16 @@ def _check_array(source, name):
             f"{name} has {arr.ndim} dimension(s), shape {arr.shape}; pass a 2-D grey image "
             f"(rows, cols) or an RGB(A) image (rows, cols, 3 or 4)"
         )
-    if arr.ndim == 3:
-        bad = ~np.isfinite(arr[:, :, :3]).all(axis=2) if arr.dtype.kind == "f" else None
-    else:
-        bad = ~np.isfinite(arr) if arr.dtype.kind == "f" else None
+    bad = None
+    # a sum is finite when every pixel is (one pass, no mask); only when it is not (or the
+    # sum overflowed) are the pixels counted
+    with np.errstate(over="ignore", invalid="ignore"):
+        total = np.sum(arr, dtype=np.float64) if arr.dtype.kind == "f" else 0.0
+    if not np.isfinite(total):
+        if arr.ndim == 3:
+            bad = ~np.isfinite(arr[:, :, :3]).all(axis=2)
+        else:
+            bad = ~np.isfinite(arr)
     if bad is not None:
         n = int(np.count_nonzero(bad))
         if n:
