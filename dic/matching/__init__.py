@@ -580,12 +580,12 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
                 if prop.state[k] != w.TODO:
                     continue
                 if _try_seed(prop, k, ref, dfm, search, start=start):
-                    before = np.flatnonzero(prop.state == w.GOOD)
+                    before = prop.state == w.GOOD
                     prop.propagate(np.array([k], np.int64))
-                    grown = np.setdiff1d(np.flatnonzero(prop.state == w.GOOD), before)
-                    if grown.size + 1 < min(_MIN_ISLAND, comp.size):
+                    grown = np.count_nonzero(prop.state == w.GOOD) - np.count_nonzero(before)
+                    if grown + 1 < min(_MIN_ISLAND, comp.size):
                         # the seed's neighbours do not follow it: a false match; withdraw
-                        back = np.append(grown, k)
+                        back = np.append(np.flatnonzero((prop.state == w.GOOD) & ~before), k)
                         prop.state[back] = w.BAD
                         prop.reason[back] = Reason.NOT_REACHED
                         continue
