@@ -7,6 +7,7 @@ from scipy import ndimage
 import dic
 from dic.matching import interpolation_bias, phase_error
 from dic.matching._icgn import SubsetMatcher
+from shifting import fourier_shift
 
 
 def _fitted_phase(order, w, t):
@@ -43,11 +44,6 @@ def test_phase_error_matches_scipy_spline_interpolation(order):
     assert np.all(np.diff(np.abs(d[:, 1])) > 0)
 
 
-def _fourier_shift(img, dx, dy):
-    # exact sub-pixel translation of a periodic band-limited image (scipy.ndimage.fourier_shift)
-    return np.real(np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(img), (dy, dx))))
-
-
 @pytest.mark.parametrize("name", ["camera", "gravel", "moon"])
 def test_predicted_bias_follows_the_measured_bias(name):
     # Noise-free photographs shifted exactly (Fourier phase ramp): the measured error is the
@@ -58,9 +54,9 @@ def test_predicted_bias_follows_the_measured_bias(name):
     img = getattr(skdata, name)().astype(float)
     h, w = img.shape
     for dx, dy in [(0.25, 0.2), (0.75, 0.8)]:
-        f = dic.correlate(img, _fourier_shift(img, dx, dy), subset=21, step=8,
+        f = dic.correlate(img, fourier_shift(img, dx, dy), subset=21, step=8,
                           roi=(40, 40, w - 80, h - 80))
-        m = SubsetMatcher(img, _fourier_shift(img, dx, dy), subset=21, order=5)
+        m = SubsetMatcher(img, fourier_shift(img, dx, dy), subset=21, order=5)
         ok = f.valid.ravel()
         p = np.column_stack([f.u.ravel(), f.grad[..., 0, 0].ravel(), f.grad[..., 0, 1].ravel(),
                              f.v.ravel(), f.grad[..., 1, 0].ravel(),
@@ -106,7 +102,7 @@ def test_rounded_images_have_a_rounding_floor():
     img = skdata.moon().astype(float)
     dx, dy = 0.1, 0.05
     ref = np.round(img)
-    dfm = np.clip(np.round(_fourier_shift(img, dx, dy)), 0, 255)
+    dfm = np.clip(np.round(fourier_shift(img, dx, dy)), 0, 255)
     h, w = img.shape
     roi = (40, 40, w - 80, h - 80)
     f = dic.correlate(ref, dfm, subset=21, step=8, roi=roi)

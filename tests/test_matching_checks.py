@@ -10,6 +10,7 @@ import dic
 from dic.field import Reason
 from dic.images import synth
 from dic.matching import median_test
+from shifting import fourier_shift
 
 
 def _neck_pair():
@@ -45,11 +46,6 @@ def test_neck_with_default_settings():
     assert np.percentile(ea, 95) > 0.1
 
 
-def _fourier_shift(img, dx, dy):
-    # exact sub-pixel translation of a periodic band-limited image (scipy.ndimage.fourier_shift)
-    return np.real(np.fft.ifft2(ndimage.fourier_shift(np.fft.fft2(img), (dy, dx))))
-
-
 @pytest.mark.parametrize("name, noise, lo, hi", [
     ("gravel", 0.0, 0.5, 0.9), ("gravel", 2.0, 0.5, 0.9), ("grass", 0.0, 0.5, 0.9),
     ("grass", 2.0, 0.5, 0.9), ("coins", 0.0, 0.5, 0.9), ("coins", 2.0, 0.5, 0.9),
@@ -65,7 +61,7 @@ def test_posterior_sigma_is_calibrated_on_photographs(name, noise, lo, hi):
     rng = np.random.default_rng(5)
     dx, dy = 0.25, 0.2
     ref = img + rng.normal(0, noise, img.shape)
-    dfm = _fourier_shift(img, dx, dy) + rng.normal(0, noise, img.shape)
+    dfm = fourier_shift(img, dx, dy) + rng.normal(0, noise, img.shape)
     h, w = img.shape
     f = dic.correlate(ref, dfm, subset=21, step=8, roi=(40, 40, w - 80, h - 80))
     ok = f.valid
@@ -138,7 +134,7 @@ def test_noisy_low_texture_photograph_is_measured():
     rng = np.random.default_rng(5)
     dx, dy = 0.37, -0.61
     ref = img + rng.normal(0, 2.0, img.shape)
-    dfm = _fourier_shift(img, dx, dy) + rng.normal(0, 2.0, img.shape)
+    dfm = fourier_shift(img, dx, dy) + rng.normal(0, 2.0, img.shape)
     h, w = img.shape
     f = dic.correlate(ref, dfm, subset=21, step=8, roi=(40, 40, w - 80, h - 80))
     inside = f.reason != Reason.OUTSIDE_ROI
