@@ -32,6 +32,7 @@ from dic.figures.common import (MEASURE_TITLES, STRAIN_QUANTITIES, frame_indices
                                 quantity_values)
 from dic.files import atomic_write, sidecar_path, write_error, writing
 from dic.files import write_sidecar as _write_sidecar
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["CSV_COLUMNS", "EXPORT_FORMATS", "check_components", "export_results",
            "field_from_npz", "field_to_csv", "field_to_npz", "frame_to_csv", "out_folder",
@@ -326,8 +327,8 @@ def _write_text(p, text_writer):
     return p
 
 
-def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=9,
-                 measure="green-lagrange", digits=9, about=None, field=None, strain=None):
+def frame_to_csv(results, k, path, *, components=DEFAULT_COMPONENTS, window=DEFAULT_WINDOW,
+                 measure=DEFAULT_MEASURE, digits=9, about=None, field=None, strain=None):
     """Write one frame of a results file as a CSV table: positions, displacements, strain.
 
     Parameters
@@ -423,8 +424,9 @@ def _frame(res, k):
     return int(k) % n
 
 
-def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS, window=9,
-                   measure="green-lagrange"):
+def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
+                   window=DEFAULT_WINDOW,
+                   measure=DEFAULT_MEASURE):
     """Write the displacement and strain of many frames into one ``.npz`` archive.
 
     Frames are written one at a time through memory-mapped temporary files, so memory use does
@@ -555,8 +557,9 @@ def _xml_comment(text):
     return "<!-- " + text.replace("--", "- -").replace("\n", " ") + " -->"
 
 
-def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONENTS, window=9,
-                   measure="green-lagrange", name="results"):
+def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONENTS,
+                   window=DEFAULT_WINDOW,
+                   measure=DEFAULT_MEASURE, name="results"):
     """Write a VTK time series: one structured grid per frame and a ``.pvd`` collection file.
 
     ParaView opens the ``.pvd`` file as a time series (its time steps are the images' times
@@ -685,7 +688,7 @@ def _surface(res):
 
 
 def export_results(results, out_dir, *, format="csv", frames=None,
-                   components=DEFAULT_COMPONENTS, window=9, measure="green-lagrange"):
+                   components=DEFAULT_COMPONENTS, window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE):
     """Export a results file as CSV tables, one NumPy archive, or a VTK time series.
 
     Parameters

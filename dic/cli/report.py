@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import argparse
 from pathlib import Path
+from dic.strain.defaults import DEFAULT_WINDOW
 
 __all__ = ["register", "run_export", "run_report"]
 
@@ -197,7 +198,7 @@ def _stored_strain(path, window, measure):
     except (OSError, ValueError, KeyError) as exc:
         raise _as_option(exc, path) from None
     if window is None:
-        window = stored.get("window", 9)
+        window = stored.get("window", DEFAULT_WINDOW)
     if measure is None:
         measure = stored.get("measure", "green-lagrange")
     return window, measure

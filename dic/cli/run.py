@@ -18,6 +18,7 @@ from pathlib import Path
 from dic.cli.calibrate import (add_camera_options, camera_settings, camera_summary,
                                write_camera_maps)
 from dic.cli.types import numbers, positive_float, positive_int, rectangle
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["register", "RESULTS_NAME"]
 
@@ -32,7 +33,7 @@ _RESULTS_SUFFIXES = (".h5", ".hdf5")
 # defaults of dic.track, shown in --help and used when neither option nor analysis file sets one
 _DEFAULTS = dict(subset=21, step=10, shape_function="auto", interpolation="quintic",
                  min_zncc=0.9, search=60, block=8, reference=0)
-_STRAIN_DEFAULTS = dict(window=9, measure="green-lagrange")
+_STRAIN_DEFAULTS = dict(window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE)
 
 
 # --------------------------------------------------------------------------------------------

@@ -21,6 +21,7 @@ from dic.figures.common import (STRAIN_QUANTITIES, check_alpha, check_configurat
                                 strain_limits)
 from dic.figures.layers import draw_colorbar
 from dic.figures.maps import strain_map
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["ANIMATION_FORMATS", "animate"]
 
@@ -62,7 +63,8 @@ def _rgb(fig):
     return out
 
 
-def animate(results, path, *, component="xx", window=9, measure="green-lagrange", frames=None,
+def animate(results, path, *, component="xx", window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE,
+            frames=None,
             limits=None, units="auto", configuration="reference", images=None, times=None,
             force=None, force_unit="kN", fps=4.0, size=(8.0, 4.5), dpi=100, alpha=0.7):
     """Write an animation of one strain component through a sequence.

@@ -16,6 +16,7 @@ from pathlib import Path
 import numpy as np
 
 from dic.files import writing
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["FIGURE_FORMATS", "MEASURE_TITLES", "ROBUST_PERCENTILE", "STRAIN_QUANTITIES",
            "STRAIN_UNITS", "check_alpha", "check_configuration", "check_limits", "check_size",
@@ -377,7 +378,8 @@ def open_results(results):
     return Results.open(results), True
 
 
-def strain_limits(source, component="xx", *, frames=None, window=9, measure="green-lagrange",
+def strain_limits(source, component="xx", *, frames=None, window=DEFAULT_WINDOW,
+                  measure=DEFAULT_MEASURE,
                   percentile=ROBUST_PERCENTILE):
     """Colour limits for one quantity that hold for a whole sequence.
 

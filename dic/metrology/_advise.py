@@ -14,6 +14,7 @@ from dic.metrology._selfcheck import (AMPLITUDE, MAX_SIZE, correlate_scene, cros
                                       prepare_scene, scene_wave_image, subsample,
                                       wave_geometry, wave_response)
 from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
+from dic.strain.defaults import DEFAULT_MEASURE
 
 __all__ = ["advise", "Advice"]
 
@@ -174,7 +175,7 @@ def _check_targets(target_strain_noise, target_resolution, pixel_size):
 def advise(image, *, target_strain_noise=None, target_resolution=None, pixel_size=None,
            roi=None, subsets=SUBSETS, windows=WINDOWS, steps=None,
            shape_function: str = "affine", interpolation: str = "quintic",
-           measure: str = "green-lagrange", noise=None, seed: int = 0,
+           measure: str = DEFAULT_MEASURE, noise=None, seed: int = 0,
            max_size: int = MAX_SIZE) -> Advice:
     """Propose subset, step and strain window that meet a strain-noise or resolution target.
 

@@ -10,6 +10,7 @@ import numpy as np
 
 from dic.errors import InputError
 from dic.metrology._rows import Row, microstrain, pixels
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["noise_floor", "NoiseFloor", "COMPONENTS"]
 
@@ -167,8 +168,8 @@ class NoiseFloor:
                 "predicted": list(self.predicted), "n_points": self.n_points}
 
 
-def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = 9, roi=None,
-                measure: str = "green-lagrange", shape_function: str = "affine",
+def noise_floor(images, *, subset: int = 21, step: int = 10, window: int = DEFAULT_WINDOW,
+                roi=None, measure: str = DEFAULT_MEASURE, shape_function: str = "affine",
                 interpolation: str = "quintic", image_noise=None) -> NoiseFloor:
     """Noise floor of displacement and strain from images of the unloaded specimen.
 

@@ -10,6 +10,7 @@ import numpy as np
 from dic.metrology._rows import Row, microstrain, number, pixels
 from dic.metrology._deform import EDGE, shift_image, stretch_image, wave_image, wave_periods
 from dic.metrology._transfer import attenuation_period, displacement_transfer, strain_transfer
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["self_check", "SelfCheck"]
 
@@ -431,9 +432,9 @@ def _check_settings(subset, step, window):
                          f"e.g. subset 21, window 9")
 
 
-def self_check(image, *, subset: int = 21, step: int = 10, window: int = 9, roi=None,
+def self_check(image, *, subset: int = 21, step: int = 10, window: int = DEFAULT_WINDOW, roi=None,
                shape_function: str = "affine", interpolation: str = "quintic",
-               measure: str = "green-lagrange", noise=None, seed: int = 0,
+               measure: str = DEFAULT_MEASURE, noise=None, seed: int = 0,
                shifts=SHIFTS, stretch=STRETCH, amplitude: float = AMPLITUDE,
                max_size: int = MAX_SIZE) -> SelfCheck:
     """Run the given settings on the user's own reference image under exactly known motion.

@@ -17,6 +17,7 @@ from __future__ import annotations
 
 from dic.export import out_folder
 from dic.report._content import CAUTIONS, SECTION_TITLES, build_document
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["CAUTIONS", "REPORT_NAMES", "SECTION_TITLES", "write_report"]
 
@@ -32,7 +33,8 @@ def _replace(target, write):
     return target
 
 
-def write_report(results_path, out_dir, *, frames=None, window=9, measure="green-lagrange",
+def write_report(results_path, out_dir, *, frames=None, window=DEFAULT_WINDOW,
+                 measure=DEFAULT_MEASURE,
                  gauges=None, tensile=None, metrology=None, title=None, gauge_lines=None,
                  limits="shared"):
     """Write the report of a results file as one HTML file and one PDF file.

@@ -23,6 +23,7 @@ from dic.report._blocks import (as_mapping as _as_mapping, figure as _figure,
 from dic.report._cameras import camera_blocks
 from dic.report._tensile import tensile_section
 from dic.report._document import Document, Paragraph, Section, Table
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["CAUTIONS", "SECTION_TITLES", "build_document"]
 
@@ -476,8 +477,8 @@ def _gauge_geometry(gauges):
     return shapes
 
 
-def build_document(res, *, frames=None, window=9, measure="green-lagrange", gauges=None,
-                   tensile=None, metrology=None, title=None, gauge_lines=None,
+def build_document(res, *, frames=None, window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE,
+                   gauges=None, tensile=None, metrology=None, title=None, gauge_lines=None,
                    map_scale="shared"):
     """The report of an open results file as a :class:`Document`.
 

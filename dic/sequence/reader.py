@@ -17,6 +17,7 @@ from dic.sequence.checks import check_path, short
 from dic.sequence.h5file import open_h5
 from dic.sequence.layout import (FORMAT, FORMAT_VERSION, STRAIN_COMPONENTS, group_attrs,
                                  read_field, read_format, strain_key)
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["Results", "results_info"]
 
@@ -207,7 +208,7 @@ class Results:
                            "compute it first")
         return g[key]
 
-    def strain(self, k, *, window=9, measure="green-lagrange", fit="plane"):
+    def strain(self, k, *, window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE, fit="plane"):
         """Strain field of frame ``k``, computed from its displacement field (two cameras:
         the surface strain from the 3-D positions; one camera with a calibration: from the
         lens-corrected displacements; :mod:`dic.sequence.stereofile`).

@@ -43,15 +43,16 @@ import numpy as np
 
 from dic.errors import InputError
 from dic.field import Reason
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["track_calibrated", "STEREO_STRAIN", "LENS_STRAIN"]
 
 log = logging.getLogger("dic.sequence")
 
 #: surface strain stored by default with two cameras (window in grid points)
-STEREO_STRAIN = {"window": 5, "measure": "green-lagrange"}
+STEREO_STRAIN = {"window": 5, "measure": DEFAULT_MEASURE}
 #: strain stored by default with one calibrated camera
-LENS_STRAIN = {"window": 9, "measure": "green-lagrange"}
+LENS_STRAIN = {"window": DEFAULT_WINDOW, "measure": DEFAULT_MEASURE}
 
 
 def _fingerprint(cal_text, names):

@@ -54,6 +54,7 @@ from dic.field import Reason
 from dic.files import atomic_write, lock_file, sparse_copy, unlock_file
 from dic.sequence.h5file import open_h5
 from dic.sequence.layout import WRITE_KW, fixed_dataset, group_attrs
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["StereoData", "LensData", "write_group", "create_frame_group", "write_group_frame",
            "frames_held", "read_stored", "load_stereo", "load_lens",
@@ -393,7 +394,7 @@ def surface_strain_field(res, k, *, window=None, measure=None, fit="plane"):
     m0, _, w0 = stored.rpartition("_w")
     if window is None:
         window = int(w0) if w0.isdigit() else 5
-    measure = canonical_measure(measure or m0 or "green-lagrange")
+    measure = canonical_measure(measure or m0 or DEFAULT_MEASURE)
     F, _ = surface_gradient(P0, P, window=int(window), fit=fit)
     valid = np.all(np.isfinite(F), axis=(-2, -1))
     T = np.full(F.shape, np.nan)
@@ -409,7 +410,8 @@ def surface_strain_field(res, k, *, window=None, measure=None, fit="plane"):
                        min_points=(window * window + 1) // 2, n_used=n_used)
 
 
-def corrected_strain(field, xu, yu, uu, vu, *, window=9, measure="green-lagrange", fit="plane"):
+def corrected_strain(field, xu, yu, uu, vu, *, window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE,
+                     fit="plane"):
     """Strain of a displacement field corrected for lens distortion, as a StrainField.
 
     ``F = (I + grad_def) (I + grad_ref)^-1``: the gradient of the ideal-pinhole deformed
@@ -452,7 +454,7 @@ def corrected_strain(field, xu, yu, uu, vu, *, window=9, measure="green-lagrange
                                valid=ok, n_used=np.where(ok, base.n_used, 0))
 
 
-def lens_strain_field(res, k, *, window=9, measure="green-lagrange", fit="plane"):
+def lens_strain_field(res, k, *, window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE, fit="plane"):
     """The lens-corrected strain of frame ``k`` of a one-camera results file with ``/lens``.
 
     Parameters

@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from dic.field import DisplacementField
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, as_stored,
                                  extrapolate, needs_new_reference)
 
@@ -612,7 +613,7 @@ def _check_strain_window(strain, shape, step):
     """The strain window against the grid, before anything is written (SettingsConflict)."""
     from dic.errors import SettingsConflict
 
-    w = int(strain.get("window", 9))
+    w = int(strain.get("window", DEFAULT_WINDOW))
     most = min(shape) - (1 - min(shape) % 2)  # the largest odd window that fits
     if w > min(shape):
         fix = (f"use --strain-window {most} or less, or a smaller --step" if most >= 3 else
@@ -625,8 +626,8 @@ def _check_strain_window(strain, shape, step):
 def _strain_of(total, strain):
     from dic.strain import strain_field
 
-    return strain_field(total, window=int(strain.get("window", 9)),
-                        measure=strain.get("measure", "green-lagrange"))
+    return strain_field(total, window=int(strain.get("window", DEFAULT_WINDOW)),
+                        measure=strain.get("measure", DEFAULT_MEASURE))
 
 
 def _write_strain(writer, k, total, strain):
@@ -636,8 +637,8 @@ def _write_strain(writer, k, total, strain):
 def _fill_strain(writer, strain):
     """Store the strain of completed frames that lack it (a stop between a frame and its
     strain, or a strain write that failed): from the stored displacements."""
-    flags = writer.strain_written(strain.get("measure", "green-lagrange"),
-                                  int(strain.get("window", 9)))
+    flags = writer.strain_written(strain.get("measure", DEFAULT_MEASURE),
+                                  int(strain.get("window", DEFAULT_WINDOW)))
     for k in np.flatnonzero(np.asarray(flags) == 0):
         log.info("frame %d: storing its strain, missing after the last stop", k)
         writer.write_strain_frame(int(k), _strain_of(writer.read_field(int(k)), strain))

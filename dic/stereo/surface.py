@@ -28,6 +28,7 @@ from __future__ import annotations
 import numpy as np
 
 from dic.errors import InputError
+from dic.strain.defaults import DEFAULT_MEASURE
 
 __all__ = ["surface_gradient", "surface_strain", "surface_normals", "view_angles"]
 
@@ -113,7 +114,7 @@ def surface_gradient(reference, deformed, *, window=5, fit="plane", min_points=N
     return F, normal
 
 
-def surface_strain(reference, deformed, *, window=5, fit="plane", measure="green-lagrange"):
+def surface_strain(reference, deformed, *, window=5, fit="plane", measure=DEFAULT_MEASURE):
     """Surface strain tensor at every grid point (tensor shear).
 
     Parameters

@@ -18,6 +18,7 @@ measure_difference
 """
 
 from dic.strain._api import strain_field, vsg_size
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 from dic.strain._gradients import FITS, GradientFit, default_min_points, displacement_gradient
 from dic.strain._measures import (MEASURES, area_change, canonical_measure, engineering,
                         equivalent_strain, euler_almansi, green_lagrange, hencky,
@@ -29,7 +30,8 @@ from dic.strain._result import COMPONENTS, LineProfile, StrainField
 from dic.strain._sample import bilinear
 
 __all__ = [
-    "strain_field", "StrainField", "LineProfile", "COMPONENTS", "vsg_size",
+    "strain_field", "StrainField", "DEFAULT_WINDOW", "DEFAULT_MEASURE", "LineProfile",
+    "COMPONENTS", "vsg_size",
     "displacement_gradient", "GradientFit", "default_min_points", "FITS",
     "MEASURES", "canonical_measure", "strain_tensor", "green_lagrange", "infinitesimal",
     "euler_almansi", "hencky", "engineering", "polar_decomposition", "rotation_angle",

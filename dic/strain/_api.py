@@ -8,6 +8,7 @@ from dic.strain._measures import (canonical_measure, determinant, out_of_plane a
                                   strain_tensor)
 from dic.strain._gradients import displacement_gradient
 from dic.strain._result import StrainField
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["strain_field", "vsg_size"]
 
@@ -36,7 +37,8 @@ def vsg_size(window: int, step: float, subset: float) -> float:
     return float((window - 1) * step + subset)
 
 
-def strain_field(field, *, window: int = 9, measure: str = "green-lagrange", fit: str = "plane",
+def strain_field(field, *, window: int = DEFAULT_WINDOW, measure: str = DEFAULT_MEASURE,
+                 fit: str = "plane",
                  min_points: int | None = None, out_of_plane: str | None = None) -> StrainField:
     """Strain tensors from a displacement field by pointwise least squares.
 

@@ -25,6 +25,7 @@ from typing import NamedTuple
 import numpy as np
 
 from dic.errors import RegionTooSmall, TooFewPoints
+from dic.strain.defaults import DEFAULT_WINDOW
 
 __all__ = ["displacement_gradient", "default_min_points", "GradientFit", "FITS"]
 
@@ -168,7 +169,7 @@ def _solve_normal(M: np.ndarray, rhs: np.ndarray):
     return c * scale[:, :, None], good
 
 
-def displacement_gradient(field, *, window: int = 9, fit: str = "plane",
+def displacement_gradient(field, *, window: int = DEFAULT_WINDOW, fit: str = "plane",
                           min_points: int | None = None) -> GradientFit:
     """Displacement gradients by pointwise least squares (strain window) on a displacement field.
 

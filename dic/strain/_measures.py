@@ -13,6 +13,7 @@ Shear components are TENSOR shear (``xy``), half the engineering shear angle.
 from __future__ import annotations
 
 import numpy as np
+from dic.strain.defaults import DEFAULT_MEASURE
 
 __all__ = [
     "MEASURES",
@@ -292,7 +293,7 @@ _FUNCTIONS = {
 }
 
 
-def strain_tensor(F, measure: str = "green-lagrange") -> np.ndarray:
+def strain_tensor(F, measure: str = DEFAULT_MEASURE) -> np.ndarray:
     """Strain tensor of the named measure from deformation gradients.
 
     Parameters
@@ -513,7 +514,7 @@ _STRETCH = {  # strain of a pure stretch lam along one axis, per measure
 }
 
 
-def out_of_plane(F, measure: str = "green-lagrange") -> np.ndarray:
+def out_of_plane(F, measure: str = DEFAULT_MEASURE) -> np.ndarray:
     """Out-of-plane normal strain ``zz`` ESTIMATED by assuming incompressibility.
 
     ASSUMPTION: the material keeps its volume (plastic incompressibility, ``det F_3D = 1``) and

@@ -45,7 +45,8 @@ import numpy as np
 
 from dic.errors import InputError, TooFewPoints
 from dic.field import DisplacementField
-from dic.tensile.histories import CAUTION, History
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
+from dic.tensile.histories import CAUTION, History, poisson_ratio
 
 __all__ = ["GaugeLine", "AreaGauge", "PointProbe", "gauge_histories", "axial_line",
            "transverse_line", "neck_line", "poisson_ratio", "displacement_at", "History",
@@ -355,7 +356,7 @@ def displacement_at(field: DisplacementField, x, y):
 # --------------------------------------------------------------------------------------------
 # histories
 # --------------------------------------------------------------------------------------------
-def gauge_histories(source, gauges, *, frames=None, window=9, measure="green-lagrange",
+def gauge_histories(source, gauges, *, frames=None, window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE,
                     components=("xx", "yy", "xy"), scale=None) -> History:
     """Follow gauges through the frames.
 
@@ -695,9 +696,9 @@ def transverse_line(source, length=None, *, units="mm", axis="auto", name="trans
     return line
 
 
-def neck_line(source, gauge_length, *, units="mm", axis="auto", component="major", window=9,
-              measure="green-lagrange", frame=-1, through="section", name="neck",
-              scale=None) -> GaugeLine:
+def neck_line(source, gauge_length, *, units="mm", axis="auto", component="major",
+              window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE, frame=-1, through="section",
+              name="neck", scale=None) -> GaugeLine:
     """A gauge line along the axis, centred on the neck: the largest strain in the last frame.
 
     Parameters
@@ -760,41 +761,3 @@ def neck_line(source, gauge_length, *, units="mm", axis="auto", component="major
     line = _line(cx, cy, half, ax, units, src.scale, name)
     _check_points(src, line.points_px(src.scale), name)
     return line
-
-
-def poisson_ratio(history: History, axial="axial", transverse="transverse",
-                  quantity="engineering") -> np.ndarray:
-    """Frame-by-frame ratio ``-transverse / axial`` of two gauge lines.
-
-    For Poisson's ratio as a material property use the slopes over the elastic range
-    (:func:`dic.tensile_results` with ``transverse=``, ASTM E132); this per-frame ratio is
-    noisy at small strain and is not Poisson's ratio once the material flows.
-
-    Parameters
-    ----------
-    history : History
-    axial, transverse : str
-        Gauge line names.
-    quantity : {"engineering", "hencky", "green-lagrange"}
-        A strain measure of the gauge lines (aliases such as ``"true"`` are accepted).
-
-    Returns
-    -------
-    ndarray
-        NaN where the axial strain is zero or unknown.
-    """
-    from dic.strain import canonical_measure
-
-    try:
-        quantity = canonical_measure(quantity)
-    except ValueError:
-        quantity = None
-    if quantity not in ("engineering", "hencky", "green-lagrange"):
-        raise InputError("quantity: use 'engineering', 'hencky' (true strain) or "
-                         "'green-lagrange'")
-    a = history[f"{axial}.{quantity}"]
-    t = history[f"{transverse}.{quantity}"]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        out = -t / a
-    out[~np.isfinite(out)] = np.nan
-    return out

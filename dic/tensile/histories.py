@@ -13,9 +13,10 @@ from pathlib import Path
 import numpy as np
 
 from dic import __version__
+from dic.errors import InputError
 from dic.files import write_sidecar, write_text
 
-__all__ = ["History", "CAUTION"]
+__all__ = ["History", "CAUTION", "poisson_ratio"]
 
 #: the caution every gauge or tensile output carries (ISO 9513 / ASTM E83)
 CAUTION = ("Optical gauge results are indicative unless the set-up was verified as an "
@@ -229,3 +230,41 @@ def _colours(n):
 def _styles(n):
     base = ["-", "--", "-.", ":"]
     return [base[i % len(base)] for i in range(n)]
+
+
+def poisson_ratio(history: History, axial="axial", transverse="transverse",
+                  quantity="engineering") -> np.ndarray:
+    """Frame-by-frame ratio ``-transverse / axial`` of two gauge lines.
+
+    For Poisson's ratio as a material property use the slopes over the elastic range
+    (:func:`dic.tensile_results` with ``transverse=``, ASTM E132); this per-frame ratio is
+    noisy at small strain and is not Poisson's ratio once the material flows.
+
+    Parameters
+    ----------
+    history : History
+    axial, transverse : str
+        Gauge line names.
+    quantity : {"engineering", "hencky", "green-lagrange"}
+        A strain measure of the gauge lines (aliases such as ``"true"`` are accepted).
+
+    Returns
+    -------
+    ndarray
+        NaN where the axial strain is zero or unknown.
+    """
+    from dic.strain import canonical_measure
+
+    try:
+        quantity = canonical_measure(quantity)
+    except ValueError:
+        quantity = None
+    if quantity not in ("engineering", "hencky", "green-lagrange"):
+        raise InputError("quantity: use 'engineering', 'hencky' (true strain) or "
+                         "'green-lagrange'")
+    a = history[f"{axial}.{quantity}"]
+    t = history[f"{transverse}.{quantity}"]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = -t / a
+    out[~np.isfinite(out)] = np.nan
+    return out

@@ -19,6 +19,7 @@ from dic.errors import InputError
 from dic.field import Reason
 from dic.view.pictures import (colour_map_for, data_url, grey_png, limits_for_top, map_png,
                                robust_limits)
+from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["ResultsData", "REASONS", "TOO_FEW_NEIGHBOURS", "RESULTS_NAME", "SIDE_TABLE"]
 
@@ -103,7 +104,7 @@ class ResultsData:
         self._shape = None
         self.time, self.force = self._time_and_force()
         st = self.results.settings.get("strain", {}) or {}
-        self.window = int(st.get("window", 9))
+        self.window = int(st.get("window", DEFAULT_WINDOW))
         self.measure = str(st.get("measure", "green-lagrange"))
 
     def close(self):
@@ -271,7 +272,8 @@ class ResultsData:
                 self._limits[key] = limits_for_top(top, component)
             return self._limits[key]
 
-    def frame_map(self, k, component="xx", measure="green-lagrange", window=9, mode="shared",
+    def frame_map(self, k, component="xx", measure=DEFAULT_MEASURE, window=DEFAULT_WINDOW,
+                  mode="shared",
                   lo=None, hi=None, under="ref") -> dict:
         """The colour map of one strain component at frame ``k``, its limits and reason codes.
 
@@ -341,7 +343,7 @@ class ResultsData:
         i, j = np.unravel_index(int(np.argmin(d)), d.shape)
         return int(i), int(j)
 
-    def point(self, x, y, component="xx", measure="green-lagrange", window=9) -> dict:
+    def point(self, x, y, component="xx", measure=DEFAULT_MEASURE, window=DEFAULT_WINDOW) -> dict:
         """A component's value at the grid point nearest ``(x, y)`` (px) in every frame."""
         window = self._window(window)
         i, j = self.nearest(float(x), float(y))
@@ -364,7 +366,7 @@ class ResultsData:
             return AreaGauge(tuple(tuple(p) for p in pts), name=name or "area")
         raise InputError("gauge kind: use line or area")
 
-    def gauge(self, g, component="xx", measure="green-lagrange", window=9) -> dict:
+    def gauge(self, g, component="xx", measure=DEFAULT_MEASURE, window=DEFAULT_WINDOW) -> dict:
         """The history of one drawn gauge, from :func:`dic.tensile.gauges.gauge_histories`."""
         from dic.tensile.gauges import gauge_histories
 
@@ -376,7 +378,8 @@ class ResultsData:
                 "columns": {c: _nums(v) for c, v in h.columns.items()},
                 "units": dict(h.units), "notes": list(h.notes)}
 
-    def export(self, gauges, component="xx", measure="green-lagrange", window=9) -> dict:
+    def export(self, gauges, component="xx", measure=DEFAULT_MEASURE,
+               window=DEFAULT_WINDOW) -> dict:
         """Kept gauges as an analysis-file snippet and as the CSV of their histories."""
         from dic.tensile.gauges import gauge_histories
 

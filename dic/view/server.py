@@ -30,6 +30,7 @@ from pathlib import Path
 from urllib.parse import parse_qs, unquote, urlsplit
 
 from dic.errors import InputError
+from dic.strain.defaults import DEFAULT_WINDOW
 
 __all__ = ["ViewServer", "start_server", "source_for", "CSP", "HOST"]
 
@@ -239,7 +240,7 @@ class ViewServer:
             raise _Refused(404, f"{path} belongs to the other page")
         opts = {"component": q.get("component", "xx"),
                 "measure": q.get("measure", getattr(s, "measure", "green-lagrange")),
-                "window": int(_f(q, "window", getattr(s, "window", 9)))}
+                "window": int(_f(q, "window", getattr(s, "window", DEFAULT_WINDOW)))}
         if method == "GET" and path == "/api/map":
             return h._json(200, s.frame_map(int(_f(q, "k", 0)), mode=q.get("limits", "shared"),
                                             lo=_f(q, "lo"), hi=_f(q, "hi"),

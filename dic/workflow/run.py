@@ -10,6 +10,7 @@ import logging
 from pathlib import Path
 
 from dic.files import write_json
+from dic.strain.defaults import DEFAULT_WINDOW
 
 __all__ = ["finish", "tensile_outputs", "settings_self_check", "gauge_lines", "axial_component"]
 
@@ -121,7 +122,7 @@ def settings_self_check(results_path, strain: dict):
         log.warning("self-check skipped: the reference image %s cannot be read", name)
         return None
     return self_check(image, subset=int(st["subset"]), step=int(st["step"]),
-                      window=int(strain.get("window", 9)), roi=mask,
+                      window=int(strain.get("window", DEFAULT_WINDOW)), roi=mask,
                       shape_function=st.get("shape_function", "affine"),
                       interpolation=st.get("interpolation", "quintic"),
                       measure=strain.get("measure", "green-lagrange"))
@@ -142,7 +143,7 @@ def _noise_floor(results_path, out_dir, settings, written):
     with load_results(results_path) as res:
         st, mask = res.settings, res.roi_mask
     floor = noise_floor(paths, subset=int(st["subset"]), step=int(st["step"]),
-                        window=int(strain.get("window", 9)), roi=mask,
+                        window=int(strain.get("window", DEFAULT_WINDOW)), roi=mask,
                         measure=strain.get("measure", "green-lagrange"),
                         shape_function=st.get("shape_function", "affine"),
                         interpolation=st.get("interpolation", "quintic"))
@@ -160,7 +161,7 @@ def _animation(results_path, out_dir, anim: dict, strain: dict):
     fmt = str(anim.get("format", "gif")).lower()
     target = Path(out_dir) / f"strain_{component}.{fmt}"
     return animate(results_path, target, component=component,
-                   window=int(strain.get("window", 9)),
+                   window=int(strain.get("window", DEFAULT_WINDOW)),
                    measure=strain.get("measure", "green-lagrange"),
                    fps=float(anim.get("fps", 4.0)))
 
@@ -220,7 +221,7 @@ def finish(results_path, out_dir, settings: dict) -> dict:
                 lines = gauge_lines(res, settings["tensile"])
         html, pdf = write_report(results_path, out_dir, frames=frames, gauge_lines=lines,
                                  limits=rep.get("limits", "shared"),
-                                 window=int(strain.get("window", 9)),
+                                 window=int(strain.get("window", DEFAULT_WINDOW)),
                                  measure=strain.get("measure", "green-lagrange"),
                                  gauges=hist, tensile=tens, metrology=metrology or None,
                                  title=rep.get("title"))
