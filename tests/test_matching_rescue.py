@@ -94,3 +94,28 @@ def test_vectorised_carry_over_equals_the_compiled_one():
             want = np.empty(npar)
             shift_params(p[t], ddx[t], ddy[t], second, want)
             np.testing.assert_allclose(got[t], want, rtol=0, atol=1e-14)
+
+
+def test_a_point_rescued_in_one_round_gives_its_neighbour_a_guess_in_the_next():
+    shift = (1.3, -0.7)
+    prop = _propagation(shift)
+    k = 5 * prop.nx + 5
+    k2 = k + 1                       # its right-hand neighbour
+    r2, c2 = divmod(k2, prop.nx)
+    # every matched neighbour of k2 but k gives a guess 30 px off (no start converges from it)
+    for dr in (-1, 0, 1):
+        for dc in (-1, 0, 1):
+            q = (r2 + dr) * prop.nx + c2 + dc
+            if q not in (k, k2):
+                prop.params[q, 0] += 30.0
+    for q in (k, k2):
+        prop.state[q] = prop.w.BAD
+        prop.reason[q] = Reason.NO_CONVERGENCE
+        prop.params[q] = np.nan
+    # k is rescued from its own good neighbours in the first round, k2 from k in the second
+    assert retry_failed(prop) == 2
+    for q in (k, k2):
+        assert prop.state[q] == prop.w.GOOD
+        # the exact translation of the rendered images (analytic solution), to the engine's
+        # noise-free accuracy bar for a cubic spline (0.02 px; common practice)
+        assert abs(prop.params[q, 0] - shift[0]) < 0.02

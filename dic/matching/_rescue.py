@@ -40,12 +40,15 @@ def _carry(p, ddx, ddy, second):
     return out
 
 
-def _guesses(prop, failed):
+def _guesses(prop, failed, sources=None):
     """For each failed point, its matched 8-neighbours' shape functions carried over to it,
-    best-correlated neighbour first: a list, one (indices, guesses) pair per rank. Guesses
-    that would put the subset outside the image are left out."""
+    best-correlated neighbour first: a list, one (indices, guesses) pair per rank. Only
+    neighbours in the boolean mask ``sources`` give guesses, when it is given. Guesses that
+    would put the subset outside the image are left out."""
     ny, nx = prop.ny, prop.nx
     good = prop.state == prop.w.GOOD
+    if sources is not None:
+        good &= sources
     r, c = np.divmod(failed, nx)
     nbr = np.full((failed.size, len(_DR)), -1, np.int64)
     score = np.full((failed.size, len(_DR)), -np.inf)
@@ -96,18 +99,22 @@ def retry_failed(prop):
     w = prop.w
     rescued = 0
     first_reason = np.full(prop.reason.shape, -1, np.int16)
+    # the first round tries every matched neighbour; the later ones only those matched in
+    # the round before (the others gave their guesses already)
+    sources = None
     for _ in range(ROUNDS):
         failed = np.flatnonzero((prop.state == w.BAD) & np.isin(prop.reason, RETRY_REASONS))
         if failed.size == 0:
             break
         fresh = failed[first_reason[failed] < 0]
         first_reason[fresh] = prop.reason[fresh]
-        before = int(np.count_nonzero(prop.state == w.GOOD))
-        for idx, p0 in _guesses(prop, failed):
+        before = prop.state == w.GOOD
+        for idx, p0 in _guesses(prop, failed, sources):
             todo = prop.state[idx] == w.BAD
             if todo.any():
                 prop.run(idx[todo], p0[todo], on_fail=w.BAD)
-        gained = int(np.count_nonzero(prop.state == w.GOOD)) - before
+        sources = (prop.state == w.GOOD) & ~before
+        gained = int(np.count_nonzero(sources))
         rescued += gained
         if gained == 0:
             break
