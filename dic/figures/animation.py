@@ -229,8 +229,9 @@ def animate(results, path, *, component="xx", window=DEFAULT_WINDOW, measure=DEF
                 iio3.imwrite(p, np.stack(gif_frames), plugin="pillow", extension=".gif",
                              duration=1000.0 / fps, loop=0)
         except OSError as exc:
-            raise OSError(f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder "
-                          f"permissions and free space") from None
+            from dic.files import write_error
+
+            raise write_error(p, exc) from None
         finally:
             if writer is not None:
                 writer.close()

@@ -569,10 +569,9 @@ def write_image(path, array, *, bits=8):
                 tifffile.imwrite(fh, data,
                                  photometric="rgb" if data.ndim == 3 else "minisblack")
     except OSError as exc:
-        raise ImageError(
-            f"path: cannot write '{p}' ({exc.strerror or exc}); check the folder permissions "
-            f"and free space"
-        ) from None
+        from dic.files import write_error
+
+        raise write_error(p, exc) from None
     return p
 
 
