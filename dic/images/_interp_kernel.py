@@ -16,6 +16,8 @@ from numba import njit
 from dic.images.parallel import run_chunks
 
 _BLOCK = 64
+#: image rows the row pass filters side by side
+_ROWS = 8
 
 
 @njit(cache=True)
@@ -25,29 +27,29 @@ def _horizon(z, n):
 
 
 @njit(cache=True, nogil=True)
-def _recurse_rows(buf, nr, off, n, poles):
-    """The recursive prefilter along axis 1 of ``buf[:nr, off:off + n]``, in place (mirror
-    boundaries; the gain already applied), the inner loop running across the rows: the
-    recursion along a row is a chain of dependent operations, and several independent chains
-    keep the processor busy."""
+def _recurse_rows(buf, off, n, poles):
+    """The recursive prefilter along axis 0 of ``buf[off:off + n, :]`` (one image row per
+    column of ``buf``), in place (mirror boundaries; the gain already applied). The inner loop
+    runs across the rows, which lie next to each other in memory: the recursion along a row is
+    a chain of dependent operations, and several independent chains side by side keep the
+    processor busy and fill its vector registers."""
+    nr = buf.shape[1]
     for z in poles:
         h = _horizon(z, n)
         k = z / (z * z - 1.0)
-        for r in range(nr):
-            s = buf[r, off]
-            zn = z
-            for i in range(1, h):
-                s += zn * buf[r, off + i]
-                zn *= z
-            buf[r, off] = s
+        zn = z
+        for i in range(1, h):
+            for r in range(nr):
+                buf[off, r] += zn * buf[off + i, r]
+            zn *= z
         for i in range(off + 1, off + n):
             for r in range(nr):
-                buf[r, i] += z * buf[r, i - 1]
+                buf[i, r] += z * buf[i - 1, r]
         for r in range(nr):
-            buf[r, off + n - 1] = k * (z * buf[r, off + n - 2] + buf[r, off + n - 1])
+            buf[off + n - 1, r] = k * (z * buf[off + n - 2, r] + buf[off + n - 1, r])
         for i in range(off + n - 2, off - 1, -1):
             for r in range(nr):
-                buf[r, i] = z * (buf[r, i + 1] - buf[r, i])
+                buf[i, r] = z * (buf[i + 1, r] - buf[i, r])
 
 
 @njit(cache=True, nogil=True)
@@ -76,26 +78,36 @@ def _recurse_cols(buf, off, n, w, poles):
 def _rows_pass(lo, hi, src, s0, n, poles, gain, fir, out, c0):
     """Along axis 1, for rows lo..hi-1: the prefilter of ``src[r, s0:s0 + n]``, then the
     filter ``fir`` (odd length, centred; mirror boundaries) into ``out[r, c0:c0 + n]``,
-    eight rows at a time in a small buffer. ``out`` may be ``src`` (in place)."""
+    eight rows at a time in a small buffer that holds them side by side (transposed).
+    ``out`` may be ``src`` (in place)."""
     kk = fir.shape[0] // 2
-    buf = np.empty((8, n + 2 * kk))
-    for r0 in range(lo, hi, 8):
-        nr = min(hi, r0 + 8) - r0
+    nf = fir.shape[0]
+    buf = np.zeros((n + 2 * kk, _ROWS))
+    acc = np.empty(_ROWS)
+    for r0 in range(lo, hi, _ROWS):
+        nr = min(hi, r0 + _ROWS) - r0
         for r in range(nr):
             for i in range(n):
-                buf[r, kk + i] = src[r0 + r, s0 + i] * gain
+                buf[kk + i, r] = src[r0 + r, s0 + i] * gain
+        for r in range(nr, _ROWS):           # a last, partial group: unused lanes stay zero
+            for i in range(n + 2 * kk):
+                buf[i, r] = 0.0
         if n > 1:
-            _recurse_rows(buf, nr, kk, n, poles)
-        for r in range(nr):
-            # whole-sample mirror beyond both ends: c[-j] = c[j], c[n - 1 + j] = c[n - 1 - j]
-            for j in range(1, kk + 1):
-                buf[r, kk - j] = buf[r, kk + j]
-                buf[r, kk + n - 1 + j] = buf[r, kk + n - 1 - j]
-            for c in range(n):
-                acc = 0.0
-                for j in range(fir.shape[0]):
-                    acc += fir[j] * buf[r, c + j]
-                out[r0 + r, c0 + c] = acc
+            _recurse_rows(buf, kk, n, poles)
+        # whole-sample mirror beyond both ends: c[-j] = c[j], c[n - 1 + j] = c[n - 1 - j]
+        for j in range(1, kk + 1):
+            for r in range(_ROWS):
+                buf[kk - j, r] = buf[kk + j, r]
+                buf[kk + n - 1 + j, r] = buf[kk + n - 1 - j, r]
+        for c in range(n):
+            for r in range(_ROWS):
+                acc[r] = fir[0] * buf[c, r]
+            for j in range(1, nf):
+                fj = fir[j]
+                for r in range(_ROWS):
+                    acc[r] += fj * buf[c + j, r]
+            for r in range(nr):
+                out[r0 + r, c0 + c] = acc[r]
 
 
 @njit(cache=True, nogil=True)
@@ -106,6 +118,7 @@ def _cols_pass(lo, hi, src, c0, n, poles, gain, fir, out):
     rows = src.shape[0]
     kk = fir.shape[0] // 2
     buf = np.empty((rows + 2 * kk, _BLOCK))
+    acc = np.empty(_BLOCK)
     for b in range(lo, hi):
         q0 = c0 + b * _BLOCK
         w = min(c0 + n, q0 + _BLOCK) - q0
@@ -118,13 +131,16 @@ def _cols_pass(lo, hi, src, c0, n, poles, gain, fir, out):
             for c in range(w):
                 buf[kk - j, c] = buf[kk + j, c]
                 buf[kk + rows - 1 + j, c] = buf[kk + rows - 1 - j, c]
+        # the filter summed in a local row, then written out once
         for r in range(rows):
             for c in range(w):
-                out[r, q0 + c] = 0.0
-            for j in range(fir.shape[0]):
+                acc[c] = fir[0] * buf[r, c]
+            for j in range(1, fir.shape[0]):
                 fj = fir[j]
                 for c in range(w):
-                    out[r, q0 + c] += fj * buf[r + j, c]
+                    acc[c] += fj * buf[r + j, c]
+            for c in range(w):
+                out[r, q0 + c] = acc[c]
 
 
 def rows_pass(src, s0, n, poles, gain, fir, out, c0):
