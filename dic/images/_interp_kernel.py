@@ -27,35 +27,12 @@ def _horizon(z, n):
 
 
 @njit(cache=True, nogil=True)
-def _recurse_rows(buf, off, n, poles):
-    """The recursive prefilter along axis 0 of ``buf[off:off + n, :]`` (one image row per
-    column of ``buf``), in place (mirror boundaries; the gain already applied). The inner loop
-    runs across the rows, which lie next to each other in memory: the recursion along a row is
-    a chain of dependent operations, and several independent chains side by side keep the
-    processor busy and fill its vector registers."""
-    nr = buf.shape[1]
-    for z in poles:
-        h = _horizon(z, n)
-        k = z / (z * z - 1.0)
-        zn = z
-        for i in range(1, h):
-            for r in range(nr):
-                buf[off, r] += zn * buf[off + i, r]
-            zn *= z
-        for i in range(off + 1, off + n):
-            for r in range(nr):
-                buf[i, r] += z * buf[i - 1, r]
-        for r in range(nr):
-            buf[off + n - 1, r] = k * (z * buf[off + n - 2, r] + buf[off + n - 1, r])
-        for i in range(off + n - 2, off - 1, -1):
-            for r in range(nr):
-                buf[i, r] = z * (buf[i + 1, r] - buf[i, r])
-
-
-@njit(cache=True, nogil=True)
 def _recurse_cols(buf, off, n, w, poles):
     """The recursive prefilter along axis 0 of ``buf[off:off + n, :w]``, in place (mirror
-    boundaries; the gain already applied), the inner loop running across the columns."""
+    boundaries; the gain already applied). The inner loop runs across the ``w`` lines side by
+    side (next to each other in memory): the recursion along a line is a chain of dependent
+    operations, and several independent chains keep the processor busy. The row pass uses it
+    too, on its rows held side by side."""
     for z in poles:
         h = _horizon(z, n)
         zn = z
@@ -93,7 +70,7 @@ def _rows_pass(lo, hi, src, s0, n, poles, gain, fir, out, c0):
             for i in range(n + 2 * kk):
                 buf[i, r] = 0.0
         if n > 1:
-            _recurse_rows(buf, kk, n, poles)
+            _recurse_cols(buf, kk, n, _ROWS, poles)
         # whole-sample mirror beyond both ends: c[-j] = c[j], c[n - 1 + j] = c[n - 1 - j]
         for j in range(1, kk + 1):
             for r in range(_ROWS):
