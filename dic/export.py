@@ -425,8 +425,7 @@ def _frame(res, k):
 
 
 def results_to_npz(results, path, *, frames=None, components=DEFAULT_COMPONENTS,
-                   window=DEFAULT_WINDOW,
-                   measure=DEFAULT_MEASURE):
+                   window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE):
     """Write the displacement and strain of many frames into one ``.npz`` archive.
 
     Frames are written one at a time through memory-mapped temporary files, so memory use does
@@ -558,8 +557,7 @@ def _xml_comment(text):
 
 
 def results_to_vtk(results, out_dir, *, frames=None, components=DEFAULT_COMPONENTS,
-                   window=DEFAULT_WINDOW,
-                   measure=DEFAULT_MEASURE, name="results"):
+                   window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE, name="results"):
     """Write a VTK time series: one structured grid per frame and a ``.pvd`` collection file.
 
     ParaView opens the ``.pvd`` file as a time series (its time steps are the images' times

@@ -64,9 +64,9 @@ def _rgb(fig):
 
 
 def animate(results, path, *, component="xx", window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE,
-            frames=None,
-            limits=None, units="auto", configuration="reference", images=None, times=None,
-            force=None, force_unit="kN", fps=4.0, size=(8.0, 4.5), dpi=100, alpha=0.7):
+            frames=None, limits=None, units="auto", configuration="reference", images=None,
+            times=None, force=None, force_unit="kN", fps=4.0, size=(8.0, 4.5), dpi=100,
+            alpha=0.7):
     """Write an animation of one strain component through a sequence.
 
     Parameters

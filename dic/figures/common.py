@@ -379,8 +379,7 @@ def open_results(results):
 
 
 def strain_limits(source, component="xx", *, frames=None, window=DEFAULT_WINDOW,
-                  measure=DEFAULT_MEASURE,
-                  percentile=ROBUST_PERCENTILE):
+                  measure=DEFAULT_MEASURE, percentile=ROBUST_PERCENTILE):
     """Colour limits for one quantity that hold for a whole sequence.
 
     The top of the scale is the largest, over the frames, of each frame's ``percentile``-th

@@ -59,7 +59,7 @@ def _rows_pass(lo, hi, src, s0, n, poles, gain, fir, out, c0):
     ``out`` may be ``src`` (in place)."""
     kk = fir.shape[0] // 2
     nf = fir.shape[0]
-    buf = np.zeros((n + 2 * kk, _ROWS))
+    buf = np.empty((n + 2 * kk, _ROWS))
     acc = np.empty(_ROWS)
     for r0 in range(lo, hi, _ROWS):
         nr = min(hi, r0 + _ROWS) - r0

@@ -432,8 +432,8 @@ def _check_settings(subset, step, window):
                          f"e.g. subset 21, window 9")
 
 
-def self_check(image, *, subset: int = 21, step: int = 10, window: int = DEFAULT_WINDOW, roi=None,
-               shape_function: str = "affine", interpolation: str = "quintic",
+def self_check(image, *, subset: int = 21, step: int = 10, window: int = DEFAULT_WINDOW,
+               roi=None, shape_function: str = "affine", interpolation: str = "quintic",
                measure: str = DEFAULT_MEASURE, noise=None, seed: int = 0,
                shifts=SHIFTS, stretch=STRETCH, amplitude: float = AMPLITUDE,
                max_size: int = MAX_SIZE) -> SelfCheck:

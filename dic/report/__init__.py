@@ -34,9 +34,8 @@ def _replace(target, write):
 
 
 def write_report(results_path, out_dir, *, frames=None, window=DEFAULT_WINDOW,
-                 measure=DEFAULT_MEASURE,
-                 gauges=None, tensile=None, metrology=None, title=None, gauge_lines=None,
-                 limits="shared"):
+                 measure=DEFAULT_MEASURE, gauges=None, tensile=None, metrology=None,
+                 title=None, gauge_lines=None, limits="shared"):
     """Write the report of a results file as one HTML file and one PDF file.
 
     The HTML file is self-contained: styles inline, figures embedded as PNG data, no address

@@ -43,6 +43,7 @@ _LAZY = {
     "save_calibration": "dic.stereo.calfile",
     "load_calibration": "dic.stereo.calfile",
     "undistort_points": "dic.stereo.undistort",
+    "normalised_coordinates": "dic.stereo.undistort",
     "undistort_displacements": "dic.stereo.undistort",
     "match_cameras": "dic.stereo.match",
     "match_frame": "dic.stereo.match",

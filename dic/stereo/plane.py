@@ -88,7 +88,7 @@ def plane_points(calibration, x, y, *, undistorted=False):
     a, b : ndarray
         In-plane coordinates, mm (origin at the target's first inner corner).
     """
-    from dic.stereo.undistort import undistort_points
+    from dic.stereo.undistort import normalised_coordinates, undistort_points
 
     if calibration.plane is None:
         raise InputError("calibration: the specimen plane is not known; locate it from a "
@@ -96,9 +96,7 @@ def plane_points(calibration, x, y, *, undistorted=False):
     R, T = (np.asarray(a, float) for a in calibration.plane)
     camera = calibration.cameras[0]
     if undistorted:
-        K = np.asarray(camera.matrix, float)
-        yn = (np.asarray(y, float) - K[1, 2]) / K[1, 1]
-        xn = (np.asarray(x, float) - K[0, 2] - K[0, 1] * yn) / K[0, 0]
+        xn, yn = normalised_coordinates(x, y, camera.matrix)
     else:
         xn, yn = undistort_points(x, y, camera, normalised=True)
     d = np.stack([xn, yn, np.ones_like(xn)], -1)

@@ -31,7 +31,8 @@ import numpy as np
 
 from dic.errors import InputError
 
-__all__ = ["distort", "distortion_coefficients", "undistort_points", "undistort_displacements"]
+__all__ = ["distort", "distortion_coefficients", "normalised_coordinates", "undistort_points",
+           "undistort_displacements"]
 
 _NEWTON_TOL = 1e-14
 _NEWTON_ITER = 50
@@ -123,6 +124,27 @@ def _newton(xd, yd, dist):
                      "strong for these points")
 
 
+def normalised_coordinates(x, y, matrix):
+    """Pixel positions divided through a camera matrix: ``x/z, y/z`` of their rays in the
+    camera's frame (with no lens distortion applied or removed).
+
+    Parameters
+    ----------
+    x, y : array_like
+        Column and row, pixels.
+    matrix : array_like, shape (3, 3)
+        ``[[fx, skew, cx], [0, fy, cy], [0, 0, 1]]``.
+
+    Returns
+    -------
+    xn, yn : ndarray
+    """
+    K = np.asarray(matrix, dtype=np.float64)
+    yn = (np.asarray(y, dtype=np.float64) - K[1, 2]) / K[1, 1]
+    xn = (np.asarray(x, dtype=np.float64) - K[0, 2] - K[0, 1] * yn) / K[0, 0]
+    return xn, yn
+
+
 def undistort_points(x, y, camera, *, normalised=False):
     """Ideal pinhole positions of measured (distorted) pixel positions.
 
@@ -168,8 +190,7 @@ def undistort_points(x, y, camera, *, normalised=False):
     y = np.asarray(y, dtype=np.float64)
     if x.shape != y.shape:
         raise InputError(f"x and y must have the same shape; got {x.shape} and {y.shape}")
-    yd = (y - K[1, 2]) / K[1, 1]
-    xd = (x - K[0, 2] - K[0, 1] * yd) / K[0, 0]
+    xd, yd = normalised_coordinates(x, y, K)
     xn = np.full(x.shape, np.nan)
     yn = np.full(x.shape, np.nan)
     ok = np.isfinite(xd) & np.isfinite(yd)

@@ -38,8 +38,8 @@ def vsg_size(window: int, step: float, subset: float) -> float:
 
 
 def strain_field(field, *, window: int = DEFAULT_WINDOW, measure: str = DEFAULT_MEASURE,
-                 fit: str = "plane",
-                 min_points: int | None = None, out_of_plane: str | None = None) -> StrainField:
+                 fit: str = "plane", min_points: int | None = None,
+                 out_of_plane: str | None = None) -> StrainField:
     """Strain tensors from a displacement field by pointwise least squares.
 
     At every measured point a plane (or quadratic) is fitted to u and v over the window of

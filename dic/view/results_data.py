@@ -273,8 +273,7 @@ class ResultsData:
             return self._limits[key]
 
     def frame_map(self, k, component="xx", measure=DEFAULT_MEASURE, window=DEFAULT_WINDOW,
-                  mode="shared",
-                  lo=None, hi=None, under="ref") -> dict:
+                  mode="shared", lo=None, hi=None, under="ref") -> dict:
         """The colour map of one strain component at frame ``k``, its limits and reason codes.
 
         ``under="ref"``: one map pixel per grid point, over the reference image. ``"cur"``:
