@@ -386,7 +386,7 @@ def test_garbage_at_invalid_points_changes_nothing(occluded_field, measure):
     rng = np.random.default_rng(8)
     for fill in (1e6, -np.inf, np.nan, rng.normal(0.0, 1e3, field.shape)):
         g = dic.DisplacementField(**{k: getattr(field, k) for k in (
-            "x", "y", "zncc", "reason", "iterations", "settings")},
+            "x", "y", "zncc", "reason", "iterations", "settings", "std_u", "std_v")},
             u=field.u.copy(), v=field.v.copy(), grad=field.grad.copy())
         val = fill if np.isscalar(fill) else fill[bad]
         g.u[bad] = val
@@ -404,7 +404,9 @@ def test_garbage_at_invalid_points_changes_nothing(occluded_field, measure):
 
 def test_windows_next_to_the_hole_use_only_measured_points(occluded_field):
     # at points whose window holds unmeasured points, the gradient is the least-squares plane
-    # through the measured points of the window only (numpy.linalg.lstsq; Pan et al. 2009)
+    # through the measured points of the window only (numpy.linalg.lstsq; Pan et al. 2009),
+    # each weighing (0.2 px / sigma)^2 where its standard deviation sigma exceeds 0.2 px
+    # (weighted least squares: rows scaled by the square root of the weights, textbook)
     disp, field = occluded_field
     window, h = 7, 3
     s = dic.strain_field(field, window=window, measure="infinitesimal")
@@ -420,7 +422,9 @@ def test_windows_next_to_the_hole_use_only_measured_points(occluded_field):
         assert used.sum() == s.n_used[i, j]
         A = np.column_stack([np.ones(used.sum()), (field.x[sl] - field.x[i, j])[used],
                              (field.y[sl] - field.y[i, j])[used]])
+        sig = np.fmax(field.std_u[sl], field.std_v[sl])[used]
+        r = np.sqrt(np.where(sig > 0.2, (0.2 / sig) ** 2, 1.0))
         for c, comp in enumerate((field.u, field.v)):
-            coef = np.linalg.lstsq(A, comp[sl][used], rcond=None)[0]
+            coef = np.linalg.lstsq(A * r[:, None], comp[sl][used] * r, rcond=None)[0]
             # |u| <= 4 px, offsets <= 15 px: rounding ~1e-15; 1e-11 bar
             np.testing.assert_allclose(grad[i, j, c], coef[1:], rtol=0, atol=1e-11)

@@ -474,3 +474,62 @@ def test_lazy_package_names():
     # the package's lazy table maps these names to dic.strain
     assert dic.strain_field is strain_field
     assert dic.StrainField is dic.strain.StrainField
+
+
+# --- uncertain points weigh by their standard deviation ------------------------------------------
+
+@pytest.mark.parametrize("fit", ["plane", "quadratic"])
+def test_uncertain_points_weigh_by_inverse_variance(fit):
+    # a linear field with a few points off by 1.5 px whose standard deviations say so (1.5 px):
+    # each fit is the weighted least squares of the window's points with weights
+    # (0.2 / sigma)^2 above 0.2 px, 1 below (numpy.linalg.lstsq on rows scaled by the square
+    # roots of the weights: the textbook weighted least squares)
+    f = make_field(lin_u, lin_v, invalid=holes())
+    su = np.full(f.shape, 0.02)
+    off = [(10, 10), (11, 25), (20, 5), (25, 35), (3, 3)]
+    for i, j in off:
+        f.u[i, j] += 1.5
+        su[i, j] = 1.5
+    f.std_u, f.std_v = su, su.copy()
+    window, h = 7, 3
+    fit_w = displacement_gradient(f, window=window, fit=fit)
+    monos = ((0, 0), (1, 0), (0, 1)) + (((2, 0), (1, 1), (0, 2)) if fit == "quadratic" else ())
+    checked = 0
+    for i, j in np.argwhere(fit_w.valid):
+        sl = (slice(max(i - h, 0), i + h + 1), slice(max(j - h, 0), j + h + 1))
+        used = f.valid[sl]
+        sig = np.fmax(f.std_u[sl], f.std_v[sl])[used]
+        if not np.any(sig > 0.2):
+            continue
+        dx = (f.x[sl] - f.x[i, j])[used] / STEP
+        dy = (f.y[sl] - f.y[i, j])[used] / STEP
+        A = np.column_stack([dx ** p * dy ** q for p, q in monos])
+        r = np.sqrt(np.where(sig > 0.2, (0.2 / sig) ** 2, 1.0))
+        for c, comp in enumerate((f.u, f.v)):
+            coef = np.linalg.lstsq(A * r[:, None], comp[sl][used] * r, rcond=None)[0]
+            # offsets <= 3 grid steps, |u| <= 2 px: rounding ~1e-15; 1e-11 bar
+            np.testing.assert_allclose(fit_w.grad[i, j, c], coef[1:3] / STEP, rtol=0,
+                                       atol=1e-11)
+        checked += 1
+    assert checked > 100
+    # the weights pull the fit towards the exact gradient: the largest error of du/dx falls by
+    # more than 5 times against the same field without standard deviations (plain fit)
+    f.std_u = f.std_v = None
+    plain = displacement_gradient(f, window=window, fit=fit)
+    e_w = np.nanmax(np.abs(fit_w.grad[..., 0, 0] - G[0, 0]))
+    e_p = np.nanmax(np.abs(plain.grad[..., 0, 0] - G[0, 0]))
+    assert e_w < e_p / 5
+
+
+def test_points_within_the_full_weight_limit_change_nothing():
+    # standard deviations all at or below 0.2 px: the fit is exactly the unweighted one
+    f = make_field(lin_u, lin_v, invalid=holes())
+    rng = np.random.default_rng(3)
+    f.u += rng.normal(0, 0.05, f.shape)
+    plain = displacement_gradient(f, window=9)
+    f.std_u = rng.uniform(0.0, 0.2, f.shape)
+    f.std_v = rng.uniform(0.0, 0.2, f.shape)
+    np.testing.assert_array_equal(displacement_gradient(f, window=9).grad, plain.grad)
+    from dic.matching import GROW_SIGMA
+    from dic.strain.defaults import FULL_WEIGHT_SIGMA
+    assert FULL_WEIGHT_SIGMA == GROW_SIGMA

@@ -25,7 +25,7 @@ from typing import NamedTuple
 import numpy as np
 
 from dic.errors import RegionTooSmall, TooFewPoints
-from dic.strain.defaults import DEFAULT_WINDOW
+from dic.strain.defaults import DEFAULT_WINDOW, FULL_WEIGHT_SIGMA
 
 __all__ = ["displacement_gradient", "default_min_points", "GradientFit", "FITS"]
 
@@ -121,6 +121,23 @@ def _grid_spacing(x, y) -> tuple[float, float]:
     return float(sx), float(sy)
 
 
+def _point_weights(field, measured):
+    """Weights of the measured points in the fit: ``(FULL_WEIGHT_SIGMA / sigma)^2`` where the
+    larger standard deviation ``sigma`` of a point exceeds ``FULL_WEIGHT_SIGMA``, 1 elsewhere
+    (and where it is not known), 0 at unmeasured points; None when every weight is 0 or 1."""
+    su, sv = getattr(field, "std_u", None), getattr(field, "std_v", None)
+    if su is None or sv is None:
+        return None
+    with np.errstate(invalid="ignore"):
+        s = np.fmax(np.asarray(su, dtype=np.float64), np.asarray(sv, dtype=np.float64))
+        over = measured & (s > FULL_WEIGHT_SIGMA)  # NaN compares False: weight 1
+    if not over.any():
+        return None
+    weight = measured.astype(np.float64)
+    weight[over] = (FULL_WEIGHT_SIGMA / s[over]) ** 2
+    return weight
+
+
 def _window_sum(arr: np.ndarray, p: int, q: int, h: int) -> np.ndarray:
     """``sum over the window of arr * dj**p * di**q`` at every point (zero outside the grid)."""
     from scipy.ndimage import correlate1d
@@ -176,7 +193,10 @@ def displacement_gradient(field, *, window: int = DEFAULT_WINDOW, fit: str = "pl
     Parameters
     ----------
     field : DisplacementField
-        Displacements on a regular grid of points; only ``field.valid`` points are used.
+        Displacements on a regular grid of points; only ``field.valid`` points are used. Where
+        the field has standard deviations (``std_u``, ``std_v``), a point whose larger one
+        exceeds ``FULL_WEIGHT_SIGMA`` (0.2 px) weighs ``(FULL_WEIGHT_SIGMA / sigma)^2`` in the
+        fit (weighted least squares); all others weigh 1.
     window : int
         Odd size N of the square strain window in grid points (>= 3; >= 5 for the quadratic fit).
     fit : {"plane", "quadratic"}
@@ -249,7 +269,14 @@ def displacement_gradient(field, *, window: int = DEFAULT_WINDOW, fit: str = "pl
     count = _window_sum(wf, 0, 0, h)
     # the counts are exact small integers in float64
     full = w & (count == n_win)
-    part = w & (count >= min_points) & (count < n_win)
+    weight = _point_weights(field, w)
+    if weight is not None:
+        # a window holding an uncertain point is fitted with the weights (the general path)
+        full &= _window_sum(np.where(weight < 1.0, 1.0, 0.0), 0, 0, h) == 0
+        uw, vw = weight * uf, weight * vf
+    else:
+        weight, uw, vw = wf, uf, vf
+    part = w & (count >= min_points) & ~full
 
     # slopes in index units (per grid step) along j (x) and i (y)
     slope = np.full(u.shape + (2, 2), np.nan)
@@ -267,16 +294,16 @@ def displacement_gradient(field, *, window: int = DEFAULT_WINDOW, fit: str = "pl
         monos = FITS[fit]
         idx = np.nonzero(part)
         powers = {(a[0] + b[0], a[1] + b[1]) for a in monos for b in monos}
-        moments = {pq: _window_sum(wf, *pq, h)[idx] for pq in powers}
+        moments = {pq: _window_sum(weight, *pq, h)[idx] for pq in powers}
         k = idx[0].size
         M = np.empty((k, n_par, n_par))
         for r, a in enumerate(monos):
             for c, b in enumerate(monos):
                 M[:, r, c] = moments[(a[0] + b[0], a[1] + b[1])]
         rhs = np.empty((k, n_par, 2))
-        for comp, arr in enumerate((uf, vf)):
+        for comp, arr in enumerate((uw, vw)):
             for r, (p, q) in enumerate(monos):
-                sums = rhs_first.get((comp, p, q))
+                sums = rhs_first.get((comp, p, q)) if arr is uf or arr is vf else None
                 if sums is None:
                     sums = _window_sum(arr, p, q, h)
                 rhs[:, r, comp] = sums[idx]
