@@ -51,6 +51,8 @@ PRECHECK = 3.0
 #: up to 8 px off; matched afterwards they take the measured share from 91.5 to 95.5 %: 162
 #: points, median error 0.17 px, median |error| / sigma 0.89, one beyond 2 px
 GROW_SIGMA = 0.2
+#: default of correlate's max_sigma (px): points less certain than this are FLAT
+DEFAULT_MAX_SIGMA = 2.0
 #: the predicted interpolation bias (dic.matching.interpolation_bias) enters the standard
 #: deviations times this: a pure bias |b| gives the median |error| / sigma of a normal error
 #: (0.67) with sigma = 1.48 |b|, and the prediction is low (0.63-0.86 of the mean error of
@@ -308,7 +310,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
               shape_function: str = "auto", interpolation: str = "quintic",
               seeds: Sequence | None = None, search: int = 60, min_zncc: float = 0.9,
               max_iterations: int = 50, tolerance: float = 0.02, min_texture: float = 0.0,
-              max_sigma: float = 2.0, initial: DisplacementField | None = None,
+              max_sigma: float = DEFAULT_MAX_SIGMA, initial: DisplacementField | None = None,
               workers: int | None = None, image_noise=None, _prepared=None,
               _points=None) -> DisplacementField:
     """Measure the displacement field between a reference and a deformed image.

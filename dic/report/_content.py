@@ -124,6 +124,7 @@ def _settings(res, info, metro):
         ("Matching criterion", f"{s.get('criterion', 'ZNSSD')} solved by "
                                f"{s.get('solver', 'IC-GN')}; points with ZNCC below "
                                f"{_fmt(s.get('min_zncc'))} rejected"),
+        ("Uncertain points", _uncertain_text(s)),
         ("Interpolation", f"{interp} B-spline" if interp in ("cubic", "quintic") else
          str(interp)),
         ("Reference image", f"image {ref} ({Path(info['reference_name']).name})"
@@ -154,6 +155,23 @@ def _settings(res, info, metro):
                       "Practices Guide for Digital Image Correlation (2018, "
                       "doi:10.32720/idics/gpg.ed1)."),
             Table(rows=rows, header=("Parameter", "Value"))]
+
+
+def _uncertain_text(settings):
+    """The settings row on how sure a point must be to be measured (dic.correlate's
+    max_sigma, its default where the results file does not record it)."""
+    from dic.matching import DEFAULT_MAX_SIGMA, GROW_SIGMA
+
+    try:
+        limit = float(settings.get("max_sigma", DEFAULT_MAX_SIGMA))
+    except (TypeError, ValueError):
+        limit = DEFAULT_MAX_SIGMA
+    text = f"points whose standard deviation exceeds {limit:g} px are left out"
+    if limit > GROW_SIGMA:
+        text += (f"; those above {GROW_SIGMA:g} px are measured from well-determined "
+                 f"neighbours only, lead no other point and weigh (sigma / {GROW_SIGMA:g} px)"
+                 f"\u207b\u00b2 in the strain fit")
+    return text
 
 
 def _is_short(value):
