@@ -177,7 +177,7 @@ def admit_uncertain(prop, min_grad2, sigma_limit, reach=REACH):
                 far = np.hypot(prop.params[got, iu] - pred[:, iu],
                                prop.params[got, iv] - pred[:, iv]) > reach
                 prop.state[got[far]] = w.BAD
-                anchor[got] = a
+                anchor[got[~far]] = a[~far]
                 gained.append(got[~far])
             failed = failed[prop.state[failed] != w.GOOD]
             k = np.concatenate(gained) if gained else np.zeros(0, np.int64)
