@@ -152,6 +152,14 @@ class _Propagation:
         self.reason[idx[flat]] = Reason.FLAT
         return flat
 
+    def fit_sigma(self, std, zncc, unc):
+        """The larger of the standard deviations (px) of u and v from the fit of matches with
+        subset standard deviations ``std``, ZNCC ``zncc`` and uncertainty terms ``unc``
+        (:func:`dic.matching.posterior_sigma`)."""
+        su, sv = posterior_sigma(std, zncc, unc, (2 * self.m.half + 1) ** 2,
+                                 n_params(self.m.second), self.m.order)
+        return np.fmax(su, sv)
+
     def run(self, idx, p0, *, retry_later=False, on_fail=None, tolerance=None):
         """Match points ``idx`` from ``p0``; return the indices that matched well.
 
@@ -166,11 +174,9 @@ class _Propagation:
         wide = np.zeros(good.shape, bool)
         if np.isfinite(self.sigma_limit):
             k = np.flatnonzero(good | weak)
-            npix = (2 * self.m.half + 1) ** 2
-            su, sv = posterior_sigma(res.std[k], res.zncc[k], res.uncertainty[k], npix,
-                                     n_params(self.m.second), self.m.order)
             strong = good[k]
-            ok = np.fmax(su, sv) <= np.where(strong, self.sigma_limit, self.weak_limit)
+            ok = self.fit_sigma(res.std[k], res.zncc[k], res.uncertainty[k]) <= np.where(
+                strong, self.sigma_limit, self.weak_limit)
             good[k] = ok  # NaN compares False
             wide[k] = strong & ~ok
         status = np.select([wide, conv & ~good], [Reason.FLAT, Reason.LOW_ZNCC],

@@ -197,10 +197,5 @@ def admit_uncertain(prop, min_grad2, sigma_limit, reach=REACH):
 def _within(prop, idx, limit):
     """True where the matches ``idx`` meet the propagation's strict limits: ZNCC at least its
     minimum and standard deviations from the fit within ``limit`` px."""
-    from dic.matching._checks import posterior_sigma
-    from dic.matching._icgn import n_params
-
-    npix = (2 * prop.m.half + 1) ** 2
-    su, sv = posterior_sigma(prop.std[idx], prop.zncc[idx], prop.unc[idx], npix,
-                             n_params(prop.m.second), prop.m.order)
-    return (prop.zncc[idx] >= prop.min_zncc) & (np.fmax(su, sv) <= limit)
+    sigma = prop.fit_sigma(prop.std[idx], prop.zncc[idx], prop.unc[idx])
+    return (prop.zncc[idx] >= prop.min_zncc) & (sigma <= limit)

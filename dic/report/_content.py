@@ -161,6 +161,7 @@ def _uncertain_text(settings):
     """The settings row on how sure a point must be to be measured (dic.correlate's
     max_sigma, its default where the results file does not record it)."""
     from dic.matching import DEFAULT_MAX_SIGMA, GROW_SIGMA
+    from dic.strain.defaults import FULL_WEIGHT_SIGMA
 
     try:
         limit = float(settings.get("max_sigma", DEFAULT_MAX_SIGMA))
@@ -169,8 +170,8 @@ def _uncertain_text(settings):
     text = f"points whose standard deviation exceeds {limit:g} px are left out"
     if limit > GROW_SIGMA:
         text += (f"; those above {GROW_SIGMA:g} px are measured from well-determined "
-                 f"neighbours only, lead no other point and weigh (sigma / {GROW_SIGMA:g} px)"
-                 f"\u207b\u00b2 in the strain fit")
+                 f"neighbours only, lead no other point and weigh "
+                 f"(sigma / {FULL_WEIGHT_SIGMA:g} px)\u207b\u00b2 in the strain fit")
     return text
 
 

@@ -270,7 +270,8 @@ def displacement_gradient(field, *, window: int = DEFAULT_WINDOW, fit: str = "pl
     # the counts are exact small integers in float64
     full = w & (count == n_win)
     weight = _point_weights(field, w)
-    if weight is not None:
+    weighted = weight is not None
+    if weighted:
         # a window holding an uncertain point is fitted with the weights (the general path)
         full &= _window_sum(np.where(weight < 1.0, 1.0, 0.0), 0, 0, h) == 0
         uw, vw = weight * uf, weight * vf
@@ -303,7 +304,8 @@ def displacement_gradient(field, *, window: int = DEFAULT_WINDOW, fit: str = "pl
         rhs = np.empty((k, n_par, 2))
         for comp, arr in enumerate((uw, vw)):
             for r, (p, q) in enumerate(monos):
-                sums = rhs_first.get((comp, p, q)) if arr is uf or arr is vf else None
+                # the unweighted sums of the full-window path serve again where unweighted
+                sums = None if weighted else rhs_first.get((comp, p, q))
                 if sums is None:
                     sums = _window_sum(arr, p, q, h)
                 rhs[:, r, comp] = sums[idx]
