@@ -172,7 +172,7 @@ def test_help_and_version_exit_zero(capsys):
     text = capsys.readouterr().out
     for option in ("--out", "--config", "--reference", "--frames", "--subset", "--step",
                    "--roi", "--roi-mask", "--shape-function", "--interpolation", "--min-zncc",
-                   "--search", "--block", "--scale", "--scale-line", "--strain-window",
+                   "--max-sigma", "--search", "--block", "--scale", "--scale-line", "--strain-window",
                    "--strain-measure", "--workers", "--cluster", "--overwrite", "--quiet",
                    "--verbose"):
         assert option in text
@@ -220,6 +220,7 @@ def _bad_cases(pair, bad):
         "reference out of range": [ref, moved, "--reference", "2"],
         "subset not a number": [ref, moved, "--subset", "big"],
         "min zncc out of range": [ref, moved, "--min-zncc", "1.5"],
+        "max sigma not positive": [ref, moved, "--max-sigma", "0"],
         "unknown option": [ref, moved, "--no-such-option"],
     }
 
@@ -227,7 +228,8 @@ def _bad_cases(pair, bad):
 CASES = ["missing file", "size mismatch", "even subset", "subset 5", "step 0", "empty folder",
          "garbage file", "garbage reference", "bad roi syntax", "roi not numbers",
          "roi outside image", "missing roi mask", "one image only", "reference out of range",
-         "subset not a number", "min zncc out of range", "unknown option"]
+         "subset not a number", "min zncc out of range", "max sigma not positive",
+         "unknown option"]
 
 
 @pytest.mark.parametrize("case", CASES)

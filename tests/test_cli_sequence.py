@@ -11,6 +11,7 @@ with an uninterrupted run, number for number.
 from __future__ import annotations
 
 import errno
+import json
 import os
 import re
 import signal
@@ -362,6 +363,64 @@ def test_interrupted_run_survives_failing_resumes(frames, reference_run, tmp_pat
     assert main(cmd) == 0
     assert _n_done(out) == N_FRAMES
     _assert_same_frames(reference_run, out)
+
+
+def test_max_sigma_reaches_every_frame_and_old_files_resume(frames, reference_run, tmp_path,
+                                                            capsys):
+    """The limit on a point's standard deviation, from the analysis file or the option, holds
+    in every frame and is recorded; a file written before the setting was recorded resumes
+    under the default and refuses another value."""
+    with Results.open(reference_run) as r:
+        assert r.settings["max_sigma"] == 2.0           # the default, recorded
+        f = r.field(N_FRAMES - 1)
+        sig = np.fmax(f.std_u, f.std_v)[f.valid]
+    # a limit at the 70th percentile of the last frame's standard deviations: about 30 % of
+    # its points are less sure than it, so it changes which points are measured (and stays
+    # below the share, one half, at which a run warns of a pattern without texture)
+    limit = float(np.percentile(sig, 70))
+    toml = _toml(tmp_path / "a.toml", f"""
+images = "{frames.as_posix()}"
+out = "strict.h5"
+[matching]
+shape_function = "quadratic"
+max_sigma = {limit!r}
+""")
+    assert main(["run", "--config", str(toml), "-q"]) == 0
+    by_option = tmp_path / "by_option.h5"
+    assert main(["run", str(frames), "--out", str(by_option), "--shape-function", "quadratic",
+                 "--max-sigma", repr(limit), "-q"]) == 0
+    _assert_same_frames(tmp_path / "strict.h5", by_option)
+    with Results.open(by_option) as r, Results.open(reference_run) as ref:
+        assert r.settings["max_sigma"] == limit
+        updates = np.asarray(r.reference_updates)
+        for k in range(1, N_FRAMES):
+            f, g = r.field(k), ref.field(k)
+            # the option's definition: no point matched less sure than the limit is measured.
+            # After n changes of reference a frame's displacement is the sum of n + 1 matches,
+            # whose independent errors add in quadrature: at most sqrt(n + 1) x the limit (the
+            # file holds standard deviations in float32: relative rounding 6e-8)
+            n = np.count_nonzero(updates <= k)
+            bound = limit * np.sqrt(n + 1) * (1 + 1e-6)
+            assert np.all(np.fmax(f.std_u, f.std_v)[f.valid] <= bound), k
+        # in the first frame (one match, same reference as the default run) the points left
+        # out are the less sure ones (FLAT); a few more fail the neighbour test or are cut off
+        # once neighbours are missing
+        f, g = r.field(1), ref.field(1)
+        why = f.reason[g.valid & ~f.valid]
+        assert why.size >= 0.1 * np.count_nonzero(g.valid)
+        assert np.count_nonzero(why == dic.Reason.FLAT) >= 0.9 * why.size
+    # a file from before max_sigma was recorded: its settings lack the key
+    old = tmp_path / "old.h5"
+    assert main(["run", str(frames), "--out", str(old), "--frames", "0:3", "-q"]) == 0
+    with h5py.File(old, "r+") as h:
+        s = json.loads(h.attrs["settings"])
+        del s["max_sigma"]
+        h.attrs["settings"] = json.dumps(s)
+    assert main(["run", str(frames), "--out", str(old), "--frames", "0:3", "-q"]) == 0
+    assert main(["run", str(frames), "--out", str(old), "--frames", "0:3", "--max-sigma",
+                 "0.5", "-q"]) == 2
+    line = _one_error_line(capsys.readouterr().err)
+    assert "max_sigma (--max-sigma): 2.0 in file, 0.5 now" in line, line
 
 
 @pytest.fixture(scope="module")

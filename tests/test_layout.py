@@ -23,7 +23,7 @@ RANK = {
     "cli": 90, "workflow": 80, "figures": 70, "report": 70, "export": 70, "view": 75,
     "tensile": 60, "metrology": 50, "sequence": 40, "stereo": 35, "matching": 30,
     "strain": 30, "images": 20, "field": 10, "errors": 10, "files": 10, "tomlfile": 10,
-    "lazy": 10, "_version": 10,
+    "lazy": 10, "_version": 10, "limits": 10,
     "__init__": 100, "__main__": 100,
 }
 KERNELS = {"_icgn_kernel.py"}

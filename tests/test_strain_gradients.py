@@ -530,6 +530,3 @@ def test_points_within_the_full_weight_limit_change_nothing():
     f.std_u = rng.uniform(0.0, 0.2, f.shape)
     f.std_v = rng.uniform(0.0, 0.2, f.shape)
     np.testing.assert_array_equal(displacement_gradient(f, window=9).grad, plain.grad)
-    from dic.matching import GROW_SIGMA
-    from dic.strain.defaults import FULL_WEIGHT_SIGMA
-    assert FULL_WEIGHT_SIGMA == GROW_SIGMA

@@ -18,6 +18,7 @@ from pathlib import Path
 from dic.cli.calibrate import (add_camera_options, camera_settings, camera_summary,
                                write_camera_maps)
 from dic.cli.types import numbers, positive_float, positive_int, rectangle
+from dic.limits import DEFAULT_MAX_SIGMA
 from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 
 __all__ = ["register", "RESULTS_NAME"]
@@ -32,7 +33,7 @@ _RESULTS_SUFFIXES = (".h5", ".hdf5")
 
 # defaults of dic.track, shown in --help and used when neither option nor analysis file sets one
 _DEFAULTS = dict(subset=21, step=10, shape_function="auto", interpolation="quintic",
-                 min_zncc=0.9, search=60, block=8, reference=0)
+                 min_zncc=0.9, max_sigma=DEFAULT_MAX_SIGMA, search=60, block=8, reference=0)
 _STRAIN_DEFAULTS = dict(window=DEFAULT_WINDOW, measure=DEFAULT_MEASURE)
 
 
@@ -135,6 +136,10 @@ def _add_run(commands):
                         f"{d['interpolation']})")
     m.add_argument("--min-zncc", type=float, metavar="Z",
                    help=f"reject matches with a lower ZNCC (default: {d['min_zncc']})")
+    m.add_argument("--max-sigma", type=positive_float, metavar="PX",
+                   help=f"leave out points whose standard deviation of u or v exceeds this "
+                        f"(px; default: {d['max_sigma']:g}; 0.2 leaves the less certain ones "
+                        f"out)")
     m.add_argument("--search", type=int, metavar="PX",
                    help=f"seed search radius in px for the first image (default: {d['search']})")
     m.add_argument("--block", type=positive_int, metavar="N",
@@ -275,13 +280,15 @@ def _analysis(args):
 
     kw = {}
     for key in ("reference", "frames", "subset", "step", "shape_function", "interpolation",
-                "min_zncc", "search", "block", "roi", "scale", "workers", "cluster"):
+                "min_zncc", "max_sigma", "search", "block", "roi", "scale", "workers",
+                "cluster"):
         if key in conf:
             kw[key] = conf[key]
     given = dict(reference=args.reference, frames=args.frames, subset=args.subset,
                  step=args.step, shape_function=args.shape_function,
-                 interpolation=args.interpolation, min_zncc=args.min_zncc, search=args.search,
-                 block=args.block, workers=args.workers, cluster=args.cluster)
+                 interpolation=args.interpolation, min_zncc=args.min_zncc,
+                 max_sigma=args.max_sigma, search=args.search, block=args.block,
+                 workers=args.workers, cluster=args.cluster)
     if args.roi is not None or args.roi_mask is not None:
         given["roi"] = args.roi if args.roi is not None else args.roi_mask
     if args.scale is not None or args.scale_line is not None:
@@ -498,6 +505,7 @@ def _frames_done(path):
 _SETTING_OPTIONS = {"strain.window": "--strain-window", "strain.measure": "--strain-measure",
                     "subset": "--subset", "step": "--step", "shape_function": "--shape-function",
                     "interpolation": "--interpolation", "min_zncc": "--min-zncc",
+                    "max_sigma": "--max-sigma",
                     "search": "--search", "block": "--block", "reference": "--reference",
                     "frames": "--frames", "roi": "--roi"}
 
@@ -508,6 +516,8 @@ def _with_options(message):
         for lead in ("(", "; "):
             message = message.replace(f"{lead}{name}: ", f"{lead}{name} ({option}): ")
     return message
+
+
 def _load_kernels(kw):
     """Compile (or load from the cache) the numerical kernels on a small synthetic pair with the
     run's matching settings; returns the seconds it took, reported apart from the frame rate."""

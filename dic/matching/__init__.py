@@ -15,6 +15,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from dic.field import DisplacementField, Reason
+from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA
 from dic.matching._edge import edge_bias, edge_distance, near_border
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
@@ -44,15 +45,13 @@ WEAK_SIGMA = 0.5
 #: grey levels, the whole image 2.7) and with the plain limit it took 17 % of the measurable
 #: points of smooth surfaces as flat, which the residual of the match found well determined
 PRECHECK = 3.0
-#: the propagation grows only through matches whose standard deviation is within this (px) or
-#: max_sigma if smaller. Points between it and max_sigma are matched afterwards, each anchored to
-#: a well-determined neighbour (dic.matching._rescue.admit_uncertain). On the photographed
-#: motorcycle pair (smooth surfaces, step 5), letting them lead the growth pulled 13 good points
-#: up to 8 px off; matched afterwards they take the measured share from 91.5 to 95.5 %: 162
-#: points, median error 0.17 px, median |error| / sigma 0.89, one beyond 2 px
-GROW_SIGMA = 0.2
-#: default of correlate's max_sigma (px): points less certain than this are FLAT
-DEFAULT_MAX_SIGMA = 2.0
+# GROW_SIGMA (dic.limits): the propagation grows only through matches whose standard deviation
+# is within it (px) or max_sigma if smaller. Points between it and max_sigma are matched
+# afterwards, each anchored to a well-determined neighbour (dic.matching._rescue.admit_uncertain).
+# On the photographed motorcycle pair (smooth surfaces, step 5), letting them lead the growth
+# pulled 13 good points up to 8 px off; matched afterwards they take the measured share from
+# 91.5 to 95.5 %: 162 points, median error 0.17 px, median |error| / sigma 0.89, one beyond 2 px.
+# DEFAULT_MAX_SIGMA (dic.limits): correlate's default max_sigma
 #: the predicted interpolation bias (dic.matching.interpolation_bias) enters the standard
 #: deviations times this: a pure bias |b| gives the median |error| / sigma of a normal error
 #: (0.67) with sigma = 1.48 |b|, and the prediction is low (0.63-0.86 of the mean error of

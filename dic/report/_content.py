@@ -160,7 +160,7 @@ def _settings(res, info, metro):
 def _uncertain_text(settings):
     """The settings row on how sure a point must be to be measured (dic.correlate's
     max_sigma, its default where the results file does not record it)."""
-    from dic.matching import DEFAULT_MAX_SIGMA, GROW_SIGMA
+    from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA
     from dic.strain.defaults import FULL_WEIGHT_SIGMA
 
     try:

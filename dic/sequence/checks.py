@@ -11,8 +11,12 @@ from pathlib import Path
 import numpy as np
 
 from dic.errors import InputError
+from dic.limits import DEFAULT_MAX_SIGMA
 from dic.sequence.h5file import one_line
 from dic.sequence.layout import strain_key
+
+#: settings recorded only since a later version, with the value older files were made with
+SETTINGS_ADDED = {"max_sigma": DEFAULT_MAX_SIGMA}
 
 __all__ = ["check_path", "settings_json", "strain_spec"]
 
@@ -55,6 +59,17 @@ def differences(old, new, prefix=""):
             out.extend(differences(old[key], new[key], name + "."))
         elif old[key] != new[key]:
             out.append((name, old[key], new[key]))
+    return out
+
+
+def with_added_settings(old, new):
+    """``old`` (a results file's settings) with the settings recorded only since a later
+    version filled in as the older files were made with them (their defaults then), where
+    ``new`` has them."""
+    out = dict(old)
+    for key, value in SETTINGS_ADDED.items():
+        if key in new and key not in out:
+            out[key] = value
     return out
 
 

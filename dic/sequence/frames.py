@@ -21,6 +21,7 @@ from dataclasses import dataclass, field as dc_field, replace
 import numpy as np
 
 from dic.field import DisplacementField, Reason
+from dic.limits import DEFAULT_MAX_SIGMA
 
 __all__ = ["TrackSettings", "FrameMatcher", "compose_increment", "needs_new_reference",
            "current_points"]
@@ -40,6 +41,9 @@ class TrackSettings:
         See :func:`dic.correlate`.
     min_zncc : float
         Points matching worse are rejected.
+    max_sigma : float
+        Points whose standard deviation of u or v exceeds this many px are not measured
+        (``FLAT``; see :func:`dic.correlate`).
     search : int
         Seed search radius (px).
     block : int
@@ -56,6 +60,7 @@ class TrackSettings:
     shape_function: str = "auto"
     interpolation: str = "quintic"
     min_zncc: float = 0.9
+    max_sigma: float = DEFAULT_MAX_SIGMA
     search: int = 60
     block: int = 8
     update_valid: float = 0.95
@@ -64,7 +69,7 @@ class TrackSettings:
     def correlate_options(self) -> dict:
         return dict(subset=self.subset, step=self.step, shape_function=self.shape_function,
                     interpolation=self.interpolation, min_zncc=self.min_zncc,
-                    search=self.search)
+                    max_sigma=self.max_sigma, search=self.search)
 
     def as_dict(self) -> dict:
         return dict(self.__dict__)

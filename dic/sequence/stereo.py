@@ -276,8 +276,8 @@ def _stereo(out, n, s, shape, roi, grid_x, cal, left_items, right_items, strain,
     window, measure = _strain_spec(strain, STEREO_STRAIN)
     ref = int(s.get("reference", 0))
     frames = [int(k) for k in s.get("frames", range(len(left_items)))]
-    opts = {k: s[k] for k in ("subset", "step", "shape_function", "interpolation", "min_zncc")
-            if k in s}
+    opts = {k: s[k] for k in ("subset", "step", "shape_function", "interpolation", "min_zncc",
+                              "max_sigma") if k in s}
     if opts.get("shape_function") not in ("affine", "quadratic", "auto"):
         opts.pop("shape_function", None)
     left_ref = _image(left_items[ref])

@@ -17,6 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from dic.field import DisplacementField
+from dic.limits import DEFAULT_MAX_SIGMA
 from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, as_stored,
                                  extrapolate, needs_new_reference)
@@ -296,12 +297,25 @@ def _make_executor(workers, cluster):
     return pool, 1
 
 
+def _check_max_sigma(value):
+    """``max_sigma`` as a float, or a one-line error naming the fix."""
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        v = float("nan")
+    if isinstance(value, bool) or not v > 0:
+        raise ValueError(f"max_sigma must be a positive number of px, got {value!r}; e.g. "
+                         f"{DEFAULT_MAX_SIGMA:g} (the default) or 0.2 to leave uncertain "
+                         f"points unmeasured")
+    return v
+
+
 # ------------------------------------------------------------------------------------------
 # the driver
 # ------------------------------------------------------------------------------------------
 def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None,
-          shape_function="auto", interpolation="quintic", min_zncc=0.9, search=60,
-          block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
+          shape_function="auto", interpolation="quintic", min_zncc=0.9,
+          max_sigma=DEFAULT_MAX_SIGMA, search=60, block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
           scale=None, overwrite=False, progress=False, strain=None, right_images=None,
           calibration=None, max_view_angle=None):
     """Track a sequence of images and write a results file.
@@ -313,8 +327,9 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
     out : path
         Results file (HDF5). An existing file from the same analysis is resumed after its last
         completed frame; one from different settings is an error unless ``overwrite``.
-    subset, step, roi, shape_function, interpolation, min_zncc, search
-        As for :func:`dic.correlate`.
+    subset, step, roi, shape_function, interpolation, min_zncc, max_sigma, search
+        As for :func:`dic.correlate` (``max_sigma``: points whose standard deviation of u or v
+        exceeds this many px are not measured; default 2).
     reference : int
         Index of the reference image (default the first).
     frames : slice, range or sequence of int, optional
@@ -368,8 +383,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
             right_images=None if right_images is None else resolve_images(right_images),
             subset=subset, step=step, roi=roi, reference=reference, frames=frames,
             shape_function=shape_function, interpolation=interpolation, min_zncc=min_zncc,
-            search=search, block=block, update_valid=update_valid, update_zncc=update_zncc,
-            workers=workers, cluster=cluster, scale=scale, overwrite=overwrite,
+            max_sigma=max_sigma, search=search, block=block, update_valid=update_valid,
+            update_zncc=update_zncc, workers=workers, cluster=cluster, scale=scale, overwrite=overwrite,
             progress=progress)
     from dic.images.roi import make_roi
     from dic.sequence.reader import Results
@@ -381,8 +396,10 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
         raise ValueError(f"reference must be an image index from 0 to {n_img - 1}, got "
                          f"{reference!r}")
     order = _frame_list(frames, n_img)
+    max_sigma = _check_max_sigma(max_sigma)
     settings = TrackSettings(subset=subset, step=step, shape_function=shape_function,
-                             interpolation=interpolation, min_zncc=min_zncc, search=search,
+                             interpolation=interpolation, min_zncc=min_zncc,
+                             max_sigma=max_sigma, search=search,
                              block=int(block), update_valid=float(update_valid),
                              update_zncc=float(update_zncc))
     if settings.block < 1:

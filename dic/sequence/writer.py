@@ -18,7 +18,7 @@ from dic.field import DisplacementField, Reason
 from dic.files import (atomic_write, check_folder, is_disk_full, lock_file, partial_name,
                        remove_stale_partials, reserve_space, sparse_copy, unlock_file)
 from dic.sequence.checks import (check_path, differences, same_value, settings_json, short,
-                                 strain_spec, string_list)
+                                 strain_spec, string_list, with_added_settings)
 from dic.sequence.h5file import load_h5py, one_line, open_h5
 from dic.sequence.layout import (FIX_IMAGES, FIX_SETTINGS, FIX_SPACE, FORMAT, FORMAT_VERSION,
                                  STRAIN_COMPONENTS, TIME_FORMAT_LEN, WRITE_KW, add_grad2,
@@ -298,7 +298,7 @@ class ResultsWriter:
         digests = string_list(image_sha256, "image_sha256", len(names))
         with open_h5(p, "r", "resume", locking=False) as f:
             read_format(f, p)
-            old = json.loads(f.attrs["settings"])
+            old = with_added_settings(json.loads(f.attrs["settings"]), new)
             diff = differences(old, new)
             if diff:
                 parts = "; ".join(f"{k}: {short(a)} in file, {short(b)} now"

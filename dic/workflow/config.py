@@ -13,6 +13,7 @@ Example (``analysis.toml``)::
     shape_function = "auto"        # or "affine", "quadratic"
     interpolation = "quintic"      # or "cubic"
     min_zncc = 0.9
+    max_sigma = 2.0                # px: less certain points are not measured (0.2: strict)
     search = 60
 
     [roi]
@@ -79,7 +80,8 @@ SCHEMA = {
     None: {"images": (str, list), "out": (str,), "reference": (int,), "frames": (dict,)},
     "frames": {"start": (int,), "stop": (int,), "stride": (int,)},
     "matching": {"subset": (int,), "step": (int,), "shape_function": (str,),
-                 "interpolation": (str,), "min_zncc": (float, int), "search": (int,)},
+                 "interpolation": (str,), "min_zncc": (float, int),
+                 "max_sigma": (float, int), "search": (int,)},
     "roi": {"rectangle": (list,), "polygon": (list,), "mask": (str,)},
     "scale": {"mm_per_px": (float, int), "line": (list,), "length_mm": (float, int)},
     "strain": {"window": (int,), "measure": (str,)},
