@@ -50,8 +50,8 @@ def test_neck_with_default_settings():
     ("gravel", 0.0, 0.5, 0.9), ("gravel", 2.0, 0.5, 0.9), ("grass", 0.0, 0.5, 0.9),
     ("grass", 2.0, 0.5, 0.9), ("coins", 0.0, 0.5, 0.9), ("coins", 2.0, 0.5, 0.9),
     ("camera", 0.0, 0.5, 0.9), ("camera", 2.0, 0.5, 0.9), ("astronaut", 0.0, 0.5, 0.9),
-    ("astronaut", 2.0, 0.5, 0.9), ("moon", 0.0, 0.5, 0.9), ("brick", 0.0, 0.5, 0.9),
-    ("brick", 2.0, 0.3, 1.5)])
+    ("astronaut", 2.0, 0.5, 0.9), ("moon", 0.0, 0.5, 0.9), ("moon", 2.0, 0.5, 0.9),
+    ("brick", 0.0, 0.5, 0.9), ("brick", 2.0, 0.5, 0.9)])
 def test_posterior_sigma_is_calibrated_on_photographs(name, noise, lo, hi):
     skdata = pytest.importorskip("skimage.data")
     img = getattr(skdata, name)()
@@ -73,9 +73,41 @@ def test_posterior_sigma_is_calibrated_on_photographs(name, noise, lo, hi):
     # (normal distribution); the project issue's calibration target is 0.5-0.9, with and
     # without noise. Without noise the error is the interpolation's bias, which the residual
     # does not show (1.7-2.9 without the bias term, dic.matching.interpolation_bias). Brick
-    # with noise: about 0.98 (the residual misses some error of its faint texture), held to
-    # the issue's bar for real photographs, 0.3-1.5.
+    # with noise: 0.74 (0.98 before dic.matching.slow_convergence_factor: on its faint
+    # texture many matches crawl to their solution, and the Hessian overstates how sure
+    # they are).
     assert lo <= np.median(r) <= hi
+
+
+@pytest.mark.parametrize("seed", [5, 7])
+def test_slowly_converged_matches_get_wider_standard_deviations(seed):
+    # coarse speckle (6 px radius) against a 25 px subset with 2 grey levels of noise under an
+    # exact translation (rendered analytically, dic.images.synth): the matches that take 10
+    # or more Gauss-Newton iterations are off by more than their Hessian says (median
+    # |e| / sigma about 1.7-1.9 without dic.matching.slow_convergence_factor); with it they
+    # meet the calibration target of the project issue, 0.5-0.9, widened to 0.4-1.2 for a
+    # subgroup of about 200 points (a median of 200 samples scatters by roughly 10 %)
+    from dic.matching import slow_convergence_factor
+
+    shape = (400, 400)
+    pat = synth.make_speckle(shape, radius=6, seed=seed)
+    dx, dy = 0.37, -0.21
+    ref = synth.render(pat, shape, noise=2, seed=1)
+    dfm = synth.render(pat, shape, synth.translation(dx, dy), noise=2, seed=2)
+    f = dic.correlate(ref, dfm, subset=25, step=8, shape_function="affine")
+    slow = f.valid & (f.iterations >= 10)
+    assert slow.sum() >= 100
+    e = np.r_[np.abs(f.u - dx)[slow], np.abs(f.v - dy)[slow]]
+    s = np.r_[f.std_u[slow], f.std_v[slow]]
+    g = slow_convergence_factor(np.r_[f.iterations[slow], f.iterations[slow]])
+    assert 0.4 <= np.median(e / s) <= 1.2
+    assert np.median(e / (s / g)) >= 1.4          # the factor is what calibrates them
+    # the quick matches are calibrated with or without it (factor 1 up to 3 iterations)
+    quick = f.valid & (f.iterations <= 3)
+    rq = np.r_[np.abs(f.u - dx)[quick] / f.std_u[quick], np.abs(f.v - dy)[quick] / f.std_v[quick]]
+    assert 0.5 <= np.median(rq) <= 0.9
+    np.testing.assert_allclose(slow_convergence_factor([1, 3, 7, 11]),
+                               [1.0, 1.0, np.sqrt(2.0), np.sqrt(3.0)])
 
 
 def test_blank_reference_is_flat_with_a_warning():

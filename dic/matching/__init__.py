@@ -23,7 +23,8 @@ from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, 
 from dic.matching._grid import check_int, check_options, prepare_grid
 from dic.matching._noise import image_noise, pair_noise
 from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
-from dic.matching._checks import affine_bias, median_test, posterior_sigma, translation_sigma
+from dic.matching._checks import (affine_bias, median_test, posterior_sigma,
+                                  slow_convergence_factor, translation_sigma)
 from dic.matching._interp_bias import interpolation_bias, phase_error
 from dic.matching._rescue import admit_uncertain, retry_failed
 from dic.matching._shape_choice import second_order_where_curved
@@ -31,7 +32,8 @@ from dic.matching._shape_choice import second_order_where_curved
 __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
            "edge_margin", "edge_distance", "edge_bias", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
            "gradient_noise_gain", "affine_bias", "median_test",
-           "posterior_sigma", "translation_sigma", "interpolation_bias", "phase_error"]
+           "posterior_sigma", "translation_sigma", "interpolation_bias", "phase_error",
+           "slow_convergence_factor"]
 
 #: a match below min_zncc still counts when its ZNCC is at least WEAK_ZNCC and its standard
 #: deviation from the fit (dic.matching.posterior_sigma) at most WEAK_SIGMA x the
@@ -123,6 +125,8 @@ class _Propagation:
         self.params = np.full((n, n_params(matcher.second)), np.nan)
         self.zncc = np.full(n, np.nan)
         self.iters = np.zeros(n, np.int16)
+        #: iterations of each point's final match (the second-order one where 'auto' chose it)
+        self.final_iters = np.zeros(n, np.int16)
         self.sigma = np.full(n, np.nan)
         self.unc = np.full((n, 6), np.nan)
         #: grey-level standard deviation of each candidate's reference subset
@@ -184,6 +188,7 @@ class _Propagation:
         self.std[idx] = res.std
         self.zncc[idx] = res.zncc
         self.iters[idx] = res.iterations
+        self.final_iters[idx] = res.iterations
         self.sigma[idx] = res.sigma_factor
         self.unc[idx] = res.uncertainty
         self.reason[idx] = status
@@ -385,8 +390,9 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         Noise standard deviation of the images in grey levels (one value for both, or
         reference and deformed). When given, ``std_u``, ``std_v`` are predicted from it
         (:func:`dic.matching.point_sigma`); by default they come from the residual of each
-        converged match (:func:`dic.matching.posterior_sigma`). Either way they include the
-        predicted bias of interpolating the deformed image
+        converged match (:func:`dic.matching.posterior_sigma`). Either way they are widened
+        where the match converged slowly (:func:`dic.matching.slow_convergence_factor`) and
+        include the predicted bias of interpolating the deformed image
         (:func:`dic.matching.interpolation_bias`, times ``BIAS_SCALE``). The noise estimated from
         each image over the points' area (:func:`dic.metrology.image_noise`) serves only the
         texture check before matching.
@@ -703,8 +709,11 @@ def _finish(prop, shape_order, noise, order, max_sigma, integer=False):
     npix = (2 * prop.m.half + 1) ** 2
     std = _subset_std(prop, good)
     npar = np.where(shape_order == 2, 12, 6)
+    # a match that crawled to its solution is less sure than its Hessian says
+    slow = slow_convergence_factor(prop.final_iters)
     if noise is None:
         su, sv = posterior_sigma(std, prop.zncc, prop.unc, npix, npar, order)
+        su, sv = su * slow, sv * slow
         if integer:
             # rounding to whole grey levels adds noise of variance 1/12 to each image (common
             # practice, no source); under a small shift of a smooth image the two roundings
@@ -715,6 +724,7 @@ def _finish(prop, shape_order, noise, order, max_sigma, integer=False):
     else:
         # the user's noise figure: the prediction from it (dic.matching.point_sigma)
         su, sv = point_sigma(prop.unc, noise[0], noise[1], order)
+        su, sv = su * slow, sv * slow
     # the bias of each match from interpolating the deformed image: a systematic error the
     # residual does not show (dic.matching.interpolation_bias)
     idx = np.flatnonzero(good)

@@ -15,8 +15,13 @@ import numpy as np
 #: dic.matching.interpolation_bias, which brings noise-free photographs from 1.7-2.9 to
 #: 0.7-0.9 at a quarter-pixel shift)
 POSTERIOR_SCALE = 1.1
+#: slow_convergence_factor: iterations a match takes without a sign of slow convergence, and
+#: the iterations per doubling of the variance beyond them
+SLOW_AFTER = 3
+SLOW_PER_DOUBLING = 4
 
-__all__ = ["grid_derivative", "affine_bias", "posterior_sigma", "median_test", "translation_sigma"]
+__all__ = ["grid_derivative", "affine_bias", "posterior_sigma", "median_test", "translation_sigma",
+           "slow_convergence_factor"]
 
 
 def grid_derivative(a, spacing, axis):
@@ -131,6 +136,48 @@ def posterior_sigma(std, zncc, terms, npix, npar, order=5):
     with np.errstate(invalid="ignore"):
         sig = POSTERIOR_SCALE * np.sqrt(np.where(var >= 0, var, np.nan))
     return sig[..., 0], sig[..., 1]
+
+
+def slow_convergence_factor(iterations):
+    r"""Factor on the standard deviations of a match that converged slowly.
+
+    Inverse-compositional Gauss-Newton steps with the reference subset's Hessian ``H``. Near
+    the solution the error shrinks by a factor ``rho`` per iteration, the spectral radius of
+    ``I - H^-1 H_c`` with ``H_c`` the true curvature of the criterion there: where ``H``
+    overstates the curvature (noise in the reference gradients adds to ``H``, and a coarse or
+    faint texture has little of its own), the iteration crawls, and the covariance
+    ``s^2 H^-1`` understates the scatter by the same ratio, ``var = s^2 H_c^-1 ~ s^2 H^-1 /
+    (1 - rho)``. The number of iterations from a good starting guess grows as ``1 / (1 - rho)``
+    does, so the variance is scaled by ``1 + (n - SLOW_AFTER) / SLOW_PER_DOUBLING`` for
+    ``n > SLOW_AFTER`` iterations (3 and 4).
+
+    Calibrated on Fourier-shifted scikit-image photographs (astronaut, brick, camera, coffee,
+    coins, moon, page, text; 0.5 and 2 grey levels of noise, shift (0.37, -0.61) px) and on
+    rendered coarse speckle (4 and 6 px radius, 2 grey levels of noise): without it the median
+    |error| / sigma grew with the iterations a match took, from 0.63 (under 4) to 1.06 (8-11),
+    1.36 (12-19) and 2.2 (30 or more); with it, 0.62-0.70 in every range, and 0.57-0.75 per
+    image (was 0.57-0.94).
+
+    Parameters
+    ----------
+    iterations : array_like of int
+        Gauss-Newton iterations of each point's final match.
+
+    Returns
+    -------
+    ndarray
+        Factor (at least 1) on the standard deviations.
+
+    References
+    ----------
+    .. [1] J. Nocedal, S. J. Wright, "Numerical Optimization", 2nd ed., Springer (2006),
+       section 10.3 (the linear convergence of Gauss-Newton when its Hessian model differs
+       from the true one).
+    .. [2] S. Baker, I. Matthews, "Lucas-Kanade 20 years on: a unifying framework", Int. J.
+       Comput. Vis. 56 (2004) 221-255 (the inverse-compositional Hessian).
+    """
+    n = np.asarray(iterations, dtype=np.float64)
+    return np.sqrt(1.0 + np.maximum(n - SLOW_AFTER, 0.0) / SLOW_PER_DOUBLING)
 
 
 def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
