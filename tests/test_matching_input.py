@@ -32,10 +32,22 @@ def pair():
     (dict(roi=np.zeros((120, 140), bool)), "roi"),
     (dict(seeds=[(1, 2, 3)]), "seeds"),
     (dict(workers=0), "workers"),
+    (dict(max_sigma=0), "max_sigma must be a positive number"),
+    (dict(max_sigma="wide"), "max_sigma must be a positive number"),
+    (dict(max_sigma=True), "max_sigma must be a positive number"),
 ])
 def test_bad_options_name_the_argument(pair, kwargs, match):
     with pytest.raises(ValueError, match=match):
         dic.correlate(*pair, **kwargs)
+
+
+def test_track_checks_max_sigma_before_any_work(pair, tmp_path):
+    # the sequence analysis takes the same limit and rejects a bad one with the same message,
+    # before a results file is made
+    out = tmp_path / "run.h5"
+    with pytest.raises(ValueError, match="max_sigma must be a positive number.*e.g. 2"):
+        dic.track(list(pair), out, max_sigma=-1)
+    assert not out.exists()
 
 
 def test_bad_images(pair, tmp_path):

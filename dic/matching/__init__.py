@@ -15,7 +15,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from dic.field import DisplacementField, Reason
-from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA
+from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA, check_max_sigma
 from dic.matching._edge import edge_bias, edge_distance, near_border
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
@@ -446,7 +446,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         sample = ref[::3, ::3][mask[::3, ::3]]
         lo, hi = np.percentile(sample if sample.size > 100 else ref[mask], [1, 99])
         min_std = min_texture * float(hi - lo)
-    max_sigma = _check_max_sigma(max_sigma)
+    max_sigma = check_max_sigma(max_sigma)
     # the translation-only prediction sqrt(noise^2 / SSSIG) of dic.matching.translation_sigma
     # above PRECHECK x max_sigma, turned into a bound on SSSIG (applied by the solver to every
     # subset before it iterates); the residual of the match decides the rest
@@ -676,16 +676,6 @@ def _explain_unreached(prop, shape):
     prop.reason[nr[leaves]] = Reason.OUTSIDE_IMAGE
 
 
-def _check_max_sigma(value):
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        v = float("nan")
-    if not v > 0:
-        raise ValueError(f"max_sigma must be a positive number of px, got {value!r}; e.g. 0.2")
-    return v
-
-
 def _subset_std(prop, good):
     """Grey-level standard deviation of the reference subsets at the points ``good``."""
     return np.where(good, prop.std, np.nan)
@@ -709,22 +699,21 @@ def _finish(prop, shape_order, noise, order, max_sigma, integer=False):
     npix = (2 * prop.m.half + 1) ** 2
     std = _subset_std(prop, good)
     npar = np.where(shape_order == 2, 12, 6)
-    # a match that crawled to its solution is less sure than its Hessian says
-    slow = slow_convergence_factor(prop.final_iters)
     if noise is None:
         su, sv = posterior_sigma(std, prop.zncc, prop.unc, npix, npar, order)
-        su, sv = su * slow, sv * slow
-        if integer:
-            # rounding to whole grey levels adds noise of variance 1/12 to each image (common
-            # practice, no source); under a small shift of a smooth image the two roundings
-            # agree, the residual misses them and the match locks towards the samples, so
-            # the standard deviations are at least what that noise alone would give
-            qu, qv = point_sigma(prop.unc, QUANTUM, QUANTUM, order)
-            su, sv = np.fmax(su, qu), np.fmax(sv, qv)
     else:
         # the user's noise figure: the prediction from it (dic.matching.point_sigma)
         su, sv = point_sigma(prop.unc, noise[0], noise[1], order)
-        su, sv = su * slow, sv * slow
+    # a match that crawled to its solution is less sure than its Hessian says
+    slow = slow_convergence_factor(prop.final_iters)
+    su, sv = su * slow, sv * slow
+    if noise is None and integer:
+        # rounding to whole grey levels adds noise of variance 1/12 to each image (common
+        # practice, no source); under a small shift of a smooth image the two roundings
+        # agree, the residual misses them and the match locks towards the samples, so
+        # the standard deviations are at least what that noise alone would give
+        qu, qv = point_sigma(prop.unc, QUANTUM, QUANTUM, order)
+        su, sv = np.fmax(su, qu), np.fmax(sv, qv)
     # the bias of each match from interpolating the deformed image: a systematic error the
     # residual does not show (dic.matching.interpolation_bias)
     idx = np.flatnonzero(good)

@@ -17,7 +17,7 @@ from pathlib import Path
 import numpy as np
 
 from dic.field import DisplacementField
-from dic.limits import DEFAULT_MAX_SIGMA
+from dic.limits import DEFAULT_MAX_SIGMA, check_max_sigma
 from dic.strain.defaults import DEFAULT_MEASURE, DEFAULT_WINDOW
 from dic.sequence.frames import (FrameMatcher, TrackSettings, accounted, as_stored,
                                  extrapolate, needs_new_reference)
@@ -297,19 +297,6 @@ def _make_executor(workers, cluster):
     return pool, 1
 
 
-def _check_max_sigma(value):
-    """``max_sigma`` as a float, or a one-line error naming the fix."""
-    try:
-        v = float(value)
-    except (TypeError, ValueError):
-        v = float("nan")
-    if isinstance(value, bool) or not v > 0:
-        raise ValueError(f"max_sigma must be a positive number of px, got {value!r}; e.g. "
-                         f"{DEFAULT_MAX_SIGMA:g} (the default) or 0.2 to leave uncertain "
-                         f"points unmeasured")
-    return v
-
-
 # ------------------------------------------------------------------------------------------
 # the driver
 # ------------------------------------------------------------------------------------------
@@ -396,7 +383,7 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
         raise ValueError(f"reference must be an image index from 0 to {n_img - 1}, got "
                          f"{reference!r}")
     order = _frame_list(frames, n_img)
-    max_sigma = _check_max_sigma(max_sigma)
+    max_sigma = check_max_sigma(max_sigma)
     settings = TrackSettings(subset=subset, step=step, shape_function=shape_function,
                              interpolation=interpolation, min_zncc=min_zncc,
                              max_sigma=max_sigma, search=search,
