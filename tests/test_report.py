@@ -153,6 +153,7 @@ def test_settings_follow_the_idics_form(full_report):
     # how sure a point must be to be measured: dic.correlate's default max_sigma (2 px) and
     # the propagation's own limit (0.2 px), both of this package
     assert "standard deviation exceeds 2 px are left out" in t and "above 0.2 px" in t
+    assert "converged slowly" in t
     # standards named beside the tensile results (ASTM E111 modulus, ASTM E132 Poisson's ratio,
     # ISO 6892-1 proof strength; from memory)
     for std in ("ASTM E111", "ASTM E132", "ISO 6892-1"):

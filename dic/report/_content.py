@@ -167,11 +167,12 @@ def _uncertain_text(settings):
         limit = float(settings.get("max_sigma", DEFAULT_MAX_SIGMA))
     except (TypeError, ValueError):
         limit = DEFAULT_MAX_SIGMA
-    text = f"points whose standard deviation exceeds {limit:g} px are left out"
+    text = (f"points whose standard deviation exceeds {limit:g} px are left out (it is widened "
+            f"where a match converged slowly)")
     if limit > GROW_SIGMA:
-        text += (f"; those above {GROW_SIGMA:g} px are measured from well-determined "
-                 f"neighbours only, lead no other point and weigh "
-                 f"(sigma / {FULL_WEIGHT_SIGMA:g} px)\u207b\u00b2 in the strain fit")
+        text += (f"; matches less sure than {GROW_SIGMA:g} px are made from well-determined "
+                 f"neighbours only and lead no other point; points above {GROW_SIGMA:g} px "
+                 f"weigh (sigma / {FULL_WEIGHT_SIGMA:g} px)\u207b\u00b2 in the strain fit")
     return text
 
 
