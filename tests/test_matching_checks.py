@@ -73,20 +73,21 @@ def test_posterior_sigma_is_calibrated_on_photographs(name, noise, lo, hi):
     # (normal distribution); the project issue's calibration target is 0.5-0.9, with and
     # without noise. Without noise the error is the interpolation's bias, which the residual
     # does not show (1.7-2.9 without the bias term, dic.matching.interpolation_bias). Brick
-    # with noise: 0.74 (0.98 before dic.matching.slow_convergence_factor: on its faint
+    # with noise: 0.76 (0.98 before dic.matching.slow_convergence_factor: on its faint
     # texture many matches crawl to their solution, and the Hessian overstates how sure
     # they are).
     assert lo <= np.median(r) <= hi
 
 
 @pytest.mark.parametrize("seed", [5, 7])
-def test_slowly_converged_matches_get_wider_standard_deviations(seed):
+def test_slowly_converged_matches_get_wider_standard_deviations(seed, monkeypatch):
     # coarse speckle (6 px radius) against a 25 px subset with 2 grey levels of noise under an
     # exact translation (rendered analytically, dic.images.synth): the matches that take 10
     # or more Gauss-Newton iterations are off by more than their Hessian says (median
     # |e| / sigma about 1.7-1.9 without dic.matching.slow_convergence_factor); with it they
     # meet the calibration target of the project issue, 0.5-0.9, widened to 0.4-1.2 for a
     # subgroup of about 200 points (a median of 200 samples scatters by roughly 10 %)
+    import dic.matching
     from dic.matching import slow_convergence_factor
 
     shape = (400, 400)
@@ -94,19 +95,25 @@ def test_slowly_converged_matches_get_wider_standard_deviations(seed):
     dx, dy = 0.37, -0.21
     ref = synth.render(pat, shape, noise=2, seed=1)
     dfm = synth.render(pat, shape, synth.translation(dx, dy), noise=2, seed=2)
+
+    def ratios(f, sel):
+        return np.r_[np.abs(f.u - dx)[sel] / f.std_u[sel], np.abs(f.v - dy)[sel] / f.std_v[sel]]
+
     f = dic.correlate(ref, dfm, subset=25, step=8, shape_function="affine")
     slow = f.valid & (f.iterations >= 10)
     assert slow.sum() >= 100
-    e = np.r_[np.abs(f.u - dx)[slow], np.abs(f.v - dy)[slow]]
-    s = np.r_[f.std_u[slow], f.std_v[slow]]
-    g = slow_convergence_factor(np.r_[f.iterations[slow], f.iterations[slow]])
-    assert 0.4 <= np.median(e / s) <= 1.2
-    assert np.median(e / (s / g)) >= 1.4          # the factor is what calibrates them
-    # the quick matches are calibrated with or without it (factor 1 up to 3 iterations)
-    quick = f.valid & (f.iterations <= 3)
-    rq = np.r_[np.abs(f.u - dx)[quick] / f.std_u[quick], np.abs(f.v - dy)[quick] / f.std_v[quick]]
-    assert 0.5 <= np.median(rq) <= 0.9
-    np.testing.assert_allclose(slow_convergence_factor([1, 3, 7, 11]),
+    assert 0.4 <= np.median(ratios(f, slow)) <= 1.2
+    # the quick matches are calibrated too (the factor is 1 up to 3 iterations near the
+    # solution)
+    assert 0.5 <= np.median(ratios(f, f.valid & (f.iterations <= 3))) <= 0.9
+    # the same matches with the factor held at 1: the slow ones are off by more than their
+    # standard deviations say, so the factor is what calibrates them
+    monkeypatch.setattr(dic.matching, "slow_convergence_factor",
+                        lambda n: np.ones(np.shape(n)))
+    g = dic.correlate(ref, dfm, subset=25, step=8, shape_function="affine")
+    np.testing.assert_array_equal(g.u, f.u)
+    assert np.median(ratios(g, slow)) >= 1.4
+    np.testing.assert_allclose(slow_convergence_factor([1, 3, 6, 9]),
                                [1.0, 1.0, np.sqrt(2.0), np.sqrt(3.0)])
 
 

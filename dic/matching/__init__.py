@@ -125,8 +125,9 @@ class _Propagation:
         self.params = np.full((n, n_params(matcher.second)), np.nan)
         self.zncc = np.full(n, np.nan)
         self.iters = np.zeros(n, np.int16)
-        #: iterations of each point's final match (the second-order one where 'auto' chose it)
-        self.final_iters = np.zeros(n, np.int16)
+        #: iterations near the solution (update below 0.1 px) of each point's final match
+        #: (the second-order one where 'auto' chose it): dic.matching.slow_convergence_factor
+        self.near_iters = np.zeros(n, np.int16)
         self.sigma = np.full(n, np.nan)
         self.unc = np.full((n, 6), np.nan)
         #: grey-level standard deviation of each candidate's reference subset
@@ -188,7 +189,7 @@ class _Propagation:
         self.std[idx] = res.std
         self.zncc[idx] = res.zncc
         self.iters[idx] = res.iterations
-        self.final_iters[idx] = res.iterations
+        self.near_iters[idx] = res.near_iterations
         self.sigma[idx] = res.sigma_factor
         self.unc[idx] = res.uncertainty
         self.reason[idx] = status
@@ -705,7 +706,7 @@ def _finish(prop, shape_order, noise, order, max_sigma, integer=False):
         # the user's noise figure: the prediction from it (dic.matching.point_sigma)
         su, sv = point_sigma(prop.unc, noise[0], noise[1], order)
     # a match that crawled to its solution is less sure than its Hessian says
-    slow = slow_convergence_factor(prop.final_iters)
+    slow = slow_convergence_factor(prop.near_iters)
     su, sv = su * slow, sv * slow
     if noise is None and integer:
         # rounding to whole grey levels adds noise of variance 1/12 to each image (common

@@ -15,10 +15,10 @@ import numpy as np
 #: dic.matching.interpolation_bias, which brings noise-free photographs from 1.7-2.9 to
 #: 0.7-0.9 at a quarter-pixel shift)
 POSTERIOR_SCALE = 1.1
-#: slow_convergence_factor: iterations a match takes without a sign of slow convergence, and
-#: the iterations per doubling of the variance beyond them
+#: slow_convergence_factor: iterations near the solution a match takes without a sign of slow
+#: convergence, and the further ones per doubling of the variance
 SLOW_AFTER = 3
-SLOW_PER_DOUBLING = 4
+SLOW_PER_DOUBLING = 3
 
 __all__ = ["grid_derivative", "affine_bias", "posterior_sigma", "median_test", "translation_sigma",
            "slow_convergence_factor"]
@@ -147,21 +147,22 @@ def slow_convergence_factor(iterations):
     overstates the curvature (noise in the reference gradients adds to ``H``, and a coarse or
     faint texture has little of its own), the iteration crawls, and the covariance
     ``s^2 H^-1`` understates the scatter by the same ratio, ``var = s^2 H_c^-1 ~ s^2 H^-1 /
-    (1 - rho)``. The number of iterations from a good starting guess grows as ``1 / (1 - rho)``
-    does, so the variance is scaled by ``1 + (n - SLOW_AFTER) / SLOW_PER_DOUBLING`` for
-    ``n > SLOW_AFTER`` iterations (3 and 4).
+    (1 - rho)``. The number of iterations near the solution (updates below ``NEAR_STEP``,
+    0.1 px, of the matching kernel: independent of how far the starting guess was) grows as
+    ``1 / (1 - rho)`` does, so the variance is scaled by ``1 + (n - SLOW_AFTER) /
+    SLOW_PER_DOUBLING`` for ``n > SLOW_AFTER`` of them (3 and 3).
 
     Calibrated on Fourier-shifted scikit-image photographs (astronaut, brick, camera, coffee,
     coins, moon, page, text; 0.5 and 2 grey levels of noise, shift (0.37, -0.61) px) and on
     rendered coarse speckle (4 and 6 px radius, 2 grey levels of noise): without it the median
-    |error| / sigma grew with the iterations a match took, from 0.63 (under 4) to 1.06 (8-11),
-    1.36 (12-19) and 2.2 (30 or more); with it, 0.62-0.70 in every range, and 0.57-0.75 per
-    image (was 0.57-0.94).
+    |error| / sigma grew with those iterations, from 0.62 (2) to 0.82 (4-5), 1.03 (6-7), 1.19
+    (8-11), 1.44 (12-19), 1.76 (20-29) and 2.6 (30 or more); with it, 0.62-0.77 in every
+    range, and 0.57-0.76 per image (was 0.57-0.94).
 
     Parameters
     ----------
     iterations : array_like of int
-        Gauss-Newton iterations of each point's final match.
+        Gauss-Newton iterations near the solution of each point's final match.
 
     Returns
     -------

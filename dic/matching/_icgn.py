@@ -93,6 +93,9 @@ class MatchResult:
     uncertainty: np.ndarray | None = None
     #: grey-level standard deviation of each reference subset (NaN where not computed)
     std: np.ndarray | None = None
+    #: iterations whose update was below NEAR_STEP (0.1 px): how slowly the match converged
+    #: near its solution, whatever its starting guess (dic.matching.slow_convergence_factor)
+    near_iterations: np.ndarray | None = None
 
 
 class SubsetMatcher:
@@ -174,7 +177,7 @@ class SubsetMatcher:
         p0 = np.ascontiguousarray(np.broadcast_to(p0, (n, npar)), dtype=np.float64)
         out = MatchResult(np.empty((n, npar)), np.empty(n, np.int8), np.empty(n),
                           np.empty(n, np.int16), np.empty(n), np.full((n, 6), np.nan),
-                          np.full(n, np.nan))
+                          np.full(n, np.nan), np.zeros(n, np.int16))
         flat = self.flat_rule()
         import time
 
@@ -187,7 +190,7 @@ class SubsetMatcher:
             tol = self.tolerance if tolerance is None else float(tolerance)
             tail = (self.max_iterations, tol, flat, float(self.border),
                     out.params, out.status, out.zncc, out.iterations, out.sigma_factor,
-                    self.smat, out.uncertainty, out.std)
+                    self.smat, out.uncertainty, out.std, out.near_iterations)
             # only the solver a run uses gets compiled (first-order moment sums by default)
             if self.fast and not self.second:
                 run_chunks(match_first, n, *common, *tail, min_chunk=8)

@@ -22,6 +22,10 @@ OUTSIDE_IMAGE = 2
 FLAT = 3
 NO_CONVERGENCE = 4
 DEGENERATE = 7
+#: an update smaller than this (px, the convergence norm) counts as an iteration near the
+#: solution: their number measures how slowly a match converged, whatever its start
+NEAR_STEP = 0.1
+_NEAR2 = NEAR_STEP * NEAR_STEP
 
 
 @njit(cache=True, fastmath=True)
@@ -343,10 +347,11 @@ def _too_flat(flat, sd, sxx, syy):
 
 @njit(cache=True, fastmath=True)
 def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter, tol,
-               flat, border, fn, jac, smat, unc):
+               flat, border, fn, jac, smat, unc, near):
     """Match one subset in place of ``p``. Returns (status, zncc, iterations, sigma_factor,
     subset standard deviation); fills ``unc`` (see :func:`_uncertainty_terms`) once the
-    Hessian is inverted. ``flat`` holds the texture thresholds of :func:`_too_flat`."""
+    Hessian is inverted, and counts in ``near[0]`` the updates below ``NEAR_STEP``.
+    ``flat`` holds the texture thresholds of :func:`_too_flat`."""
     rows, cols = ref.shape
     npar = 12 if second else 6
     ns = 2 * half + 1
@@ -469,6 +474,8 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
             norm = (dp[0] ** 2 + dp[3] ** 2 + (half * dp[1]) ** 2 + (half * dp[2]) ** 2
                     + (half * dp[4]) ** 2 + (half * dp[5]) ** 2)
             ok = _compose_affine(p, dp)
+        if norm < _NEAR2:
+            near[0] += 1
         if not ok:
             return DEGENERATE, np.nan, it, sigma_factor, sd
         for a in range(npar):
@@ -488,7 +495,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
 
 @njit(cache=True, fastmath=True)
 def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, flat,
-                  border, smat, unc):
+                  border, smat, unc, near):
     """First-order IC-GN for one subset, without per-point scratch arrays.
 
     Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
@@ -696,6 +703,8 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
             dp[a] = -acc
         norm = (dp[0] ** 2 + dp[3] ** 2 + (h * dp[1]) ** 2 + (h * dp[2]) ** 2
                 + (h * dp[4]) ** 2 + (h * dp[5]) ** 2)
+        if norm < _NEAR2:
+            near[0] += 1
         if not _compose_affine(p, dp):
             return DEGENERATE, np.nan, it, sigma_factor, sd
         for a in range(6):
@@ -711,22 +720,26 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
 @njit(cache=True, nogil=True, fastmath=True)
 def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max_iter, tol,
                 flat, border, out_p, out_status, out_zncc, out_iter, out_sigma, smat,
-                out_unc, out_std):
+                out_unc, out_std, out_near):
     """Match the subsets centred on integer pixels (xs[k], ys[k]), k = lo..hi-1, first order.
 
     The moment-sum solver :func:`_match_affine`. ``out_unc[k]`` receives the uncertainty terms
     of :func:`_uncertainty_terms` (NaN where the Hessian was not inverted); ``smat`` is the
-    subset sum of the outer products of the shape-function vectors. Kept apart from
-    :func:`match_general` so that a run compiles only the solver it uses."""
+    subset sum of the outer products of the shape-function vectors; ``out_near[k]`` the
+    iterations whose update was below ``NEAR_STEP``. Kept apart from :func:`match_general` so
+    that a run compiles only the solver it uses."""
     p = np.empty(6)
+    near = np.zeros(1, np.int64)
     for k in range(lo, hi):
         for a in range(6):
             p[a] = p_init[k, a]
         unc = out_unc[k]
         for a in range(6):
             unc[a] = np.nan
+        near[0] = 0
         st, zn, it, sf, sd = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
-                                           half, max_iter, tol, flat, border, smat, unc)
+                                           half, max_iter, tol, flat, border, smat, unc, near)
+        out_near[k] = near[0]
         for a in range(6):
             out_p[k, a] = p[a]
         out_status[k] = st
@@ -739,7 +752,7 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
 @njit(cache=True, nogil=True, fastmath=True)
 def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, second,
                   max_iter, tol, flat, border, out_p, out_status, out_zncc, out_iter,
-                  out_sigma, smat, out_unc, out_std):
+                  out_sigma, smat, out_unc, out_std, out_near):
     """As :func:`match_first` with the general solver :func:`_match_one` (second order, or
     first order through the steepest-descent images, which the tests compare with the
     moment-sum solver)."""
@@ -749,15 +762,18 @@ def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, s
     fn = np.empty(ns * ns)
     jac = np.empty((ns * ns, npar))
     p = np.empty(npar)
+    near = np.zeros(1, np.int64)
     for k in range(lo, hi):
         for a in range(npar):
             p[a] = p_init[k, a]
         unc = out_unc[k]
         for a in range(6):
             unc[a] = np.nan
+        near[0] = 0
         st, zn, it, sf, sd = _match_one(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
                                         half, second, max_iter, tol, flat, border, fn, jac,
-                                        smat, unc)
+                                        smat, unc, near)
+        out_near[k] = near[0]
         for a in range(npar):
             out_p[k, a] = p[a]
         out_status[k] = st

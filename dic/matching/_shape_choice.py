@@ -69,7 +69,7 @@ def second_order_where_curved(prop, shape_order, step, order, max_iterations, to
     p12[k] = res.params[ok]
     prop.zncc[k] = res.zncc[ok]
     prop.iters[k] = prop.iters[k] + res.iterations[ok]
-    prop.final_iters[k] = res.iterations[ok]
+    prop.near_iters[k] = res.near_iterations[ok]
     prop.unc[k] = res.uncertainty[ok]
     shape_order[k] = 2
     return m2.kernel_time
