@@ -123,13 +123,27 @@ class _Pages:
     def _table_layout(t: Table):
         size = 8.5
         ncol = max(len(r) for r in ([t.header] if t.header else []) + list(t.rows))
-        # column widths in proportion to the longest cell text, each at least 12 %
-        longest = np.array([max([len(str(r[i])) if i < len(r) else 0
-                                 for r in list(t.rows) + ([t.header] if t.header else [])]
-                                + [4]) for i in range(ncol)], dtype=float)
-        share = np.maximum(longest / longest.sum(), 0.12)
+        # column widths in proportion to the longest cell text, each at least 12 % and wide
+        # enough for its longest word (a word is never broken, as "Interpolat-ion" was)
+        rows = list(t.rows) + ([t.header] if t.header else [])
+        cells = [[str(r[i]) if i < len(r) else "" for r in rows] for i in range(ncol)]
+        longest = np.array([max([len(c) for c in col] + [4]) for col in cells], dtype=float)
+        word = np.array([max([len(w) for c in col for w in c.split()] + [1])
+                         for col in cells], dtype=float)
+        floor = np.maximum(0.12, (word * _CHAR_EM * size / 72.0 + 0.12) / _TEXT_W)
         if not t.header and ncol == 2:
-            share = np.array([0.34, 0.66])
+            longest = np.array([0.34, 0.66])
+        share = longest / longest.sum()
+        # columns below their floor get it; the others share the rest as before
+        fixed = np.zeros(ncol, bool)
+        for _ in range(ncol):
+            low = ~fixed & (share < floor)
+            if not low.any():
+                break
+            fixed |= low
+            rest = max(1.0 - floor[fixed].sum(), 0.0)
+            free = longest * ~fixed
+            share = np.where(fixed, floor, rest * free / max(free.sum(), 1e-12))
         widths = share / share.sum() * _TEXT_W
         return size, ncol, widths
 
