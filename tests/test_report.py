@@ -461,3 +461,27 @@ def test_report_with_real_tensile_results_and_gauge_histories(run, tmp_path):
         assert "axial gauge, engineering (biot) strain" in t2.lower()
     finally:
         (res.path.parent / (res.path.name + ".tensile.json")).unlink()
+
+
+def test_pdf_table_columns_never_break_a_word():
+    # a short first column beside a very long second one: the first still fits its longest
+    # word on one line (the PDF wraps cell text at the column's width in characters; common
+    # practice, no source), and a table with short texts keeps the proportional widths
+    import textwrap
+
+    from dic.report._document import Table
+    from dic.report._pdf import _Pages, _chars
+
+    long = " ".join(["points whose standard deviation exceeds 2 px are left out"] * 6)
+    t = Table(rows=[("Interpolation", "quintic B-spline"), ("Uncertain points", long),
+                    ("Subset size", "21 px")], header=("Parameter", "Value"))
+    size, ncol, widths = _Pages._table_layout(t)
+    assert ncol == 2
+    for row in t.rows:
+        for text, w in zip(row, widths):
+            # every wrapped line is made of whole words of the cell
+            for line in textwrap.wrap(text, _chars(w - 0.1, size)):
+                assert set(line.split()) <= set(text.split()), line
+    short = Table(rows=[("a", "bb"), ("ccc", "d")], header=("x", "y"))
+    _s, _n, w2 = _Pages._table_layout(short)
+    assert w2[0] == pytest.approx(w2[1])
