@@ -165,6 +165,29 @@ def test_settings_follow_the_idics_form(full_report):
     assert "ISO 9513" in t and "ASTM E83" in t
 
 
+def test_data_quality_says_how_sure_the_points_are(run, full_report):
+    # the sentence on the standard deviations of the last frame's points carries the numbers
+    # of the results file itself: median, 95th percentile and largest of max(std_u, std_v)
+    # (numpy's percentile; common practice, no source), with 3 significant digits
+    res, _ = run
+    f = res.field(len(res) - 1)
+    s = np.fmax(f.std_u, f.std_v)[f.valid]
+    page = _parse(full_report[0].read_text(encoding="utf-8"))
+    text = " ".join(page.all_text.split())
+    assert (f"has a median of {np.median(s):.3g} px, 95 % of them are within "
+            f"{np.percentile(s, 95):.3g} px and the largest is {s.max():.3g} px") in text
+    # none of these clean, finely speckled points is less sure than 0.2 px
+    assert s.max() < 0.2 and "less sure than 0.2 px and weigh less" not in text
+    # three of them made less sure: counted, with their share of the measured points
+    from dic.report._content import _how_sure
+
+    idx = np.argwhere(f.valid)[:3]
+    f.std_u[idx[:, 0], idx[:, 1]] = 0.5
+    line = _how_sure(f, 4)
+    assert (f"3 ({100 * 3 / s.size:.1f} %) are less sure than 0.2 px and weigh less in the "
+            f"strain fit") in line and "the largest is 0.5 px" in line
+
+
 def test_tables_of_histories_and_nested_tensile_values(run, tmp_path):
     res, _ = run
     n = len(res)

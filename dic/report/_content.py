@@ -427,6 +427,28 @@ def _gauges(res, gauges, shapes=()):
                                      "Largest magnitude"))]
 
 
+def _how_sure(field, k):
+    """One sentence on the standard deviations of the points measured at frame ``k`` (the
+    larger of u and v per point), or "" where the file holds none."""
+    from dic.limits import GROW_SIGMA
+
+    if field.std_u is None or field.std_v is None:
+        return ""
+    s = np.fmax(field.std_u, field.std_v)[field.valid]
+    s = s[np.isfinite(s)]
+    if s.size == 0:
+        return ""
+    wide = int(np.count_nonzero(s > GROW_SIGMA))
+    text = (f"How sure the points measured at frame {k} are: the standard deviation of their "
+            f"displacement (the larger of u and v) has a median of {np.median(s):.3g} px, "
+            f"95 % of them are within {np.percentile(s, 95):.3g} px and the largest is "
+            f"{s.max():.3g} px")
+    if wide:
+        text += (f"; {wide} ({100.0 * wide / s.size:.1f} %) are less sure than "
+                 f"{GROW_SIGMA:g} px and weigh less in the strain fit")
+    return text + "."
+
+
 def _quality(res, info, k_last):
     counts, total, median = valid_counts(res)
     n = len(res)
@@ -441,11 +463,16 @@ def _quality(res, info, k_last):
         f"{int(np.prod(res.shape)) - total} others never can): "
         f"{int(counts.min())} to {int(counts.max())} ({share.min():.1f} % to "
         f"{share.max():.1f} %), fewest at frame {worst}. A point counts as measured when its "
-        f"subset matched with a ZNCC of at least {_fmt(res.settings.get('min_zncc'))}; every "
-        f"other point is left empty (NaN) in the results, never filled in."),
+        f"subset matched with a ZNCC of at least {_fmt(res.settings.get('min_zncc'))} (or a "
+        f"lower one with a well-determined match), agrees with its neighbours and is sure "
+        f"enough (see Uncertain points in the settings); every other point is left empty (NaN) "
+        f"in the results, never filled in."),
         _figure(fig, "Measured points per frame; dotted lines mark a change of reference "
                      "image.", "Measured points per frame")]
     field = res.field(k_last)
+    sure = _how_sure(field, k_last)
+    if sure:
+        blocks.append(Paragraph(sure))
     fig_q, _ = quality_map(field, find_image(res, None), scale=res.scale, crop=True)
     blocks.append(_figure(fig_q, f"ZNCC of every match at {_frame_label(res, k_last)}, on "
                                  f"the reference grid.", f"ZNCC map at frame {k_last}"))
