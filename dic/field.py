@@ -167,6 +167,20 @@ class DisplacementField:
         codes, counts = np.unique(self.reason, return_counts=True)
         return {Reason(int(c)).name.lower(): int(n) for c, n in zip(codes, counts)}
 
+    def sigma_summary(self, limit: float) -> dict | None:
+        """How sure the measured points are: of the larger standard deviation of u and v per
+        point, the median, 95th percentile and largest (px), and how many exceed ``limit``
+        (px); None where the field holds no standard deviations."""
+        if self.std_u is None or self.std_v is None:
+            return None
+        s = np.fmax(self.std_u, self.std_v)[self.valid]
+        s = s[np.isfinite(s)]
+        if s.size == 0:
+            return None
+        return {"median": float(np.median(s)), "p95": float(np.percentile(s, 95)),
+                "largest": float(s.max()), "above": int(np.count_nonzero(s > limit)),
+                "n": int(s.size)}
+
     def summary(self) -> str:
         """One line: valid points, their share, and the commonest reasons for the rest."""
         n, nv = self.n_points, self.n_valid

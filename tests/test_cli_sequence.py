@@ -143,6 +143,14 @@ def test_info_summarises_the_file(reference_run, capsys):
     assert f"frames: {N_FRAMES} of {N_FRAMES} done" in text
     assert "measured points per frame" in text
     assert "shape_function='quadratic'" in text
+    # how sure the last frame's points are, from the file's own standard deviations (the
+    # larger of u and v per point; numpy's median and percentile, common practice)
+    with Results.open(reference_run) as r:
+        f = r.field(len(r) - 1)
+    s = np.fmax(f.std_u, f.std_v)[f.valid]
+    assert (f"how sure (last frame): standard deviation median {np.median(s):.3g} px, 95 % "
+            f"within {np.percentile(s, 95):.3g} px, largest {s.max():.3g} px; "
+            f"{np.count_nonzero(s > 0.2)} of {s.size} points less sure than 0.2 px") in text
     # a folder holding results.h5 works too; a bad path is exit 2 with one line
     assert main(["info", str(reference_run.parent)]) == 2  # no results.h5 in that folder
     assert "results.h5" in _one_error_line(capsys.readouterr().err)

@@ -432,19 +432,15 @@ def _how_sure(field, k):
     larger of u and v per point), or "" where the file holds none."""
     from dic.limits import GROW_SIGMA
 
-    if field.std_u is None or field.std_v is None:
+    s = field.sigma_summary(GROW_SIGMA)
+    if s is None:
         return ""
-    s = np.fmax(field.std_u, field.std_v)[field.valid]
-    s = s[np.isfinite(s)]
-    if s.size == 0:
-        return ""
-    wide = int(np.count_nonzero(s > GROW_SIGMA))
     text = (f"How sure the points measured at frame {k} are: the standard deviation of their "
-            f"displacement (the larger of u and v) has a median of {np.median(s):.3g} px, "
-            f"95 % of them are within {np.percentile(s, 95):.3g} px and the largest is "
-            f"{s.max():.3g} px")
-    if wide:
-        text += (f"; {wide} ({100.0 * wide / s.size:.1f} %) are less sure than "
+            f"displacement (the larger of u and v) has a median of {s['median']:.3g} px, "
+            f"95 % of them are within {s['p95']:.3g} px and the largest is "
+            f"{s['largest']:.3g} px")
+    if s["above"]:
+        text += (f"; {s['above']} ({100.0 * s['above'] / s['n']:.1f} %) are less sure than "
                  f"{GROW_SIGMA:g} px and weigh less in the strain fit")
     return text + "."
 

@@ -13,6 +13,7 @@ import numpy as np
 
 from dic.errors import InputError
 from dic.field import DisplacementField
+from dic.limits import GROW_SIGMA
 from dic.sequence.checks import check_path, short
 from dic.sequence.h5file import open_h5
 from dic.sequence.layout import (FORMAT, FORMAT_VERSION, STRAIN_COMPONENTS, group_attrs,
@@ -299,6 +300,12 @@ def results_info(path) -> str:
                             if updates.size else ""))
             last = r.field(n - 1)
             lines.append(f"last frame ({n - 1}): {last.summary()}")
+            sure = last.sigma_summary(GROW_SIGMA)
+            if sure is not None:
+                lines.append(f"how sure (last frame): standard deviation median "
+                             f"{sure['median']:.3g} px, 95 % within {sure['p95']:.3g} px, "
+                             f"largest {sure['largest']:.3g} px; {sure['above']} of "
+                             f"{sure['n']} points less sure than {GROW_SIGMA:g} px")
             if last.shape_order is not None:
                 order = np.asarray(last.shape_order)
                 lines.append(f"shape function: {r.settings.get('shape_function', '?')}; last "
