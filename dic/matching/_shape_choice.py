@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 from dic.field import Reason
-from dic.matching._checks import affine_bias, posterior_sigma
+from dic.matching._checks import affine_bias
 from dic.matching._icgn import SubsetMatcher, grad_from_params, params_from_fields
 
 #: second order where first order would be biased by more than this (px)
@@ -47,10 +47,10 @@ def second_order_where_curved(prop, shape_order, step, order, max_iterations, to
 
     idx = np.flatnonzero(good & over(AUTO_BIAS))
     if idx.size:
-        su, sv = posterior_sigma(prop.std[idx], prop.zncc[idx], prop.unc[idx],
-                                 (2 * m.half + 1) ** 2, 6, order)
+        # the first-order matches' own standard deviations (the matcher is first order here)
         limit = np.full(good.size, np.inf)
-        limit[idx] = np.fmax(AUTO_BIAS, 2.0 * np.fmax(su, sv))
+        limit[idx] = np.fmax(AUTO_BIAS, 2.0 * prop.fit_sigma(prop.std[idx], prop.zncc[idx],
+                                                             prop.unc[idx]))
         idx = np.flatnonzero(good & over(limit.reshape(bias.shape)))
     if idx.size == 0:
         return 0.0

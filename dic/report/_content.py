@@ -430,9 +430,9 @@ def _gauges(res, gauges, shapes=()):
 def _how_sure(field, k):
     """One sentence on the standard deviations of the points measured at frame ``k`` (the
     larger of u and v per point), or "" where the file holds none."""
-    from dic.limits import GROW_SIGMA
+    from dic.strain.defaults import FULL_WEIGHT_SIGMA
 
-    s = field.sigma_summary(GROW_SIGMA)
+    s = field.sigma_summary(FULL_WEIGHT_SIGMA)
     if s is None:
         return ""
     text = (f"How sure the points measured at frame {k} are: the standard deviation of their "
@@ -441,7 +441,7 @@ def _how_sure(field, k):
             f"{s['largest']:.3g} px")
     if s["above"]:
         text += (f"; {s['above']} ({100.0 * s['above'] / s['n']:.1f} %) are less sure than "
-                 f"{GROW_SIGMA:g} px and weigh less in the strain fit")
+                 f"{FULL_WEIGHT_SIGMA:g} px and weigh less in the strain fit")
     return text + "."
 
 
