@@ -16,6 +16,7 @@ import numpy as np
 
 from dic.field import DisplacementField, Reason
 from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA, check_max_sigma
+from dic.matching._ahead import ready
 from dic.matching._edge import edge_bias, edge_distance, near_border
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
@@ -144,8 +145,10 @@ class _Propagation:
         where no match is tried: seed candidates (an FFT search on a flat subset is wasted) and
         the points of a part of the ROI where no seed took hold."""
         from dic.images.parallel import run_chunks
+        from dic.matching._ahead import ready
         from dic.matching._icgn_kernel import flat_subsets
 
+        ready("flat_subsets")
         idx = np.asarray(idx, np.int64)
         std, flat = np.empty(idx.size), np.empty(idx.size, np.bool_)
         m = self.m
@@ -226,6 +229,7 @@ class _Propagation:
             tried = np.zeros(0, np.int64)
             # the points of the lattice of half the spacing, then all the others, each from
             # the matched points around it, in one batch per step
+            ready("fill_between")
             for lattice, reach, t in ((4, 4, tol), (1, 2, None)) if stride == 8 else \
                     ((1, stride // 2, None),):
                 idx, p0 = w.fill_between(self.state, self.zncc, self.params, self.nx,
@@ -243,6 +247,7 @@ class _Propagation:
         self._waves(new_good, 1)
 
     def _waves(self, new_good, stride, on_fail=None, tolerance=None):
+        ready("next_wave")
         while new_good.size:
             idx, p0 = self.w.next_wave(self.state, self.zncc, self.params, self.nx, self.ny,
                                        self.px, self.py, self.m.second,

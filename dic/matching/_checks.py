@@ -224,8 +224,10 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
        in Fluids 39 (2005) 1096-1100.
     """
     from dic.images.parallel import run_chunks
+    from dic.matching._ahead import ready
     from dic.matching._median_kernel import median_outliers
 
+    ready("median_test")
     valid = np.asarray(valid, bool)
     ny, nx = valid.shape
     out = np.zeros((ny, nx), bool)

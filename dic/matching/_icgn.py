@@ -137,6 +137,11 @@ class SubsetMatcher:
     def __init__(self, reference, deformed, *, subset, second_order=False, order=3,
                  max_iterations=50, tolerance=1e-3, min_std=0.0, min_grad2=0.0,
                  reference_gradients=None, deformed_spline=None, border=None):
+        from dic.matching._ahead import start
+
+        # on a fresh install, the kernels a run needs later compile meanwhile in a second
+        # process (once per process; see dic.matching._ahead)
+        start()
         self.reference = np.ascontiguousarray(reference, dtype=np.float64)
         self.half = int(subset) // 2
         self.second = bool(second_order)
@@ -195,6 +200,9 @@ class SubsetMatcher:
             if self.fast and not self.second:
                 run_chunks(match_first, n, *common, *tail, min_chunk=8)
             else:
+                from dic.matching._ahead import ready
+
+                ready("second_order")
                 run_chunks(match_general, n, *common, self.second, *tail, min_chunk=8)
         self.kernel_time += time.perf_counter() - t0
         return out

@@ -229,7 +229,9 @@ def interpolation_bias(gx, gy, px, py, params, half, order, second=False):
        2915-2921.
     """
     from dic.images.parallel import run_chunks
+    from dic.matching._ahead import ready
 
+    ready("interpolation_bias")
     q, a = _model(int(order))
     iu, iv = (0, 6) if second else (0, 3)
     p = np.ascontiguousarray(params, dtype=np.float64)

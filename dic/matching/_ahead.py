@@ -1,0 +1,134 @@
+"""Compiling the kernels a first run needs later in a second process, ahead of time.
+
+On a fresh install every compiled kernel is built on its first call, one after the other, in
+the order a run reaches them: the prefilter and the first-order solver first (about 7 s), then
+the propagation's bookkeeping, the interpolation-bias and neighbour tests (about 3 s), and, as
+soon as a point needs second order (a neck), the second-order solver (about 8 s). Numba
+compiles under a global lock, so threads do not help, but a second process does: it builds
+the later kernels into the shared compile cache while this process builds the first ones, and
+this process then loads them from the cache instead of compiling them itself. It runs at the
+lowest priority, so once this process has work for every core (matching in threads) the
+second process barely slows it, and it may outlive this process to finish the cache.
+
+:func:`start` launches that process once, on the first matcher of a process, and only when the
+cache of one of the later kernels is empty (a fresh install, or sources changed). :func:`ready`
+is called before each of those kernels' first use: while the second process is still building
+that kernel it waits for it (compiling it here too would only duplicate the work), otherwise it
+returns at once. Anything going wrong (no interpreter to start, a crash, a full disk) only
+means the kernel is compiled here, as without this module. Set the environment variable
+``DIC_COMPILE_AHEAD=0`` to switch it off.
+
+The second process is ``python -m dic.matching._ahead_build`` (see there).
+"""
+
+from __future__ import annotations
+
+import os
+import subprocess
+import sys
+import threading
+
+#: kernels compiled ahead, in the order a run first needs them: (name, module, function)
+KERNELS = (
+    ("flat_subsets", "dic.matching._icgn_kernel", "flat_subsets"),
+    ("next_wave", "dic.matching._waves", "next_wave"),
+    ("fill_between", "dic.matching._waves", "fill_between"),
+    ("interpolation_bias", "dic.matching._interp_bias", "_bias_kernel"),
+    ("median_test", "dic.matching._median_kernel", "median_outliers"),
+    ("second_order", "dic.matching._icgn_kernel", "match_general"),
+)
+#: longest wait for the second process to deliver one kernel (s); then it is compiled here
+WAIT = 120.0
+_ENV = "DIC_COMPILE_AHEAD"
+
+_lock = threading.Lock()
+_started = False
+_events: dict[str, threading.Event] = {}
+#: the process that started the second one (a forked child has no listener: it never waits)
+_owner = None
+
+
+def _dispatcher(module, name):
+    import importlib
+
+    return getattr(importlib.import_module(module), name)
+
+
+def _cached(dispatcher) -> bool:
+    """Whether the compile cache holds a build of ``dispatcher`` for its current source."""
+    try:
+        return bool(dispatcher._cache._cache_file._load_index())
+    except Exception:  # numba internals differ: take it as cached (nothing is started)
+        return True
+
+
+def start() -> bool:
+    """Start the second process if the cache lacks one of :data:`KERNELS` (once per process).
+
+    Returns True when a process was started by this call."""
+    global _started, _owner
+    with _lock:
+        if _started:
+            return False
+        _started = True
+        exe = os.path.basename(sys.executable or "").lower()
+        if os.environ.get(_ENV, "1").strip() == "0" or not exe.startswith("python"):
+            return False   # switched off, or embedded in a program that is not Python
+        try:
+            from numba.core.config import DISABLE_JIT
+
+            if DISABLE_JIT:
+                return False
+            missing = [k for k, mod, fn in KERNELS if not _cached(_dispatcher(mod, fn))]
+        except Exception:
+            return False
+        if not missing:
+            return False
+        env = dict(os.environ)
+        env[_ENV] = "0"
+        # the child imports this very package, wherever it was imported from here
+        root = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+        env["PYTHONPATH"] = os.pathsep.join([root] + [p for p in [env.get("PYTHONPATH")] if p])
+        try:
+            # at low priority (it lowers its own on POSIX): where this process has work for
+            # both cores, the second process leaves them to it
+            proc = subprocess.Popen([sys.executable, "-m", "dic.matching._ahead_build", *missing],
+                                    stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
+                                    stderr=subprocess.DEVNULL, env=env, text=True,
+                                    creationflags=getattr(subprocess,
+                                                          "IDLE_PRIORITY_CLASS", 0))
+        except Exception:
+            return False
+        _owner = os.getpid()
+        for name in missing:
+            _events[name] = threading.Event()
+        threading.Thread(target=_listen, args=(proc,), daemon=True,
+                         name="dic-compile-ahead").start()
+        return True
+
+
+def _listen(proc):
+    """Set each kernel's event when the second process reports it; all of them when it ends."""
+    try:
+        for line in proc.stdout:
+            word, _, name = line.strip().partition(" ")
+            if word == "ready" and name in _events:
+                _events[name].set()
+    except Exception:
+        pass
+    finally:
+        for event in list(_events.values()):
+            event.set()
+        try:
+            proc.stdout.close()
+            proc.wait()
+        except Exception:
+            pass
+
+
+def ready(name: str) -> None:
+    """Before the first use of kernel ``name`` (of :data:`KERNELS`): wait while the second
+    process is building it (at most :data:`WAIT` seconds)."""
+    event = _events.get(name)
+    if event is not None and not event.is_set() and os.getpid() == _owner:
+        event.wait(WAIT)

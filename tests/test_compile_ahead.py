@@ -1,0 +1,118 @@
+"""Kernels compiled ahead in a second process (dic.matching._ahead, dic.matching._ahead_build)."""
+
+import os
+import subprocess
+import sys
+import textwrap
+import threading
+import time
+
+import pytest
+
+from dic.matching import _ahead
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+
+# a first run on a curved field (second-order points: the 'auto' shape choice uses every
+# kernel of _ahead.KERNELS), reporting for each of them how often the run had to compile it
+# (numba's cache misses) and how often it loaded it from the compile cache
+_RUN = textwrap.dedent("""
+    import importlib, json
+    import numpy as np
+    from scipy import ndimage
+    import dic
+    from dic.matching._ahead import KERNELS
+    n = 160
+    ref = ndimage.gaussian_filter(np.random.default_rng(1).normal(size=(n, n)), 1.5)
+    ref = 128.0 + 100.0 * ref / np.abs(ref).max()
+    yy, xx = np.mgrid[0:n, 0:n].astype(float)
+    dfm = ndimage.map_coordinates(ref, [yy, xx - 4e-4 * (xx - n / 2) ** 2], order=3)
+    f = dic.correlate(ref, dfm, subset=21, step=8)
+    out = {"second": f.settings["shape_order_counts"]["second"]}
+    for name, mod, fn in KERNELS:
+        st = getattr(importlib.import_module(mod), fn).stats
+        out[name] = [sum(st.cache_misses.values()), sum(st.cache_hits.values())]
+    print(json.dumps(out))
+""")
+
+
+def _env(cache, ahead):
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(cache), DIC_COMPILE_AHEAD=ahead)
+    env["PYTHONPATH"] = os.pathsep.join([ROOT] + [p for p in [env.get("PYTHONPATH")] if p])
+    return env
+
+
+def test_kernels_compiled_ahead_are_the_ones_a_run_loads(tmp_path):
+    import json
+
+    names = [k[0] for k in _ahead.KERNELS]
+    # the second process, run to its end in an empty compile cache
+    child = subprocess.run([sys.executable, "-m", "dic.matching._ahead_build", *names],
+                           env=_env(tmp_path, "0"), capture_output=True, text=True,
+                           timeout=600)
+    assert child.returncode == 0, child.stderr
+    assert child.stdout.split() == [w for n in names for w in ("ready", n)]
+    # a run in a fresh process on that cache compiles none of them: the signatures the second
+    # process built are the ones the run calls
+    run = subprocess.run([sys.executable, "-c", _RUN], env=_env(tmp_path, "0"),
+                         capture_output=True, text=True, timeout=600)
+    assert run.returncode == 0, run.stderr
+    stats = json.loads(run.stdout.strip().splitlines()[-1])
+    assert stats.pop("second") > 0
+    for name in names:
+        misses, hits = stats[name]
+        assert misses == 0 and hits >= 1, (name, misses, hits)
+
+
+@pytest.fixture
+def fresh(monkeypatch):
+    """The module as in a new process, with every kernel's cache taken as empty."""
+    monkeypatch.setattr(_ahead, "_started", False)
+    monkeypatch.setattr(_ahead, "_events", {})
+    monkeypatch.setattr(_ahead, "_owner", None)
+    monkeypatch.setattr(_ahead, "_cached", lambda dispatcher: False)
+    monkeypatch.delenv("DIC_COMPILE_AHEAD", raising=False)
+    return monkeypatch
+
+
+def test_no_interpreter_to_start_means_no_wait(fresh):
+    fresh.setattr(sys, "executable", os.path.join(os.sep, "no", "such", "python"))
+    assert _ahead.start() is False
+    t = time.perf_counter()
+    for name, _, _ in _ahead.KERNELS:
+        _ahead.ready(name)
+    assert time.perf_counter() - t < 1.0
+
+
+def test_a_second_process_that_dies_releases_every_wait(fresh):
+    # an interpreter that exits at once without reporting anything (a crash, say)
+    fresh.setattr(sys, "executable", sys.executable)
+    fresh.setattr(_ahead.subprocess, "Popen", _popen_that_exits)
+    assert _ahead.start() is True
+    t = time.perf_counter()
+    for name, _, _ in _ahead.KERNELS:
+        _ahead.ready(name)
+    assert time.perf_counter() - t < 30.0 < _ahead.WAIT
+
+
+_POPEN = subprocess.Popen
+
+
+def _popen_that_exits(args, **kw):
+    return _POPEN([sys.executable, "-c", "pass"], **kw)
+
+
+def test_a_forked_process_does_not_wait_for_its_parents_second_process(fresh):
+    # a fork copies the unset events but not the thread that would set them
+    fresh.setattr(_ahead, "_events", {"next_wave": threading.Event()})
+    fresh.setattr(_ahead, "_owner", os.getpid() + 1)
+    t = time.perf_counter()
+    _ahead.ready("next_wave")
+    assert time.perf_counter() - t < 1.0
+
+
+def test_started_once_per_process_and_switched_off_by_the_environment(fresh):
+    fresh.setenv("DIC_COMPILE_AHEAD", "0")
+    assert _ahead.start() is False
+    fresh.setenv("DIC_COMPILE_AHEAD", "1")
+    assert _ahead.start() is False      # already tried in this process
