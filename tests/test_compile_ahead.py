@@ -51,7 +51,7 @@ def test_kernels_compiled_ahead_are_the_ones_a_run_loads(tmp_path):
                            env=_env(tmp_path, "0"), capture_output=True, text=True,
                            timeout=600)
     assert child.returncode == 0, child.stderr
-    assert child.stdout.split() == [w for n in names for w in ("ready", n)]
+    assert child.stdout.split() == [w for n in names for w in ("start", n, "ready", n)]
     # a run in a fresh process on that cache compiles none of them: the signatures the second
     # process built are the ones the run calls
     run = subprocess.run([sys.executable, "-c", _RUN], env=_env(tmp_path, "0"),
@@ -70,6 +70,7 @@ def fresh(monkeypatch):
     monkeypatch.setattr(_ahead, "_started", False)
     monkeypatch.setattr(_ahead, "_events", {})
     monkeypatch.setattr(_ahead, "_owner", None)
+    monkeypatch.setattr(_ahead, "_building", [None])
     monkeypatch.setattr(_ahead, "_cached", lambda dispatcher: False)
     monkeypatch.delenv("DIC_COMPILE_AHEAD", raising=False)
     return monkeypatch
@@ -92,7 +93,7 @@ def test_a_second_process_that_dies_releases_every_wait(fresh):
     t = time.perf_counter()
     for name, _, _ in _ahead.KERNELS:
         _ahead.ready(name)
-    assert time.perf_counter() - t < 30.0 < _ahead.WAIT
+    assert time.perf_counter() - t < 30.0
 
 
 _POPEN = subprocess.Popen
@@ -102,10 +103,33 @@ def _popen_that_exits(args, **kw):
     return _POPEN([sys.executable, "-c", "pass"], **kw)
 
 
+def test_waits_only_for_the_kernel_the_second_process_is_building(fresh):
+    # a second process starved of time (its priority is the lowest) is still on another
+    # kernel: no wait, the kernel is compiled here; on this one: a wait, but a bounded one
+    events = {"next_wave": threading.Event(), "second_order": threading.Event()}
+    fresh.setattr(_ahead, "_events", events)
+    fresh.setattr(_ahead, "_owner", os.getpid())
+    fresh.setattr(_ahead, "_building", ["flat_subsets"])
+    t = time.perf_counter()
+    _ahead.ready("next_wave")
+    assert time.perf_counter() - t < 0.5
+    fresh.setattr(_ahead, "_building", ["second_order"])
+    fresh.setattr(_ahead, "WAIT", {"second_order": 0.3})
+    t = time.perf_counter()
+    _ahead.ready("second_order")
+    assert 0.25 <= time.perf_counter() - t < 5.0
+    threading.Timer(0.2, events["second_order"].set).start()
+    fresh.setattr(_ahead, "WAIT", {"second_order": 30.0})
+    t = time.perf_counter()
+    _ahead.ready("second_order")     # released as soon as the kernel is reported ready
+    assert time.perf_counter() - t < 5.0
+
+
 def test_a_forked_process_does_not_wait_for_its_parents_second_process(fresh):
     # a fork copies the unset events but not the thread that would set them
     fresh.setattr(_ahead, "_events", {"next_wave": threading.Event()})
     fresh.setattr(_ahead, "_owner", os.getpid() + 1)
+    fresh.setattr(_ahead, "_building", ["next_wave"])
     t = time.perf_counter()
     _ahead.ready("next_wave")
     assert time.perf_counter() - t < 1.0

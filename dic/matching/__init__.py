@@ -145,7 +145,6 @@ class _Propagation:
         where no match is tried: seed candidates (an FFT search on a flat subset is wasted) and
         the points of a part of the ROI where no seed took hold."""
         from dic.images.parallel import run_chunks
-        from dic.matching._ahead import ready
         from dic.matching._icgn_kernel import flat_subsets
 
         ready("flat_subsets")

@@ -12,9 +12,9 @@ second process barely slows it, and it may outlive this process to finish the ca
 
 :func:`start` launches that process once, on the first matcher of a process, and only when the
 cache of one of the later kernels is empty (a fresh install, or sources changed). :func:`ready`
-is called before each of those kernels' first use: while the second process is still building
-that kernel it waits for it (compiling it here too would only duplicate the work), otherwise it
-returns at once. Anything going wrong (no interpreter to start, a crash, a full disk) only
+is called before each of those kernels' first use: while the second process is building that
+kernel it waits for it, a bounded time (compiling it here too would only duplicate the work);
+otherwise it returns at once. Anything going wrong (no interpreter to start, a crash, a full disk) only
 means the kernel is compiled here, as without this module. Set the environment variable
 ``DIC_COMPILE_AHEAD=0`` to switch it off.
 
@@ -37,13 +37,17 @@ KERNELS = (
     ("median_test", "dic.matching._median_kernel", "median_outliers"),
     ("second_order", "dic.matching._icgn_kernel", "match_general"),
 )
-#: longest wait for the second process to deliver one kernel (s); then it is compiled here
-WAIT = 120.0
+#: longest wait (s) for a kernel the second process is building: about twice its compile time
+#: on a 2-core machine (0.3-1.1 s; 8 s for the second-order solver); then it is compiled here
+WAIT = {"second_order": 15.0}
+WAIT_DEFAULT = 3.0
 _ENV = "DIC_COMPILE_AHEAD"
 
 _lock = threading.Lock()
 _started = False
 _events: dict[str, threading.Event] = {}
+#: the kernel the second process is building now
+_building = [None]
 #: the process that started the second one (a forked child has no listener: it never waits)
 _owner = None
 
@@ -102,22 +106,27 @@ def start() -> bool:
         _owner = os.getpid()
         for name in missing:
             _events[name] = threading.Event()
-        threading.Thread(target=_listen, args=(proc,), daemon=True,
+        threading.Thread(target=_listen, args=(proc, _events, _building), daemon=True,
                          name="dic-compile-ahead").start()
         return True
 
 
-def _listen(proc):
-    """Set each kernel's event when the second process reports it; all of them when it ends."""
+def _listen(proc, events, building):
+    """Set each kernel's event when the second process reports it; all of them when it ends.
+    ``building[0]``: the kernel it has begun and not yet reported."""
     try:
         for line in proc.stdout:
             word, _, name = line.strip().partition(" ")
-            if word == "ready" and name in _events:
-                _events[name].set()
+            if word == "start":
+                building[0] = name
+            elif word == "ready" and name in events:
+                building[0] = None
+                events[name].set()
     except Exception:
         pass
     finally:
-        for event in list(_events.values()):
+        building[0] = None
+        for event in list(events.values()):
             event.set()
         try:
             proc.stdout.close()
@@ -128,7 +137,11 @@ def _listen(proc):
 
 def ready(name: str) -> None:
     """Before the first use of kernel ``name`` (of :data:`KERNELS`): wait while the second
-    process is building it (at most :data:`WAIT` seconds)."""
+    process is building it, at most :data:`WAIT` seconds. If it has not begun that kernel yet
+    (it is behind: on a machine whose cores are all busy its low priority starves it), there is
+    no wait and the kernel is compiled here."""
     event = _events.get(name)
-    if event is not None and not event.is_set() and os.getpid() == _owner:
-        event.wait(WAIT)
+    if event is None or event.is_set() or os.getpid() != _owner:
+        return
+    if _building[0] == name:
+        event.wait(WAIT.get(name, WAIT_DEFAULT))

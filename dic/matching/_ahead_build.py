@@ -1,8 +1,8 @@
 """The second process of :mod:`dic.matching._ahead`: ``python -m dic.matching._ahead_build
 NAME ...`` compiles the named kernels (of ``dic.matching._ahead.KERNELS``) in the order given,
 each through the same Python wrapper a run calls (so the compiled signatures are the run's), on
-tiny arrays, at the lowest priority, and prints ``ready NAME`` after each (also when one
-fails: the run then compiles that one itself)."""
+tiny arrays, at the lowest priority. It prints ``start NAME`` before each and ``ready NAME``
+after it (also when one fails: the run then compiles that one itself)."""
 
 from __future__ import annotations
 
@@ -66,6 +66,7 @@ def main(names) -> int:
     except (AttributeError, OSError):
         pass
     for name in names:
+        print("start", name, flush=True)
         try:
             _compile(name)
         except Exception:  # this kernel is compiled by the run itself
