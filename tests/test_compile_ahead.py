@@ -71,6 +71,7 @@ def fresh(monkeypatch):
     monkeypatch.setattr(_ahead, "_events", {})
     monkeypatch.setattr(_ahead, "_owner", None)
     monkeypatch.setattr(_ahead, "_building", [None])
+    monkeypatch.setattr(_ahead, "_procs", [])
     monkeypatch.setattr(_ahead, "_cached", lambda dispatcher: False)
     monkeypatch.delenv("DIC_COMPILE_AHEAD", raising=False)
     return monkeypatch
@@ -133,6 +134,19 @@ def test_a_forked_process_does_not_wait_for_its_parents_second_process(fresh):
     t = time.perf_counter()
     _ahead.ready("next_wave")
     assert time.perf_counter() - t < 1.0
+
+
+def test_the_second_process_ends_with_this_one(fresh):
+    # a second process still compiling when the program ends is stopped (stop() runs at exit)
+    fresh.setattr(_ahead.subprocess, "Popen", lambda args, **kw: _POPEN(
+        [sys.executable, "-c", "import time; time.sleep(60)"], **kw))
+    assert _ahead.start() is True
+    (proc,) = _ahead._procs
+    assert proc.poll() is None
+    _ahead.stop()
+    assert proc.wait(timeout=10) is not None
+    for name, _, _ in _ahead.KERNELS:   # and every wait is released
+        _ahead.ready(name)
 
 
 def test_started_once_per_process_and_switched_off_by_the_environment(fresh):

@@ -8,7 +8,8 @@ compiles under a global lock, so threads do not help, but a second process does:
 the later kernels into the shared compile cache while this process builds the first ones, and
 this process then loads them from the cache instead of compiling them itself. It runs at the
 lowest priority, so once this process has work for every core (matching in threads) the
-second process barely slows it, and it may outlive this process to finish the cache.
+second process barely slows it; it ends when this process does (:func:`stop`), keeping in the
+cache what it has built.
 
 :func:`start` launches that process once, on the first matcher of a process, and only when the
 cache of one of the later kernels is empty (a fresh install, or sources changed). :func:`ready`
@@ -23,6 +24,7 @@ The second process is ``python -m dic.matching._ahead_build`` (see there).
 
 from __future__ import annotations
 
+import atexit
 import os
 import subprocess
 import sys
@@ -50,6 +52,8 @@ _events: dict[str, threading.Event] = {}
 _building = [None]
 #: the process that started the second one (a forked child has no listener: it never waits)
 _owner = None
+#: the second process (a list, so that tests can start several)
+_procs: list = []
 
 
 def _dispatcher(module, name):
@@ -104,6 +108,9 @@ def start() -> bool:
         except Exception:
             return False
         _owner = os.getpid()
+        _procs.append(proc)
+        if len(_procs) == 1:
+            atexit.register(stop)
         for name in missing:
             _events[name] = threading.Event()
         threading.Thread(target=_listen, args=(proc, _events, _building), daemon=True,
@@ -131,6 +138,18 @@ def _listen(proc, events, building):
         try:
             proc.stdout.close()
             proc.wait()
+        except Exception:
+            pass
+
+
+def stop() -> None:
+    """End the second process if it is still compiling (run when this process exits: its work
+    so far stays in the cache, and no compiler keeps running after the program that wanted it;
+    the next process starts one for what is still missing)."""
+    for proc in _procs:
+        try:
+            if proc.poll() is None:
+                proc.terminate()
         except Exception:
             pass
 
