@@ -15,9 +15,9 @@ cache what it has built.
 cache of one of the later kernels is empty (a fresh install, or sources changed). :func:`ready`
 is called before each of those kernels' first use: while the second process is building that
 kernel it waits for it, a bounded time (compiling it here too would only duplicate the work);
-otherwise it returns at once. Anything going wrong (no interpreter to start, a crash, a full disk) only
-means the kernel is compiled here, as without this module. Set the environment variable
-``DIC_COMPILE_AHEAD=0`` to switch it off.
+otherwise it returns at once. Anything going wrong (no interpreter to start, a crash, a full
+disk) only means the kernel is compiled here, as without this module. Set the environment
+variable ``DIC_COMPILE_AHEAD=0`` to switch it off.
 
 The second process is ``python -m dic.matching._ahead_build`` (see there).
 """
