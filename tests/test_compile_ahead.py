@@ -9,9 +9,12 @@ import time
 
 import pytest
 
+import dic
 from dic.matching import _ahead
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+#: the package in use here (the second process must import the same)
+PKG = os.path.dirname(os.path.abspath(dic.__file__))
 
 # a first run on a curved field (second-order points: the 'auto' shape choice uses every
 # kernel of _ahead.KERNELS), reporting for each of them how often the run had to compile it
@@ -47,11 +50,12 @@ def test_kernels_compiled_ahead_are_the_ones_a_run_loads(tmp_path):
 
     names = [k[0] for k in _ahead.KERNELS]
     # the second process, run to its end in an empty compile cache
-    child = subprocess.run([sys.executable, "-m", "dic.matching._ahead_build", *names],
-                           env=_env(tmp_path, "0"), capture_output=True, text=True,
-                           timeout=600)
+    child = subprocess.run(_ahead.command(names), env=_env(tmp_path, "0"),
+                           capture_output=True, text=True, timeout=600)
     assert child.returncode == 0, child.stderr
-    assert child.stdout.split() == [w for n in names for w in ("start", n, "ready", n)]
+    lines = child.stdout.splitlines()
+    assert lines[0].split(None, 1) == ["package", PKG]
+    assert " ".join(lines[1:]).split() == [w for n in names for w in ("start", n, "ready", n)]
     # a run in a fresh process on that cache compiles none of them: the signatures the second
     # process built are the ones the run calls
     run = subprocess.run([sys.executable, "-c", _RUN], env=_env(tmp_path, "0"),
@@ -62,6 +66,18 @@ def test_kernels_compiled_ahead_are_the_ones_a_run_loads(tmp_path):
     for name in names:
         misses, hits = stats[name]
         assert misses == 0 and hits >= 1, (name, misses, hits)
+
+
+def test_the_second_process_imports_this_package_not_one_in_its_directory(tmp_path):
+    # run from the top of a source tree after 'pip install .', the current directory holds
+    # another copy of the package: the second process must fill the cache of the one in use
+    decoy = tmp_path / "dic"
+    decoy.mkdir()
+    (decoy / "__init__.py").write_text("raise ImportError('the copy in the current directory')")
+    child = subprocess.run(_ahead.command([]), cwd=tmp_path, capture_output=True, text=True,
+                           timeout=120)
+    assert child.returncode == 0, child.stderr
+    assert child.stdout.strip().split(None, 1) == ["package", PKG]
 
 
 @pytest.fixture

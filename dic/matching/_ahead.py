@@ -19,7 +19,7 @@ otherwise it returns at once. Anything going wrong (no interpreter to start, a c
 disk) only means the kernel is compiled here, as without this module. Set the environment
 variable ``DIC_COMPILE_AHEAD=0`` to switch it off.
 
-The second process is ``python -m dic.matching._ahead_build`` (see there).
+The second process runs ``dic.matching._ahead_build`` (see there), started by :func:`command`.
 """
 
 from __future__ import annotations
@@ -70,6 +70,17 @@ def _cached(dispatcher) -> bool:
         return True
 
 
+def command(names) -> list:
+    """The second process's command line for kernels ``names``. It imports this very package,
+    wherever this process imported it from: the folder that holds it comes first on its path,
+    in place of the current directory (run from the top of a source tree after ``pip install
+    .``, ``python -m`` would import the tree's copy and fill the wrong cache)."""
+    root = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
+    code = (f"import sys; sys.path[0] = {root!r}; "
+            f"from dic.matching._ahead_build import main; sys.exit(main(sys.argv[1:]))")
+    return [sys.executable, "-c", code, *names]
+
+
 def start() -> bool:
     """Start the second process if the cache lacks one of :data:`KERNELS` (once per process).
 
@@ -94,17 +105,13 @@ def start() -> bool:
             return False
         env = dict(os.environ)
         env[_ENV] = "0"
-        # the child imports this very package, wherever it was imported from here
-        root = os.path.dirname(os.path.dirname(os.path.dirname(os.path.abspath(__file__))))
-        env["PYTHONPATH"] = os.pathsep.join([root] + [p for p in [env.get("PYTHONPATH")] if p])
         try:
             # at low priority (it lowers its own on POSIX): where this process has work for
             # both cores, the second process leaves them to it
-            proc = subprocess.Popen([sys.executable, "-m", "dic.matching._ahead_build", *missing],
-                                    stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
-                                    stderr=subprocess.DEVNULL, env=env, text=True,
-                                    creationflags=getattr(subprocess,
-                                                          "IDLE_PRIORITY_CLASS", 0))
+            proc = subprocess.Popen(command(missing), stdin=subprocess.DEVNULL,
+                                    stdout=subprocess.PIPE, stderr=subprocess.DEVNULL, env=env,
+                                    text=True, creationflags=getattr(subprocess,
+                                                                     "IDLE_PRIORITY_CLASS", 0))
         except Exception:
             return False
         _owner = os.getpid()

@@ -1,8 +1,9 @@
-"""The second process of :mod:`dic.matching._ahead`: ``python -m dic.matching._ahead_build
-NAME ...`` compiles the named kernels (of ``dic.matching._ahead.KERNELS``) in the order given,
-each through the same Python wrapper a run calls (so the compiled signatures are the run's), on
-tiny arrays, at the lowest priority. It prints ``start NAME`` before each and ``ready NAME``
-after it (also when one fails: the run then compiles that one itself)."""
+"""The second process of :mod:`dic.matching._ahead` (its command line:
+``dic.matching._ahead.command``): it compiles the named kernels (of
+``dic.matching._ahead.KERNELS``) in the order given, each through the same Python wrapper a run
+calls (so the compiled signatures are the run's), on tiny arrays, at the lowest priority. It
+prints ``package FOLDER`` (the package it imported), then ``start NAME`` before each kernel and
+``ready NAME`` after it (also when one fails: the run then compiles that one itself)."""
 
 from __future__ import annotations
 
@@ -65,6 +66,9 @@ def main(names) -> int:
         os.nice(19)   # the lowest priority: it runs on a core this process leaves idle
     except (AttributeError, OSError):
         pass
+    import dic
+
+    print("package", os.path.dirname(os.path.abspath(dic.__file__)), flush=True)
     for name in names:
         print("start", name, flush=True)
         try:
