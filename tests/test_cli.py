@@ -172,8 +172,8 @@ def test_help_and_version_exit_zero(capsys):
     text = capsys.readouterr().out
     for option in ("--out", "--config", "--reference", "--frames", "--subset", "--step",
                    "--roi", "--roi-mask", "--shape-function", "--interpolation", "--min-zncc",
-                   "--max-sigma", "--search", "--block", "--scale", "--scale-line", "--strain-window",
-                   "--strain-measure", "--workers", "--cluster", "--overwrite", "--quiet",
+                   "--max-sigma", "--search", "--block", "--scale", "--scale-line",
+                   "--strain-window", "--strain-measure", "--workers", "--cluster", "--overwrite", "--quiet",
                    "--verbose"):
         assert option in text
     assert main(["info", "--help"]) == 0

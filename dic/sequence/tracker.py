@@ -302,7 +302,8 @@ def _make_executor(workers, cluster):
 # ------------------------------------------------------------------------------------------
 def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None,
           shape_function="auto", interpolation="quintic", min_zncc=0.9,
-          max_sigma=DEFAULT_MAX_SIGMA, search=60, block=8, update_valid=0.95, update_zncc=0.97, workers=None, cluster=None,
+          max_sigma=DEFAULT_MAX_SIGMA, search=60, block=8, update_valid=0.95, update_zncc=0.97,
+          workers=None, cluster=None,
           scale=None, overwrite=False, progress=False, strain=None, right_images=None,
           calibration=None, max_view_angle=None):
     """Track a sequence of images and write a results file.
@@ -371,7 +372,8 @@ def track(images, out, *, subset=21, step=10, roi=None, reference=0, frames=None
             subset=subset, step=step, roi=roi, reference=reference, frames=frames,
             shape_function=shape_function, interpolation=interpolation, min_zncc=min_zncc,
             max_sigma=max_sigma, search=search, block=block, update_valid=update_valid,
-            update_zncc=update_zncc, workers=workers, cluster=cluster, scale=scale, overwrite=overwrite,
+            update_zncc=update_zncc, workers=workers, cluster=cluster, scale=scale,
+            overwrite=overwrite,
             progress=progress)
     from dic.images.roi import make_roi
     from dic.sequence.reader import Results
