@@ -42,6 +42,26 @@ def test_evaluation_matches_map_coordinates(image, order):
                                image.ravel(), atol=1e-9)
 
 
+def test_two_pass_quintic_matches_map_coordinates(image):
+    # the solver's vectorised quintic (weights of all positions, then the 6 x 6 sums) against
+    # scipy.ndimage.map_coordinates (same spline, mirror mode), the independent oracle, at
+    # random positions, at pixel centres and just below them (where the integer part changes)
+    from dic.matching._icgn_kernel import _quintic_at
+
+    s = interp.prefilter(image, 5)
+    rng = np.random.default_rng(2)
+    x = np.concatenate([rng.uniform(0, image.shape[1] - 1, 2000), np.arange(1.0, 40.0),
+                        np.arange(1.0, 40.0) - 1e-12])
+    y = np.concatenate([rng.uniform(0, image.shape[0] - 1, 2000), np.arange(40.0, 1.0, -1),
+                        np.arange(40.0, 1.0, -1) - 1e-12])
+    n = x.size
+    g = np.full(n, np.nan)
+    _quintic_at(s.coef, s.pad, x, y, np.empty(n, np.int64), np.empty(n, np.int64),
+                np.empty((12, n)), g, n)
+    want = ndimage.map_coordinates(image, [y, x], order=5, mode="mirror")
+    np.testing.assert_allclose(g, want, atol=1e-9)
+
+
 @pytest.mark.parametrize("order", [3, 5])
 def test_reference_gradients_are_spline_derivatives(image, order):
     # central differences (h = 1e-5 px) of scipy's interpolant are the oracle; their own error
