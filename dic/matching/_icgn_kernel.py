@@ -586,14 +586,14 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
 
     Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
     moment sums (of the gradients' products times 1, dx, dy, dx^2, dx dy, dy^2), which is
-    several times cheaper than forming the steepest-descent images explicitly. The reference subset is copied into rows
-    0-2 of the caller's scratch array ``sub`` (f, df/dx, df/dy; one set of scratch arrays per
-    chunk of points), whose rows 3-4 and 9-11 hold each sample's dx, dy, dx^2, dx dy, dy^2
-    (filled by the caller); the sums are then plain loops over the samples, which the compiler
-    turns into vector instructions. With the quintic spline, each iteration works the same
-    way: the warped positions into rows 6-7, the deformed image's values into row 8
-    (:func:`_quintic_at`, with the integer positions in ``idx`` and the weights in ``w``), then
-    the sums: 35 % less time per iteration than sample by sample.
+    several times cheaper than forming the steepest-descent images explicitly. The reference
+    subset is copied into rows 0-2 of the caller's scratch array ``sub`` (f, df/dx, df/dy; one
+    set of scratch arrays per chunk of points), whose rows 3-4 and 9-11 hold each sample's dx,
+    dy, dx^2, dx dy, dy^2 (filled by the caller); the sums are then plain loops over the
+    samples, which the compiler turns into vector instructions. With the quintic spline, each
+    iteration works the same way: the warped positions into rows 6-7, the deformed image's
+    values into row 8 (:func:`_quintic_at`, with the integer positions in ``idx`` and the
+    weights in ``w``), then the sums: 35 % less time per iteration than sample by sample.
     """
     rows, cols = ref.shape
     ns = 2 * half + 1
