@@ -268,6 +268,33 @@ def test_island_cut_off_by_a_band_gets_its_own_seed(speckle):
     assert np.abs(f.v[clear] - dy).max() <= 0.01
 
 
+def test_textured_patch_off_centre_of_a_blank_roi_is_found():
+    # A speckled specimen filling a small, off-centre part of an otherwise blank image (the
+    # whole image as the ROI): the seeds tried near the ROI's centre and spread from it all
+    # land on blank subsets, so the solver goes on to the best-textured points; before it did,
+    # none of the specimen was measured. Known translation as the oracle.
+    n = 240
+    pat = synth.make_speckle((n, n), radius=2.5, seed=3)
+    dx, dy = 1.3, -0.7
+    ref = synth.render(pat, (n, n), bits=8)
+    dfm = synth.render(pat, (n, n), synth.translation(dx, dy), bits=8)
+    spot = np.zeros((n, n), bool)
+    spot[120:215, 15:110] = True
+    ref = np.where(spot, ref, 128.0)
+    # the deformed image's patch moves with the specimen (by whole pixels: 1 right, 1 up)
+    dfm = np.where(np.roll(spot, (-1, 1), axis=(0, 1)), dfm, 128.0)
+    with pytest.warns(UserWarning, match="too little texture"):
+        f = dic.correlate(ref, dfm, subset=21, step=5)
+    # points whose subset lies inside the patch, 2 px clear of its edges
+    inner = (f.x >= 15 + 12) & (f.x <= 109 - 12) & (f.y >= 120 + 12) & (f.y <= 214 - 12)
+    assert inner.sum() >= 150
+    assert f.valid[inner].all()
+    assert np.abs(f.u[inner] - dx).max() <= 0.02
+    assert np.abs(f.v[inner] - dy).max() <= 0.02
+    # the blank rest is flat, not "not reached"
+    assert np.count_nonzero(f.reason == Reason.NOT_REACHED) <= 0.01 * f.valid.size
+
+
 def test_offset_and_gain_change_of_lighting(speckle):
     # ZNSSD is insensitive to offset and gain changes of the grey levels (Pan, Xie & Wang,
     # Appl. Opt. 49 (2010) 5501): the same field with g' = 0.7 g + 25.
