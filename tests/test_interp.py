@@ -56,8 +56,8 @@ def test_two_pass_quintic_matches_map_coordinates(image):
                         np.arange(40.0, 1.0, -1) - 1e-12])
     n = x.size
     g = np.full(n, np.nan)
-    _quintic_at(s.coef, s.pad, x, y, np.empty(n, np.int64), np.empty(n, np.int64),
-                np.empty((12, n)), g, n)
+    _quintic_at(s.coef, s.pad, np.concatenate([x, y]), np.empty(2 * n, np.int64),
+                np.empty((6, 2 * n)), g, n)
     want = ndimage.map_coordinates(image, [y, x], order=5, mode="mirror")
     np.testing.assert_allclose(g, want, atol=1e-9)
 

@@ -99,10 +99,10 @@ def _eval_quintic(c, pad, x, y):
 
 
 @njit(cache=True, fastmath=True)
-def _weights5(pos, idx, w, o, n):
+def _weights5(pos, idx, w, n):
     """Integer parts of ``pos[:n]`` into ``idx`` and 120 x the quintic weights of their
-    fractions (as :func:`_w5`) into rows ``o``..``o + 5`` of ``w``: a plain loop over the
-    samples, which the compiler turns into vector instructions."""
+    fractions (as :func:`_w5`) into ``w[:, :n]``: a plain loop over the samples, which the
+    compiler turns into vector instructions."""
     for m in range(n):
         f = np.floor(pos[m])
         idx[m] = int(f)
@@ -115,12 +115,12 @@ def _weights5(pos, idx, w, o, n):
         w1 = 1.0 + s * (5.0 + s * (10.0 + s * (10.0 + s * (5.0 - 5.0 * s))))
         w4 = 1.0 + t * (5.0 + t * (10.0 + t * (10.0 + t * (5.0 - 5.0 * t))))
         w2 = 66.0 + t2 * (-60.0 + t2 * (30.0 - 10.0 * t))
-        w[o, m] = w0
-        w[o + 1, m] = w1
-        w[o + 2, m] = w2
-        w[o + 3, m] = 120.0 - w0 - w1 - w2 - w4 - w5
-        w[o + 4, m] = w4
-        w[o + 5, m] = w5
+        w[0, m] = w0
+        w[1, m] = w1
+        w[2, m] = w2
+        w[3, m] = 120.0 - w0 - w1 - w2 - w4 - w5
+        w[4, m] = w4
+        w[5, m] = w5
 
 
 @njit(cache=True, fastmath=True)
@@ -131,21 +131,22 @@ def _col6(c, r, q, y0, y1, y2, y3, y4, y5):
 
 
 @njit(cache=True, fastmath=True)
-def _quintic_at(c, pad, xw, yw, ix, iy, w, g, n):
-    """Quintic spline values at the ``n`` positions ``(xw, yw)`` into ``g``, in two passes:
-    the weights of all positions first (:func:`_weights5`, vectorised), then the 6 x 6
-    sums. The same values as :func:`_eval_quintic` up to rounding."""
-    _weights5(xw, ix, w, 0, n)
-    _weights5(yw, iy, w, 6, n)
+def _quintic_at(c, pad, pos, idx, w, g, n):
+    """Quintic spline values at ``n`` positions into ``g``: ``pos[m]``, ``pos[n + m]`` are
+    the x and y of position m. In two passes: the integer parts and weights of all 2n
+    coordinates first (:func:`_weights5`, vectorised; into ``idx`` and ``w``, of at least
+    2n columns), then the 6 x 6 sums. The same values as :func:`_eval_quintic` up to
+    rounding."""
+    _weights5(pos, idx, w, 2 * n)
     for m in range(n):
-        r = np.uint64(iy[m] + pad - 2)
-        q = np.uint64(ix[m] + pad - 2)
-        y0 = w[6, m]
-        y1 = w[7, m]
-        y2 = w[8, m]
-        y3 = w[9, m]
-        y4 = w[10, m]
-        y5 = w[11, m]
+        r = np.uint64(idx[n + m] + pad - 2)
+        q = np.uint64(idx[m] + pad - 2)
+        y0 = w[0, n + m]
+        y1 = w[1, n + m]
+        y2 = w[2, n + m]
+        y3 = w[3, n + m]
+        y4 = w[4, n + m]
+        y5 = w[5, n + m]
         g[m] = (w[0, m] * _col6(c, r, q, y0, y1, y2, y3, y4, y5)
                 + w[1, m] * _col6(c, r, q + np.uint64(1), y0, y1, y2, y3, y4, y5)
                 + w[2, m] * _col6(c, r, q + np.uint64(2), y0, y1, y2, y3, y4, y5)
@@ -284,8 +285,8 @@ def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy,
 
     Returns (inside, sum g, sum g^2, sum fn*g) and fills jg = sum J^T g. The quintic spline
     is evaluated in passes over the whole subset (:func:`_quintic_at`), with the positions
-    and values in the scratch array ``sc`` (3 x samples) and the spline's integer positions
-    and weights in ``idx`` and ``w``."""
+    and values in the scratch array ``sc`` (3 x samples: all x, all y, the values) and the
+    spline's integer positions and weights in ``idx`` and ``w`` (2 x samples)."""
     npar = jac.shape[1]
     ns = 2 * half + 1
     sg = 0.0
@@ -294,6 +295,7 @@ def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy,
     for a in range(npar):
         jg[a] = 0.0
     if order != 3:
+        npix = ns * ns
         n = 0
         for j in range(ns):
             dy = float(j - half)
@@ -306,12 +308,12 @@ def _sample_general(coef, pad, order, x0, y0, half, second, u, ux, uy, uxx, uxy,
                     yw += 0.5 * vxx * dx * dx + vxy * dx * dy + 0.5 * vyy * dy * dy
                 if not (xw >= xmin and xw <= xmax and yw >= xmin and yw <= ymax):
                     return False, sg, sg2, sfg
-                sc[0, n] = xw
-                sc[1, n] = yw
+                sc[n] = xw
+                sc[npix + n] = yw
                 n += 1
-        _quintic_at(coef, pad, sc[0], sc[1], idx[0], idx[1], w, sc[2], n)
+        _quintic_at(coef, pad, sc, idx, w, sc[2 * npix:], n)
         for m in range(n):
-            g = sc[2, m]
+            g = sc[2 * npix + m]
             sg += g
             sg2 += g * g
             sfg += fn[m] * g
@@ -581,7 +583,7 @@ def _match_one(ref, gx, gy, coef, pad, order, x0, y0, p, half, second, max_iter,
 
 @njit(cache=True, fastmath=True)
 def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol, flat,
-                  border, smat, unc, near, sub, idx, w):
+                  border, smat, unc, near, sub, pos, idx, w):
     """First-order IC-GN for one subset.
 
     Same algorithm as :func:`_match_one`; the Hessian, J^T f and J^T g are accumulated as
@@ -591,9 +593,10 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
     set of scratch arrays per chunk of points), whose rows 3-4 and 9-11 hold each sample's dx,
     dy, dx^2, dx dy, dy^2 (filled by the caller); the sums are then plain loops over the
     samples, which the compiler turns into vector instructions. With the quintic spline, each
-    iteration works the same way: the warped positions into rows 6-7, the deformed image's
-    values into row 8 (:func:`_quintic_at`, with the integer positions in ``idx`` and the
-    weights in ``w``), then the sums: 35 % less time per iteration than sample by sample.
+    iteration works the same way: the warped positions into ``pos`` (all x, then all y), the
+    deformed image's values into row 8 (:func:`_quintic_at`, with the integer positions in
+    ``idx`` and the weights in ``w``), then the sums: 35 % less time per iteration than
+    sample by sample.
     """
     rows, cols = ref.shape
     ns = 2 * half + 1
@@ -753,10 +756,10 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
                 xr = x0 + u + uy * dy - (1.0 + ux) * h
                 yr = y0 + dy + v + vy * dy - vx * h
                 for i in range(ns):
-                    sub[6, m] = xr + (1.0 + ux) * i
-                    sub[7, m] = yr + vx * i
+                    pos[m] = xr + (1.0 + ux) * i
+                    pos[npix + m] = yr + vx * i
                     m += 1
-            _quintic_at(coef, pad, sub[6], sub[7], idx[0], idx[1], w, sub[8], npix)
+            _quintic_at(coef, pad, pos, idx, w, sub[8], npix)
             gs = sub[8]
             for m in range(npix):
                 g = gs[m]
@@ -858,8 +861,9 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
             sub[9, j * ns + i] = dx * dx
             sub[10, j * ns + i] = dx * dy
             sub[11, j * ns + i] = dy * dy
-    idx = np.empty((2, ns * ns), np.int64)
-    w = np.empty((12, ns * ns))
+    pos = np.empty(2 * ns * ns)
+    idx = np.empty(2 * ns * ns, np.int64)
+    w = np.empty((6, 2 * ns * ns))
     for k in range(lo, hi):
         for a in range(6):
             p[a] = p_init[k, a]
@@ -869,7 +873,7 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
         near[0] = 0
         st, zn, it, sf, sd = _match_affine(ref, gx, gy, coef, pad, order, xs[k], ys[k], p,
                                            half, max_iter, tol, flat, border, smat, unc, near,
-                                           sub, idx, w)
+                                           sub, pos, idx, w)
         out_near[k] = near[0]
         for a in range(6):
             out_p[k, a] = p[a]
@@ -892,9 +896,9 @@ def match_general(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, s
     # scratch arrays are allocated once per chunk of points, not once per point
     fn = np.empty(ns * ns)
     jac = np.empty((ns * ns, npar))
-    sc = np.empty((3, ns * ns))
-    idx = np.empty((2, ns * ns), np.int64)
-    w = np.empty((12, ns * ns))
+    sc = np.empty(3 * ns * ns)
+    idx = np.empty(2 * ns * ns, np.int64)
+    w = np.empty((6, 2 * ns * ns))
     p = np.empty(npar)
     near = np.zeros(1, np.int64)
     for k in range(lo, hi):
