@@ -143,6 +143,42 @@ def test_waits_only_for_the_kernel_the_second_process_is_building(fresh):
     assert time.perf_counter() - t < 5.0
 
 
+def test_compiles_the_next_kernels_itself_while_it_waits_for_the_solver(fresh):
+    # while the second process builds the first-order solver, this process builds the small
+    # kernels the run needs next and the second process has not begun (not one it has begun
+    # or finished), then waits for the solver, a bounded time
+    from dic.matching import _ahead_build
+
+    names = ("first_order",) + _ahead.MEANWHILE["first_order"]
+    events = {n: threading.Event() for n in names}
+    events["fill_between"].set()           # already reported by the second process
+    fresh.setattr(_ahead, "_events", events)
+    fresh.setattr(_ahead, "_owner", os.getpid())
+    fresh.setattr(_ahead, "_building", ["first_order"])
+    fresh.setattr(_ahead, "WAIT", {"first_order": 0.3})
+    built = []
+    assert _ahead.builder is _ahead_build.build     # set by dic.matching on import
+
+    def spy(name):                          # the real build, recorded
+        built.append(name)
+        _ahead_build.build(name)
+
+    fresh.setattr(_ahead, "builder", spy)
+    t = time.perf_counter()
+    _ahead.ready("first_order")
+    assert time.perf_counter() - t >= 0.25
+    assert built == [n for n in _ahead.MEANWHILE["first_order"] if n != "fill_between"]
+    assert all(events[n].is_set() for n in _ahead.MEANWHILE["first_order"])
+    # the solver reported ready meanwhile: nothing more is built, no wait
+    built.clear()
+    for n in _ahead.MEANWHILE["first_order"]:
+        events[n].clear()
+    events["first_order"].set()
+    t = time.perf_counter()
+    _ahead.ready("first_order")
+    assert built == [] and time.perf_counter() - t < 0.5
+
+
 def test_a_forked_process_does_not_wait_for_its_parents_second_process(fresh):
     # a fork copies the unset events but not the thread that would set them
     fresh.setattr(_ahead, "_events", {"next_wave": threading.Event()})

@@ -1,12 +1,13 @@
 """Compiling the kernels a first run needs later in a second process, ahead of time.
 
 On a fresh install every compiled kernel is built on its first call, one after the other, in
-the order a run reaches them: the prefilter and the first-order solver first (about 7 s), then
+the order a run reaches them: the prefilter (about 3 s), the first-order solver (5-7 s), then
 the propagation's bookkeeping, the interpolation-bias and neighbour tests (about 3 s), and, as
 soon as a point needs second order (a neck), the second-order solver (about 8 s). Numba
 compiles under a global lock, so threads do not help, but a second process does: it builds
-the later kernels into the shared compile cache while this process builds the first ones, and
-this process then loads them from the cache instead of compiling them itself. It runs at the
+the solvers into the shared compile cache while this process builds the prefilter and, while
+it waits for the first-order solver, the smaller kernels (:data:`MEANWHILE`); each process
+then loads from the cache what the other built instead of compiling it again. It runs at the
 lowest priority, so once this process has work for every core (matching in threads) the
 second process barely slows it; it ends when this process does (:func:`stop`), keeping in the
 cache what it has built.
@@ -32,6 +33,7 @@ import threading
 
 #: kernels compiled ahead, in the order a run first needs them: (name, module, function)
 KERNELS = (
+    ("first_order", "dic.matching._icgn_kernel", "match_first"),
     ("flat_subsets", "dic.matching._icgn_kernel", "flat_subsets"),
     ("next_wave", "dic.matching._waves", "next_wave"),
     ("fill_between", "dic.matching._waves", "fill_between"),
@@ -40,10 +42,26 @@ KERNELS = (
     ("second_order", "dic.matching._icgn_kernel", "match_general"),
 )
 #: longest wait (s) for a kernel the second process is building: about twice its compile time
-#: on a 2-core machine (0.3-1.1 s; 8 s for the second-order solver); then it is compiled here
-WAIT = {"second_order": 15.0}
+#: on a 2-core machine (0.3-1.1 s; 5-7 s for the first-order solver, 8 s for the second-order
+#: one); then it is compiled here
+WAIT = {"first_order": 15.0, "second_order": 15.0}
 WAIT_DEFAULT = 3.0
+#: kernels this process compiles itself while it waits for the one named (the second process
+#: has not begun them, and the run needs them next): the first-order solver takes the second
+#: process as long as the prefilter and these take this one, so the two finish together
+MEANWHILE = {"first_order": ("next_wave", "fill_between", "interpolation_bias",
+                             "median_test")}
 _ENV = "DIC_COMPILE_AHEAD"
+#: builds a kernel of :data:`KERNELS` by name in this process (``dic.matching`` sets it to
+#: :func:`dic.matching._ahead_build.build` on import, :func:`set_builder`, so that this
+#: module, which the kernels' modules import, imports none of them)
+builder = None
+
+
+def set_builder(fn) -> None:
+    """Set the function :func:`ready` builds kernels with in this process (by name)."""
+    global builder
+    builder = fn
 
 _lock = threading.Lock()
 _started = False
@@ -170,4 +188,15 @@ def ready(name: str) -> None:
     if event is None or event.is_set() or os.getpid() != _owner:
         return
     if _building[0] == name:
+        # rather than wait idle, compile what the run needs next and the second process has
+        # not begun (it then finds those in the cache)
+        for other in MEANWHILE.get(name, ()) if builder is not None else ():
+            later = _events.get(other)
+            if later is None or later.is_set() or _building[0] == other or event.is_set():
+                continue
+            try:
+                builder(other)
+            except Exception:  # compiled on first use instead
+                pass
+            later.set()
         event.wait(WAIT.get(name, WAIT_DEFAULT))

@@ -11,8 +11,9 @@ import os
 import sys
 
 
-def _compile(name):
-    """Build kernel ``name`` through the wrapper a run calls, on tiny arrays."""
+def build(name):
+    """Build kernel ``name`` through the wrapper a run calls, on tiny arrays (also used by
+    :func:`dic.matching._ahead.ready` in the run's own process)."""
     import numpy as np
 
     from dic.images.interp import BSplineImage
@@ -51,14 +52,15 @@ def _compile(name):
         y, x = np.mgrid[0:3, 0:3].astype(np.int64)
         median_test(x, y, np.zeros((3, 3)), np.zeros((3, 3)), np.zeros((3, 3, 2, 2)),
                     np.ones((3, 3), bool))
-    elif name == "second_order":
+    elif name in ("first_order", "second_order"):
         from dic.matching._icgn import SubsetMatcher
 
+        second = name == "second_order"
         pad = 5 // 2 + 2
         spline = BSplineImage(np.pad(img, pad, mode="reflect"), 5, pad, img.shape)
-        m = SubsetMatcher(img, img, subset=2 * half + 1, second_order=True, order=5,
+        m = SubsetMatcher(img, img, subset=2 * half + 1, second_order=second, order=5,
                           reference_gradients=(gx, gy), deformed_spline=spline, border=0)
-        m.match(np.array([20]), np.array([20]), np.zeros(12))
+        m.match(np.array([20]), np.array([20]), np.zeros(12 if second else 6))
 
 
 def main(names) -> int:
@@ -72,7 +74,7 @@ def main(names) -> int:
     for name in names:
         print("start", name, flush=True)
         try:
-            _compile(name)
+            build(name)
         except Exception:  # this kernel is compiled by the run itself
             pass
         print("ready", name, flush=True)

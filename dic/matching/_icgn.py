@@ -197,11 +197,12 @@ class SubsetMatcher:
                     out.params, out.status, out.zncc, out.iterations, out.sigma_factor,
                     self.smat, out.uncertainty, out.std, out.near_iterations)
             # only the solver a run uses gets compiled (first-order moment sums by default)
+            from dic.matching._ahead import ready
+
             if self.fast and not self.second:
+                ready("first_order")
                 run_chunks(match_first, n, *common, *tail, min_chunk=8)
             else:
-                from dic.matching._ahead import ready
-
                 ready("second_order")
                 run_chunks(match_general, n, *common, self.second, *tail, min_chunk=8)
         self.kernel_time += time.perf_counter() - t0
