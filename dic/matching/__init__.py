@@ -16,7 +16,8 @@ import numpy as np
 
 from dic.field import DisplacementField, Reason
 from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA, check_max_sigma
-from dic.matching._ahead import ready
+from dic.matching._ahead import ready, set_builder
+from dic.matching._ahead_build import build as compile_kernel
 from dic.matching._edge import edge_bias, edge_distance, near_border
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
                     grad_from_params, index_u_v, n_params, params_from_fields)
@@ -28,6 +29,7 @@ from dic.matching._checks import (affine_bias, median_test, posterior_sigma,
                                   slow_convergence_factor, translation_sigma)
 from dic.matching._interp_bias import interpolation_bias, phase_error
 from dic.matching._rescue import admit_uncertain, retry_failed
+from dic.matching._seed import seed_candidates, sssig
 from dic.matching._shape_choice import second_order_where_curved
 
 __all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
@@ -78,10 +80,9 @@ MEDIAN_PASSES = 3
 last_timings: dict = {}
 
 log = logging.getLogger(__name__)
+# kernels the run compiles itself while the second process builds the solver (_ahead.ready)
+set_builder(compile_kernel)
 
-_SEED_TRIES = 7
-# further seed tries in a large part where those failed, at its best-textured points
-_TEXTURE_TRIES = 12
 # separate parts of the ROI smaller than this many points are not seeded on their own
 _MIN_ISLAND = 10
 # grids at least this many points across propagate over a coarse lattice first
@@ -257,56 +258,6 @@ class _Propagation:
             if idx.size == 0:
                 break
             new_good = self.run(idx, p0, on_fail=on_fail, tolerance=tolerance)
-
-
-def _seed_candidates(comp_idx, px, py, texture=None, spacing=0):
-    """Seed trial order for a component: nearest its centroid first, then spread out; then,
-    when ``texture`` (a function of point indices) is given, the component's best-textured
-    points, at least ``spacing`` px from every point tried before (a generator: these are
-    ranked only if the first tries fail)."""
-    cx, cy = px[comp_idx].mean(), py[comp_idx].mean()
-    order = comp_idx[np.argsort((px[comp_idx] - cx) ** 2 + (py[comp_idx] - cy) ** 2,
-                                kind="stable")]
-    if order.size <= _SEED_TRIES:
-        yield from order
-        return
-    # the centre first, then points at growing distance from it
-    picks = order[np.unique(np.linspace(0, order.size - 1, _SEED_TRIES).astype(int))]
-    yield from picks
-    if texture is None:
-        return
-    # a large part whose centre lies on poor texture (a depth step, a shadow): its best
-    # textured subsets, spread over it
-    tried = list(picks)
-    for k in comp_idx[np.argsort(-texture(comp_idx), kind="stable")]:
-        if len(tried) >= _SEED_TRIES + _TEXTURE_TRIES:
-            break
-        if np.min((px[tried] - px[k]) ** 2 + (py[tried] - py[k]) ** 2) < spacing ** 2:
-            continue
-        tried.append(k)
-        yield k
-
-
-def _texture(prop, idx):
-    """The smaller of the sums of squared x and y grey-level gradients (SSSIG) over the subsets
-    of points ``idx``, from summed-area tables of the reference's squared gradients (made once
-    per propagation state, when first asked)."""
-    tables = getattr(prop, "_sssig_tables", None)
-    if tables is None:
-        tables = []
-        for g in (prop.m.gx, prop.m.gy):
-            t = np.zeros((g.shape[0] + 1, g.shape[1] + 1))
-            np.cumsum(np.cumsum(g * g, axis=0), axis=1, out=t[1:, 1:])
-            tables.append(t)
-        prop._sssig_tables = tables
-    h = prop.m.half
-    rows, cols = tables[0].shape
-    x0 = np.clip(prop.px[idx] - h, 0, cols - 1)
-    x1 = np.clip(prop.px[idx] + h + 1, 0, cols - 1)
-    y0 = np.clip(prop.py[idx] - h, 0, rows - 1)
-    y1 = np.clip(prop.py[idx] + h + 1, 0, rows - 1)
-    sx, sy = (t[y1, x1] - t[y0, x1] - t[y1, x0] + t[y0, x0] for t in tables)
-    return np.minimum(sx, sy)
 
 
 def _try_seed(prop, k, ref, deformed, search, guess=None, start=None):
@@ -661,8 +612,8 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
                 # a seed there is as likely to lock onto a false match as a true one
                 _unreached(prop, comp)
                 continue
-            for k in _seed_candidates(comp, prop.px, prop.py, lambda i: _texture(prop, i),
-                                      2 * prop.m.half + 1):
+            for k in seed_candidates(comp, prop.px, prop.py, lambda i: sssig(prop, i),
+                                     2 * prop.m.half + 1):
                 if prop.state[k] != w.TODO:
                     continue
                 if _try_seed(prop, k, ref, dfm, search, start=start):

@@ -1,8 +1,14 @@
-"""Whole-pixel starting guess for a seed point by zero-normalised FFT cross-correlation."""
+"""Seed points: where to try them (:func:`seed_candidates`) and their whole-pixel starting
+guess by zero-normalised FFT cross-correlation (:func:`fft_guess`)."""
 
 from __future__ import annotations
 
 import numpy as np
+
+#: seeds tried in a part of the ROI, near its centre and spread from it
+SEED_TRIES = 7
+#: further seed tries in a large part where those failed, at its best-textured points
+TEXTURE_TRIES = 12
 
 
 def fft_guess(reference, deformed, x, y, *, half, search):
@@ -51,3 +57,53 @@ def fft_guess(reference, deformed, x, y, *, half, search):
     score = np.where(np.isfinite(score), np.clip(score, -1.0, 1.0), -1.0)
     r, c = np.unravel_index(int(np.argmax(score)), score.shape)
     return int(c0 + c + half - x), int(r0 + r + half - y), float(score[r, c])
+
+
+def seed_candidates(comp_idx, px, py, texture=None, spacing=0):
+    """Seed trial order for a component: nearest its centroid first, then spread out; then,
+    when ``texture`` (a function of point indices) is given, the component's best-textured
+    points, at least ``spacing`` px from every point tried before (a generator: these are
+    ranked only if the first tries fail)."""
+    cx, cy = px[comp_idx].mean(), py[comp_idx].mean()
+    order = comp_idx[np.argsort((px[comp_idx] - cx) ** 2 + (py[comp_idx] - cy) ** 2,
+                                kind="stable")]
+    if order.size <= SEED_TRIES:
+        yield from order
+        return
+    # the centre first, then points at growing distance from it
+    picks = order[np.unique(np.linspace(0, order.size - 1, SEED_TRIES).astype(int))]
+    yield from picks
+    if texture is None:
+        return
+    # a large part whose centre lies on poor texture (a depth step, a shadow): its best
+    # textured subsets, spread over it
+    tried = list(picks)
+    for k in comp_idx[np.argsort(-texture(comp_idx), kind="stable")]:
+        if len(tried) >= SEED_TRIES + TEXTURE_TRIES:
+            break
+        if np.min((px[tried] - px[k]) ** 2 + (py[tried] - py[k]) ** 2) < spacing ** 2:
+            continue
+        tried.append(k)
+        yield k
+
+
+def sssig(prop, idx):
+    """The smaller of the sums of squared x and y grey-level gradients (SSSIG) over the subsets
+    of points ``idx``, from summed-area tables of the reference's squared gradients (made once
+    per propagation state, when first asked)."""
+    tables = getattr(prop, "_sssig_tables", None)
+    if tables is None:
+        tables = []
+        for g in (prop.m.gx, prop.m.gy):
+            t = np.zeros((g.shape[0] + 1, g.shape[1] + 1))
+            np.cumsum(np.cumsum(g * g, axis=0), axis=1, out=t[1:, 1:])
+            tables.append(t)
+        prop._sssig_tables = tables
+    h = prop.m.half
+    rows, cols = tables[0].shape
+    x0 = np.clip(prop.px[idx] - h, 0, cols - 1)
+    x1 = np.clip(prop.px[idx] + h + 1, 0, cols - 1)
+    y0 = np.clip(prop.py[idx] - h, 0, rows - 1)
+    y1 = np.clip(prop.py[idx] + h + 1, 0, rows - 1)
+    sx, sy = (t[y1, x1] - t[y0, x1] - t[y1, x0] + t[y0, x0] for t in tables)
+    return np.minimum(sx, sy)
