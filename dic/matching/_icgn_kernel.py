@@ -574,13 +574,12 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
     moment sums (of the gradients' products times 1, dx, dy, dx^2, dx dy, dy^2), which is
     several times cheaper than forming the steepest-descent images explicitly. The reference
     subset is copied into rows 0-2 of the caller's scratch array ``sub`` (f, df/dx, df/dy; one
-    set of scratch arrays per chunk of points), whose rows 3-4 and 9-11 hold each sample's dx,
-    dy, dx^2, dx dy, dy^2 (filled by the caller); the sums are then plain loops over the
-    samples, which the compiler turns into vector instructions. With the quintic spline, each
-    iteration works the same way: the warped positions into ``pos`` (all x, then all y), the
-    deformed image's values into row 8 (:func:`_quintic_at`, with the integer positions in
-    ``idx`` and the weights in ``w``), then the sums: 35 % less time per iteration than
-    sample by sample.
+    set of scratch arrays per chunk of points), whose rows 3-7 hold each sample's dx, dy,
+    dx^2, dx dy, dy^2 (filled by the caller); the sums are then plain loops over the samples,
+    which the compiler turns into vector instructions. Each iteration works the same way: the
+    warped positions into ``pos`` (all x, then all y), the deformed image's values into row 8
+    of ``sub`` (quintic: :func:`_quintic_at`, with the integer positions in ``idx`` and the
+    weights in ``w``), then the sums: 35 % less time per iteration than sample by sample.
     """
     rows, cols = ref.shape
     ns = 2 * half + 1
@@ -588,8 +587,8 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
     h = float(half)
     # --- reference subset: moments of f, its gradients and their products ---
     # the subset into contiguous rows of the scratch array, then the sums in plain loops over
-    # its samples (vectorised by the compiler); sub rows 3-5, 9-11 hold dx, dy, dx^2, dx dy,
-    # dy^2 and 1 (filled by the caller)
+    # its samples (vectorised by the compiler); sub rows 3-7 hold dx, dy, dx^2, dx dy, dy^2
+    # (filled by the caller)
     for j in range(ns):
         r = np.uint64(y0 - half + j)
         q0 = np.uint64(x0 - half)
@@ -609,9 +608,9 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
         fy = sub[2, m]
         dx = sub[3, m]
         dy = sub[4, m]
-        dxx = sub[9, m]
-        dxy = sub[10, m]
-        dyy = sub[11, m]
+        dxx = sub[5, m]
+        dxy = sub[6, m]
+        dyy = sub[7, m]
         xx = fx * fx
         xy = fx * fy
         yy = fy * fy
@@ -733,59 +732,36 @@ def _match_affine(ref, gx, gy, coef, pad, order, x0, y0, p, half, max_iter, tol,
         sg2 = 0.0
         sfg = 0.0
         g0 = g1 = g2 = g3 = g4 = g5 = 0.0
-        if order != 3:
-            # quintic: the subset's values first, then the sums over the subset, in plain
-            # loops over its samples that the compiler turns into vector instructions
-            m = 0
-            for j in range(ns):
-                dy = float(j - half)
-                xr = x0 + u + uy * dy - (1.0 + ux) * h
-                yr = y0 + dy + v + vy * dy - vx * h
-                for i in range(ns):
-                    pos[m] = xr + (1.0 + ux) * i
-                    pos[npix + m] = yr + vx * i
-                    m += 1
-            _quintic_at(coef, pad, pos, idx, w, sub[8], npix)
-            gs = sub[8]
+        # the subset's warped positions, its values, then the sums over it, in plain loops
+        # over its samples that the compiler turns into vector instructions
+        m = 0
+        for j in range(ns):
+            dy = float(j - half)
+            xr = x0 + u + uy * dy - (1.0 + ux) * h
+            yr = y0 + dy + v + vy * dy - vx * h
+            for i in range(ns):
+                pos[m] = xr + (1.0 + ux) * i
+                pos[npix + m] = yr + vx * i
+                m += 1
+        gs = sub[8]
+        if order == 3:
             for m in range(npix):
-                g = gs[m]
-                sg += g
-                sg2 += g * g
-                sfg += sub[0, m] * g
-                fxg = sub[1, m] * g
-                fyg = sub[2, m] * g
-                g0 += fxg
-                g1 += fxg * sub[3, m]
-                g2 += fxg * sub[4, m]
-                g3 += fyg
-                g4 += fyg * sub[3, m]
-                g5 += fyg * sub[4, m]
+                gs[m] = _eval_cubic(coef, pad, pos[m], pos[npix + m])
         else:
-            for j in range(ns):
-                dy = float(j - half)
-                r = np.uint64(y0 - half + j)
-                xr = x0 + u + uy * dy - (1.0 + ux) * h
-                yr = y0 + dy + v + vy * dy - vx * h
-                rx0 = rx1 = ry0 = ry1 = 0.0
-                for i in range(ns):
-                    q = np.uint64(x0 - half + i)
-                    dx = float(i - half)
-                    g = _eval_cubic(coef, pad, xr + (1.0 + ux) * i, yr + vx * i)
-                    sg += g
-                    sg2 += g * g
-                    sfg += ref[r, q] * g
-                    fxg = gx[r, q] * g
-                    fyg = gy[r, q] * g
-                    rx0 += fxg
-                    rx1 += fxg * dx
-                    ry0 += fyg
-                    ry1 += fyg * dx
-                g0 += rx0
-                g1 += rx1
-                g2 += rx0 * dy
-                g3 += ry0
-                g4 += ry1
-                g5 += ry0 * dy
+            _quintic_at(coef, pad, pos, idx, w, gs, npix)
+        for m in range(npix):
+            g = gs[m]
+            sg += g
+            sg2 += g * g
+            sfg += sub[0, m] * g
+            fxg = sub[1, m] * g
+            fyg = sub[2, m] * g
+            g0 += fxg
+            g1 += fxg * sub[3, m]
+            g2 += fxg * sub[4, m]
+            g3 += fyg
+            g4 += fyg * sub[3, m]
+            g5 += fyg * sub[4, m]
         gm = sg / npix
         dg2 = sg2 - npix * gm * gm
         if dg2 <= 0.0:
@@ -835,18 +811,18 @@ def match_first(lo, hi, ref, gx, gy, coef, pad, order, xs, ys, p_init, half, max
     that a run compiles only the solver it uses."""
     p = np.empty(6)
     near = np.zeros(1, np.int64)
-    # scratch of the quintic passes, once per chunk of points (see _match_affine)
+    # scratch of the passes over the subset, once per chunk of points (see _match_affine)
     ns = 2 * half + 1
-    sub = np.empty((12, ns * ns))
+    sub = np.empty((9, ns * ns))
     for j in range(ns):
         for i in range(ns):
             dx = float(i - half)
             dy = float(j - half)
             sub[3, j * ns + i] = dx
             sub[4, j * ns + i] = dy
-            sub[9, j * ns + i] = dx * dx
-            sub[10, j * ns + i] = dx * dy
-            sub[11, j * ns + i] = dy * dy
+            sub[5, j * ns + i] = dx * dx
+            sub[6, j * ns + i] = dx * dy
+            sub[7, j * ns + i] = dy * dy
     pos = np.empty(2 * ns * ns)
     idx = np.empty(2 * ns * ns, np.int64)
     w = np.empty((6, 2 * ns * ns))
