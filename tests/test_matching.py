@@ -285,7 +285,9 @@ def test_textured_patch_off_centre_of_a_blank_roi_is_found():
     dfm = np.where(np.roll(spot, (-1, 1), axis=(0, 1)), dfm, 128.0)
     with pytest.warns(UserWarning, match="too little texture"):
         f = dic.correlate(ref, dfm, subset=21, step=5)
-    # points whose subset lies inside the patch, 2 px clear of its edges
+    # points whose subset lies inside the patch, 2 px clear of its edges; within 0.02 px of
+    # the translation (8-bit speckle of this size matches to about 0.003 px RMS, the
+    # benchmark's figure; common practice, no source, for the margin)
     inner = (f.x >= 15 + 12) & (f.x <= 109 - 12) & (f.y >= 120 + 12) & (f.y <= 214 - 12)
     assert inner.sum() >= 150
     assert f.valid[inner].all()
