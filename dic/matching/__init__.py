@@ -25,7 +25,7 @@ from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, 
 from dic.matching._grid import check_int, check_options, prepare_grid
 from dic.matching._noise import image_noise, pair_noise
 from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
-from dic.matching._checks import (affine_bias, median_test, posterior_sigma,
+from dic.matching._checks import (affine_bias, featureless, median_test, posterior_sigma,
                                   slow_convergence_factor, translation_sigma)
 from dic.matching._interp_bias import interpolation_bias, phase_error
 from dic.matching._rescue import admit_uncertain, retry_failed
@@ -147,6 +147,15 @@ class _Propagation:
         The solver applies the same rule to every point it is given, so this is needed only
         where no match is tried: seed candidates (an FFT search on a flat subset is wasted) and
         the points of a part of the ROI where no seed took hold."""
+        idx = np.asarray(idx, np.int64)
+        flat = self.texture(idx)
+        self.state[idx[flat]] = self.w.BAD
+        self.reason[idx[flat]] = Reason.FLAT
+        return flat
+
+    def texture(self, idx):
+        """Grey-level standard deviation of the reference subsets at points ``idx`` (into
+        ``self.std``) and whether the matcher's texture rule finds them flat (returned)."""
         from dic.images.parallel import run_chunks
         from dic.matching._icgn_kernel import flat_subsets
 
@@ -157,8 +166,6 @@ class _Propagation:
         run_chunks(flat_subsets, idx.size, m.reference, m.gx, m.gy, self.px[idx],
                    self.py[idx], m.half, m.flat_rule(), std, flat, min_chunk=64)
         self.std[idx] = std
-        self.state[idx[flat]] = self.w.BAD
-        self.reason[idx[flat]] = Reason.FLAT
         return flat
 
     def fit_sigma(self, std, zncc, unc):
@@ -471,6 +478,7 @@ def correlate(reference, deformed, *, subset: int = 21, step: int = 10, roi=None
         _solve(prop, ref, dfm, search, seed_list, initial)
         if max_sigma > grow_sigma:
             admit_uncertain(prop, loose_grad2, max_sigma)
+        featureless(prop, noise[0])
         t2 = time.perf_counter()
         k_solve = matcher.kernel_time
         shape_order = np.where(prop.state == prop.w.GOOD, 2 if second else 1, 0).astype(np.int8)

@@ -293,3 +293,30 @@ def translation_sigma(gx, gy, xs, ys, half, noise):
         sig = np.where(smin > 1e-12 * max(float(np.max(smin)), 1e-300), np.sqrt(s2 / smin),
                        np.inf)
     return sig
+
+
+#: a failed point whose reference subset's grey levels vary by at most this many times the
+#: image noise holds no more texture than noise (the texture's own standard deviation,
+#: sqrt(std^2 - noise^2), at most the noise's): it is reported FLAT (a blank or featureless
+#: surface photographed with a real camera), not as a failed match. A noise-only subset's
+#: standard deviation is about 1 x the noise; a smooth ramp under it, the sky of a
+#: photograph, about 1.2 x (common practice, no source)
+FEATURELESS = float(np.sqrt(2.0))
+
+
+def featureless(prop, noise, factor=FEATURELESS):
+    """Relabel ``FLAT`` the points of propagation state ``prop`` (see :func:`dic.correlate`)
+    that no match reached or whose match failed (``NOT_REACHED``, ``LOW_ZNCC``,
+    ``NO_CONVERGENCE``) where the reference subset's standard deviation is at most ``factor``
+    times the reference image's ``noise`` (grey levels): the reason to report is then the
+    missing texture. Returns the number relabelled."""
+    from dic.field import Reason
+
+    idx = np.flatnonzero((prop.state == prop.w.BAD) & np.isin(
+        prop.reason, (Reason.NOT_REACHED, Reason.LOW_ZNCC, Reason.NO_CONVERGENCE)))
+    if idx.size == 0 or not np.isfinite(noise) or noise <= 0:
+        return 0
+    prop.texture(idx)
+    flat = idx[prop.std[idx] <= factor * noise]
+    prop.reason[flat] = Reason.FLAT
+    return int(flat.size)
