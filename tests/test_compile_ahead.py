@@ -202,6 +202,40 @@ def test_the_second_process_ends_with_this_one(fresh):
         _ahead.ready(name)
 
 
+def test_a_run_needing_both_solvers_builds_the_second_order_one_there_first(fresh):
+    # dic run's warm-up: the second process starts on the second-order solver and leaves the
+    # first-order one to this process (the two longest compiles side by side); the default
+    # order starts with the first-order solver
+    seen = []
+
+    def popen(args, **kw):
+        seen.append(list(args[3:]))              # the kernel names after "-c CODE"
+        return _popen_that_exits(args, **kw)
+
+    fresh.setattr(_ahead.subprocess, "Popen", popen)
+    assert dic.matching.compile_ahead(second_order=True) is True
+    assert seen[0] == list(_ahead.SECOND_ORDER_FIRST)
+    assert "first_order" not in seen[0]
+    assert dic.matching.compile_ahead() is False           # once per process
+    fresh.setattr(_ahead, "_started", False)
+    assert _ahead.start() is True
+    assert seen[1] == [name for name, _, _ in _ahead.KERNELS] and seen[1][0] == "first_order"
+    _ahead.stop()
+
+
+@pytest.mark.parametrize("shape, second", [("auto", True), ("quadratic", True),
+                                           ("affine", False)])
+def test_dic_run_warm_up_asks_for_the_solvers_it_will_use(fresh, shape, second):
+    # the warm-up matches a bent pair, so with 'auto' (or second order) it needs both solvers
+    from dic.cli import run as cli_run
+
+    asked = []
+    fresh.setattr(dic.matching, "compile_ahead", lambda second_order=False: asked.append(
+        second_order))
+    cli_run._load_kernels({"shape_function": shape})
+    assert asked == [second]
+
+
 def test_started_once_per_process_and_switched_off_by_the_environment(fresh):
     fresh.setenv("DIC_COMPILE_AHEAD", "0")
     assert _ahead.start() is False

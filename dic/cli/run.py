@@ -531,9 +531,12 @@ def _load_kernels(kw):
     import numpy as np
     from scipy import ndimage
 
-    from dic.matching import correlate
+    from dic.matching import SHAPE_FUNCTIONS, compile_ahead, correlate
 
     t0 = time.perf_counter()
+    shape = str(kw.get("shape_function", _DEFAULTS["shape_function"])).lower()
+    # both solvers side by side on a fresh install, unless the run is first order only
+    compile_ahead(second_order=SHAPE_FUNCTIONS.get(shape, 0) != 1)
     subset = int(kw.get("subset", _DEFAULTS["subset"]))
     size = max(4 * subset, 64)
     noise = np.random.default_rng(1).normal(size=(size, size))

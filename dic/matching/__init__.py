@@ -16,7 +16,7 @@ import numpy as np
 
 from dic.field import DisplacementField, Reason
 from dic.limits import DEFAULT_MAX_SIGMA, GROW_SIGMA, check_max_sigma
-from dic.matching._ahead import ready, set_builder
+from dic.matching._ahead import ready, set_builder, start
 from dic.matching._ahead_build import build as compile_kernel
 from dic.matching._edge import edge_bias, edge_distance, near_border
 from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, edge_margin,
@@ -32,11 +32,11 @@ from dic.matching._rescue import admit_uncertain, retry_failed
 from dic.matching._seed import seed_candidates, sssig
 from dic.matching._shape_choice import second_order_where_curved
 
-__all__ = ["correlate", "prepare_grid", "check_options", "INTERPOLATIONS", "SHAPE_FUNCTIONS",
-           "edge_margin", "edge_distance", "edge_bias", "image_noise", "pair_noise", "point_sigma", "predicted_sigma",
-           "gradient_noise_gain", "affine_bias", "median_test",
-           "posterior_sigma", "translation_sigma", "interpolation_bias", "phase_error",
-           "slow_convergence_factor"]
+__all__ = ["correlate", "compile_ahead", "prepare_grid", "check_options", "INTERPOLATIONS",
+           "SHAPE_FUNCTIONS", "edge_margin", "edge_distance", "edge_bias", "image_noise",
+           "pair_noise", "point_sigma", "predicted_sigma", "gradient_noise_gain", "affine_bias",
+           "median_test", "posterior_sigma", "translation_sigma", "interpolation_bias",
+           "phase_error", "slow_convergence_factor"]
 
 #: a match below min_zncc still counts when its ZNCC is at least WEAK_ZNCC and its standard
 #: deviation from the fit (dic.matching.posterior_sigma) at most WEAK_SIGMA x the
@@ -82,6 +82,15 @@ last_timings: dict = {}
 log = logging.getLogger(__name__)
 # kernels the run compiles itself while the second process builds the solver (_ahead.ready)
 set_builder(compile_kernel)
+
+
+def compile_ahead(second_order: bool = False) -> bool:
+    """On a fresh install, start compiling the numerical kernels in a second, low-priority
+    process now (otherwise the first matcher does; see :mod:`dic.matching._ahead`). With
+    ``second_order``, for a run that will use the second-order solver too, that process builds
+    it first while this one builds the first-order solver. Returns True if a process was
+    started (not when the compile cache is complete, or once one was started)."""
+    return start(second_order_first=second_order)
 
 # separate parts of the ROI smaller than this many points are not seeded on their own
 _MIN_ISLAND = 10

@@ -41,6 +41,9 @@ KERNELS = (
     ("median_test", "dic.matching._median_kernel", "median_outliers"),
     ("second_order", "dic.matching._icgn_kernel", "match_general"),
 )
+#: the second process's kernels for a run that needs both solvers (:func:`start`)
+SECOND_ORDER_FIRST = ("second_order", "flat_subsets", "next_wave", "fill_between",
+                      "interpolation_bias", "median_test")
 #: longest wait (s) for a kernel the second process is building: about twice its compile time
 #: on a 2-core machine (0.3-1.1 s; 5-7 s for the first-order solver, 8 s for the second-order
 #: one); then it is compiled here
@@ -99,10 +102,14 @@ def command(names) -> list:
     return [sys.executable, "-c", code, *names]
 
 
-def start() -> bool:
+def start(second_order_first: bool = False) -> bool:
     """Start the second process if the cache lacks one of :data:`KERNELS` (once per process).
 
-    Returns True when a process was started by this call."""
+    With ``second_order_first`` (a run that will need both solvers, such as ``dic run``'s
+    warm-up), the second process builds the second-order solver first and leaves the
+    first-order one to this process, so that the two longest compiles run side by side; a run
+    that needs only the first-order solver has it sooner in the default order. Returns True
+    when a process was started by this call."""
     global _started, _owner
     with _lock:
         if _started:
@@ -117,6 +124,8 @@ def start() -> bool:
             if DISABLE_JIT:
                 return False
             missing = [k for k, mod, fn in KERNELS if not _cached(_dispatcher(mod, fn))]
+            if second_order_first:
+                missing = [k for k in SECOND_ORDER_FIRST if k in missing]
         except Exception:
             return False
         if not missing:
