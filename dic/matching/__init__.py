@@ -92,6 +92,7 @@ def compile_ahead(second_order: bool = False) -> bool:
     started (not when the compile cache is complete, or once one was started)."""
     return start(second_order_first=second_order)
 
+
 # separate parts of the ROI smaller than this many points are not seeded on their own
 _MIN_ISLAND = 10
 # grids at least this many points across propagate over a coarse lattice first
