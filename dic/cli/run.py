@@ -546,8 +546,7 @@ def _load_kernels(kw):
     bend = 64e-3 / size * (xx - size / 2) ** 2
     moved = ndimage.map_coordinates(ref, [yy - 0.3, xx + 0.2 - bend], order=3, mode="grid-wrap")
     try:
-        correlate(ref, moved, subset=subset, step=max(subset // 2, 1),
-                  shape_function=kw.get("shape_function", _DEFAULTS["shape_function"]),
+        correlate(ref, moved, subset=subset, step=max(subset // 2, 1), shape_function=shape,
                   interpolation=kw.get("interpolation", _DEFAULTS["interpolation"]),
                   search=4)
     except (ValueError, ArithmeticError):  # odd settings: the run itself reports them

@@ -25,11 +25,11 @@ from dic.matching._icgn import (INTERPOLATIONS, SHAPE_FUNCTIONS, SubsetMatcher, 
 from dic.matching._grid import check_int, check_options, prepare_grid
 from dic.matching._noise import image_noise, pair_noise
 from dic.matching._uncertainty import gradient_noise_gain, point_sigma, predicted_sigma
-from dic.matching._checks import (affine_bias, featureless, median_test, posterior_sigma,
+from dic.matching._checks import (affine_bias, featureless, median_test, posterior_sigma, sssig,
                                   slow_convergence_factor, translation_sigma)
 from dic.matching._interp_bias import interpolation_bias, phase_error
 from dic.matching._rescue import admit_uncertain, retry_failed
-from dic.matching._seed import seed_candidates, sssig
+from dic.matching._seed import seed_candidates
 from dic.matching._shape_choice import second_order_where_curved
 
 __all__ = ["correlate", "compile_ahead", "prepare_grid", "check_options", "INTERPOLATIONS",
@@ -612,6 +612,10 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
             prop.propagate(np.array([k], np.int64))
         else:
             log.warning("seed at (%.0f, %.0f) found no reliable match", s[0], s[1])
+    def texture(idx):
+        # seeds beyond the first tries go to the best-textured subsets (largest SSSIG)
+        return sssig(prop.m.gx, prop.m.gy, prop.px[idx], prop.py[idx], prop.m.half)
+
     # every part of the ROI that is still unmatched gets seeds of its own
     while True:
         todo = (prop.state == w.TODO).reshape(prop.ny, prop.nx)
@@ -630,8 +634,7 @@ def _solve(prop, ref, dfm, search, seed_list, initial):
                 # a seed there is as likely to lock onto a false match as a true one
                 _unreached(prop, comp)
                 continue
-            for k in seed_candidates(comp, prop.px, prop.py, lambda i: sssig(prop, i),
-                                     2 * prop.m.half + 1):
+            for k in seed_candidates(comp, prop.px, prop.py, texture, 2 * prop.m.half + 1):
                 if prop.state[k] != w.TODO:
                     continue
                 if _try_seed(prop, k, ref, dfm, search, start=start):

@@ -42,8 +42,8 @@ KERNELS = (
     ("second_order", "dic.matching._icgn_kernel", "match_general"),
 )
 #: the second process's kernels for a run that needs both solvers (:func:`start`)
-SECOND_ORDER_FIRST = ("second_order", "flat_subsets", "next_wave", "fill_between",
-                      "interpolation_bias", "median_test")
+SECOND_ORDER_FIRST = ("second_order",) + tuple(
+    k for k, _, _ in KERNELS if k not in ("first_order", "second_order"))
 #: longest wait (s) for a kernel the second process is building: about twice its compile time
 #: on a 2-core machine (0.3-1.1 s; 5-7 s for the first-order solver, 8 s for the second-order
 #: one); then it is compiled here
@@ -65,6 +65,7 @@ def set_builder(fn) -> None:
     """Set the function :func:`ready` builds kernels with in this process (by name)."""
     global builder
     builder = fn
+
 
 _lock = threading.Lock()
 _started = False

@@ -246,6 +246,28 @@ def median_test(x, y, u, v, grad, valid, *, grad2=None, eps=0.1, threshold=2.0,
     return out
 
 
+def sssig(gx, gy, xs, ys, half):
+    """The smaller of the subset sums of squared x and y grey-level gradients (SSSIG, Pan et
+    al. 2008, cited at :func:`translation_sigma`) of the subsets centred on integer pixels
+    ``(xs, ys)``, half-width ``half`` (wholly inside the images ``gx``, ``gy``), from
+    summed-area tables over their bounding box."""
+    xs = np.asarray(xs, dtype=np.int64)
+    ys = np.asarray(ys, dtype=np.int64)
+    if xs.size == 0:
+        return np.empty(0)
+    r0, r1 = int(ys.min()) - half, int(ys.max()) + half + 1
+    c0, c1 = int(xs.min()) - half, int(xs.max()) + half + 1
+    sums = []
+    for g in (gx, gy):
+        a = np.square(g[r0:r1, c0:c1])
+        c = np.zeros((a.shape[0] + 1, a.shape[1] + 1))
+        c[1:, 1:] = np.cumsum(np.cumsum(a, axis=0), axis=1)
+        y0, x0 = ys - half - r0, xs - half - c0
+        n = 2 * half + 1
+        sums.append(c[y0 + n, x0 + n] - c[y0, x0 + n] - c[y0 + n, x0] + c[y0, x0])
+    return np.minimum(sums[0], sums[1])
+
+
 def translation_sigma(gx, gy, xs, ys, half, noise):
     r"""Predicted standard deviation (px) of a match from image noise, translation only.
 
@@ -273,22 +295,10 @@ def translation_sigma(gx, gy, xs, ys, half, noise):
     .. [1] B. Pan, H. Xie, Z. Wang, K. Qian, Z. Wang, "Study on subset size selection in
        digital image correlation for speckle patterns", Opt. Express 16 (2008) 7037-7048.
     """
-    xs = np.asarray(xs, dtype=np.int64)
-    ys = np.asarray(ys, dtype=np.int64)
-    if xs.size == 0:
-        return np.empty(0)
+    smin = sssig(gx, gy, xs, ys, half)
+    if smin.size == 0:
+        return smin
     s2 = float(np.nansum(np.square(np.asarray(noise, dtype=np.float64))))
-    r0, r1 = int(ys.min()) - half, int(ys.max()) + half + 1
-    c0, c1 = int(xs.min()) - half, int(xs.max()) + half + 1
-    sums = []
-    for g in (gx, gy):
-        a = np.square(g[r0:r1, c0:c1])
-        c = np.zeros((a.shape[0] + 1, a.shape[1] + 1))
-        c[1:, 1:] = np.cumsum(np.cumsum(a, axis=0), axis=1)
-        y0, x0 = ys - half - r0, xs - half - c0
-        n = 2 * half + 1
-        sums.append(c[y0 + n, x0 + n] - c[y0, x0 + n] - c[y0 + n, x0] + c[y0, x0])
-    smin = np.minimum(sums[0], sums[1])
     with np.errstate(divide="ignore", invalid="ignore"):
         sig = np.where(smin > 1e-12 * max(float(np.max(smin)), 1e-300), np.sqrt(s2 / smin),
                        np.inf)

@@ -85,25 +85,3 @@ def seed_candidates(comp_idx, px, py, texture=None, spacing=0):
             continue
         tried.append(k)
         yield k
-
-
-def sssig(prop, idx):
-    """The smaller of the sums of squared x and y grey-level gradients (SSSIG) over the subsets
-    of points ``idx``, from summed-area tables of the reference's squared gradients (made once
-    per propagation state, when first asked)."""
-    tables = getattr(prop, "_sssig_tables", None)
-    if tables is None:
-        tables = []
-        for g in (prop.m.gx, prop.m.gy):
-            t = np.zeros((g.shape[0] + 1, g.shape[1] + 1))
-            np.cumsum(np.cumsum(g * g, axis=0), axis=1, out=t[1:, 1:])
-            tables.append(t)
-        prop._sssig_tables = tables
-    h = prop.m.half
-    rows, cols = tables[0].shape
-    x0 = np.clip(prop.px[idx] - h, 0, cols - 1)
-    x1 = np.clip(prop.px[idx] + h + 1, 0, cols - 1)
-    y0 = np.clip(prop.py[idx] - h, 0, rows - 1)
-    y1 = np.clip(prop.py[idx] + h + 1, 0, rows - 1)
-    sx, sy = (t[y1, x1] - t[y0, x1] - t[y1, x0] + t[y0, x0] for t in tables)
-    return np.minimum(sx, sy)
