@@ -669,11 +669,17 @@ def _unreached(prop, idx):
 
 def _explain_unreached(prop, shape):
     """Unmeasured points whose match, extrapolated from the nearest measured point, would leave
-    the image: that is the reason to report, not 'not reached' or a failed seed attempt."""
+    the image: that is the reason to report, not 'not reached' or a failed seed attempt.
+    Conversely a match that wandered out of the image from a start well inside it diverged:
+    NO_CONVERGENCE, not OUTSIDE_IMAGE (on the photographed motorcycle pair, a dark patch of
+    floor in mid-image, whose subsets hardly correlate at the true disparity, was reported as
+    outside the image)."""
     from scipy import ndimage
 
     nr = np.flatnonzero(np.isin(prop.reason, (Reason.NOT_REACHED, Reason.LOW_ZNCC,
-                                              Reason.NO_CONVERGENCE, Reason.DEGENERATE)))
+                                              Reason.NO_CONVERGENCE, Reason.DEGENERATE))
+                        | ((prop.reason == Reason.OUTSIDE_IMAGE)
+                           & (prop.state != prop.w.NOT_CANDIDATE)))
     good = (prop.state == prop.w.GOOD).reshape(prop.ny, prop.nx)
     if nr.size == 0 or not good.any():
         return
@@ -691,7 +697,9 @@ def _explain_unreached(prop, shape):
     xw, yw = prop.px[nr] + u, prop.py[nr] + v
     leaves = ((xw - reach < lo) | (xw + reach > shape[1] - 1 - lo)
               | (yw - reach < lo) | (yw + reach > shape[0] - 1 - lo))
+    wandered = (prop.reason[nr] == Reason.OUTSIDE_IMAGE) & ~leaves
     prop.reason[nr[leaves]] = Reason.OUTSIDE_IMAGE
+    prop.reason[nr[wandered]] = Reason.NO_CONVERGENCE
 
 
 def _subset_std(prop, good):
