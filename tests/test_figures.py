@@ -267,6 +267,34 @@ def test_contours_gauges_and_scale_bar(run):
     assert not _by_gid(ax, "scale_bar")
 
 
+def test_map_series_draws_the_maps_strain_map_draws(run, tmp_path):
+    # the fast maps of a sequence (drawn once, then only the cells, gauges and title per
+    # frame) are pixel for pixel the maps of strain_map saved by save_figure, the reference
+    # path (common practice, no source: blitting must not change what is drawn)
+    from matplotlib.image import imread
+
+    from dic.figures.series import MapSeries
+
+    res, paths = run
+    gauges = [([(20, 48), (140, 48)], "L0"),
+              {"points": [(40, 30), (120, 30), (120, 70), (40, 70)], "label": "area"}]
+    for limits, full in (((-0.2, 0.2), 1), (figures.strain_limits(res, "xx", window=5), None)):
+        maps = MapSeries(paths[0], component="xx", limits=limits, scale=SCALE, gauges=gauges)
+        for k in range(1, len(res)):
+            s = res.strain(k, window=5)
+            title = f"frame {k}\n{int(np.count_nonzero(s.valid))} points " + "x" * k
+            fast = maps.save(s, tmp_path / f"fast{k}.png", title=title)
+            fig, _ = figures.strain_map(s, paths[0], component="xx", limits=limits,
+                                        scale=SCALE, gauges=gauges, alpha=0.85, title=title)
+            plain = figures.save_figure(fig, tmp_path / f"plain{k}.png")
+            np.testing.assert_array_equal(imread(fast), imread(plain))
+        if full is not None:
+            # limits every frame stays within: one colour bar, so one full drawing
+            assert maps.full_draws == full
+    with pytest.raises(OSError, match="PNG"):
+        maps.save(s, tmp_path / "m.svg", title="x")
+
+
 # --------------------------------------------------------------------------------------------
 # other figures
 # --------------------------------------------------------------------------------------------

@@ -400,8 +400,8 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
 
     from dic.export import frame_to_csv, sidecar_path
     from dic.images.io import read_image
-    from dic.figures import save_figure, strain_map
     from dic.figures.common import MEASURE_TITLES, strain_limits
+    from dic.figures.series import MapSeries
     from dic.workflow.run import axial_component, gauge_lines
 
     st = results.settings
@@ -418,7 +418,7 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
             todo.append(k)
     if not todo:
         return 0
-    reference_image = never = None
+    never = None
     measure = strain.get("measure", "green-lagrange")
     window = int(strain["window"]) if "window" in strain else _default_window(results.shape)
     comp = axial_component(results)
@@ -427,12 +427,15 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
     shapes = gauge_lines(results, tensile)
     written = 0
     refs = results.reference_indices
+    maps = None  # the maps' shared parts are drawn once (dic.figures.series)
     progress = _bar(total=len(todo), desc="exporting", enabled=bar)
     try:
         for k in todo:
             field = results.field(k)
-            if reference_image is None:
+            if maps is None:
                 reference_image = read_image(reference_path, name="reference image")
+                maps = MapSeries(reference_image, component=comp, limits=limits,
+                                 scale=results.scale, gauges=shapes, alpha=0.85)
             name = Path(names[k]).name
             against = int(refs[k])
             note = dict(image=name, reference_image=ref_name)
@@ -445,13 +448,10 @@ def _export(results, folder, reference_path, *, redo, bar, verbose, out, tensile
             frame_to_csv(results, k, csv, window=window, measure=measure, digits=17,
                          about=note, field=field, strain=st_k)
             nv = int(np.count_nonzero(np.isfinite(getattr(st_k, comp))))
-            fig, _ = strain_map(
-                st_k, reference_image, component=comp, limits=limits, scale=results.scale,
-                gauges=shapes, alpha=0.85,
-                title=f"Axial strain {comp} ({MEASURE_TITLES.get(measure, measure)}), {name} "
-                      f"against {ref_name}\n{nv} of {field.n_points} points have a strain; "
-                      f"one colour scale for every frame")
-            save_figure(fig, png)  # written atomically: never half a file
+            maps.save(st_k, png,  # written atomically: never half a file
+                      title=f"Axial strain {comp} ({MEASURE_TITLES.get(measure, measure)}), "
+                            f"{name} against {ref_name}\n{nv} of {field.n_points} points have "
+                            f"a strain; one colour scale for every frame")
             written += 3
             if verbose:
                 if never is None:

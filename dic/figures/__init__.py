@@ -16,6 +16,9 @@ lines
     and :func:`stress_strain_figure` (a tensile test's results).
 animation
     :func:`animate`: GIF and MP4 of a strain component through a sequence.
+series
+    :class:`MapSeries`: the strain maps of many frames as PNG files, the parts every map
+    shares drawn once.
 
 Names load on first attribute access (PEP 562), so importing this package stays light.
 """
@@ -33,8 +36,9 @@ _NAMES = {
     "curve_figure": "lines", "history_figure": "lines", "stress_strain_figure": "lines",
     "valid_counts": "lines", "valid_points_plot": "lines",
     "ANIMATION_FORMATS": "animation", "animate": "animation",
+    "MapSeries": "series",
 }
-_MODULES = ("common", "layers", "maps", "lines", "animation")
+_MODULES = ("common", "layers", "maps", "lines", "animation", "series")
 
 __all__ = sorted(_NAMES)
 

@@ -15,8 +15,8 @@ import numpy as np
 from dic.figures.common import check_size
 
 __all__ = ["cell_corners", "check_scale", "contour_levels", "draw_colorbar", "draw_contours",
-           "draw_gauges", "draw_image", "gauge_shapes", "grid_view", "map_view", "masked",
-           "new_axes", "scale_bar", "spacing", "veil"]
+           "draw_gauges", "draw_image", "extend_of", "gauge_shapes", "grid_view", "map_view",
+           "masked", "new_axes", "scale_bar", "spacing", "veil"]
 
 
 def spacing(coords, axis, fallback):
@@ -189,7 +189,9 @@ def draw_image(ax, grey):
               extent=(-0.5, grey.shape[1] - 0.5, grey.shape[0] - 0.5, -0.5))
 
 
-def _extend(data, lo, hi):
+def extend_of(data, lo, hi):
+    """Which ends of a colour bar need arrows: ``'neither'``, ``'min'``, ``'max'`` or
+    ``'both'``, as ``data`` reach below ``lo`` or above ``hi``."""
     below, above = bool(np.any(data < lo)), bool(np.any(data > hi))
     return {(False, False): "neither", (True, False): "min", (False, True): "max",
             (True, True): "both"}[below, above]
@@ -215,7 +217,7 @@ def draw_colorbar(fig, mappable, axes, label, data, lo, hi, horizontal):
     -------
     matplotlib.colorbar.Colorbar
     """
-    cbar = fig.colorbar(mappable, ax=axes, extend=_extend(data, lo, hi),
+    cbar = fig.colorbar(mappable, ax=axes, extend=extend_of(data, lo, hi),
                         orientation="horizontal" if horizontal else "vertical",
                         shrink=0.9 if horizontal else 1.0, aspect=40 if horizontal else 20)
     cbar.set_label("\n".join(textwrap.wrap(label, 70 if horizontal else 45)))
@@ -402,10 +404,11 @@ def draw_gauges(ax, shapes, strain=None, field=None):
             ok = np.isfinite(p).all(axis=1)
             if ok.any():
                 where = p[ok][0] if not closed else p[ok].mean(axis=0)
-                ax.annotate(label, where, xytext=(4, 4), textcoords="offset points",
-                            fontsize=8, color="black", zorder=6,
-                            bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none",
-                                      alpha=0.85))
+                note = ax.annotate(label, where, xytext=(4, 4), textcoords="offset points",
+                                   fontsize=8, color="black", zorder=6,
+                                   bbox=dict(boxstyle="round,pad=0.2", fc="white", ec="none",
+                                             alpha=0.85))
+                note.set_gid("gauge label")
 
 
 def contour_levels(contours, lo, hi, factor):
